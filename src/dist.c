@@ -1,0 +1,1 @@
+/* dist: to be written. */

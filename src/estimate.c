@@ -1,0 +1,1 @@
+/* estimate: to be written. */

@@ -1,0 +1,58 @@
+/*
+ * The executor interface: run model processes, each in its own folder,
+ * session and process group, at most `slots` at a time. Executors know
+ * nothing of statistics; methods know nothing of processes. exec_local.c
+ * implements it on libuv; exec_mpi.c distributes jobs to MPI ranks.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#ifndef BK_EXEC_H
+#define BK_EXEC_H
+
+#include <stddef.h>
+
+typedef struct {
+  const char *key;         /* evaluation key, for messages */
+  const char *dir;         /* run folder: exists; cwd of the process */
+  char *const *argv;       /* argv[0] is looked up on PATH when no '/' */
+  char *const *env;        /* complete environment "NAME=VALUE", NULL-ended */
+  double timeout;          /* seconds, 0 = none */
+  double grace;            /* seconds from SIGTERM to SIGKILL; 0 -> 5 */
+  const char *stdout_name; /* file in dir receiving stdout, e.g. "stdout" */
+  const char *stderr_name; /* file in dir receiving stderr */
+} bk_job_t;
+
+typedef struct {
+  int fault;        /* BK_FAULT_NONE, _SPAWN, _EXIT_CODE, _SIGNAL, _TIMEOUT,
+                       or BK_FAULT_INTERRUPTED when brink was stopped */
+  int exit_status;  /* when exited */
+  int term_signal;  /* when killed by a signal */
+  double seconds;   /* wall time */
+  char why[256];    /* e.g. "exit status 201", "killed by SIGSEGV",
+                       "timeout after 600 s", "ccx: No such file or
+                       directory" */
+} bk_job_result_t;
+
+/* Runs exactly once per accepted job, from inside bk_exec_wait. */
+typedef void (*bk_exec_cb)(void *data, const bk_job_result_t *res);
+
+typedef struct bk_exec bk_exec_t;
+
+/* A local executor with `slots` concurrent processes (>= 1). */
+int bk_exec_local_new(bk_exec_t **out, int slots);
+void bk_exec_free(bk_exec_t *ex);
+
+/* Queues a job; the job's strings are copied. Returns 0 (the callback will
+ * run exactly once) or a negative code (it will not run). */
+int bk_exec_submit(bk_exec_t *ex, const bk_job_t *job, bk_exec_cb cb,
+                   void *data);
+/* Runs until every submitted job has finished and its callback has run.
+ * Callbacks may submit more jobs. Returns 0, or BK_ESTOPPED when a stop
+ * was requested (bk_stop_requested): running process groups get SIGTERM,
+ * SIGKILL after the grace, queued jobs are dropped, and every callback
+ * still runs once, with BK_FAULT_INTERRUPTED. */
+int bk_exec_wait(bk_exec_t *ex);
+/* Number of processes running now (for progress lines). */
+int bk_exec_running(const bk_exec_t *ex);
+
+#endif

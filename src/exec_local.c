@@ -1,0 +1,1 @@
+/* exec_local: to be written. */

@@ -1,0 +1,1 @@
+/* expr: to be written. */

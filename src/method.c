@@ -1,0 +1,1 @@
+/* method: to be written. */

@@ -1,0 +1,1 @@
+/* method_mc: to be written. */

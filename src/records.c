@@ -1,0 +1,1 @@
+/* records: to be written. */

@@ -1,0 +1,1 @@
+/* rng: to be written. */

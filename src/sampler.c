@@ -1,0 +1,1 @@
+/* sampler: to be written. */

@@ -1,0 +1,62 @@
+/*
+ * Samplers of the unit hypercube, all random access: point `index` of a
+ * design is a pure function of (kind, seed, stream, npoints, index), and no
+ * design matrix is held in memory.
+ *
+ *  - BK_SAMPLER_RANDOM: independent uniforms from the counter-based stream.
+ *  - BK_SAMPLER_LHS: Latin hypercube of `npoints` points; in each dimension
+ *    point i falls in stratum perm_d(i), perm_d a keyed bijection of
+ *    [0, npoints) evaluated on the fly (Kensler 2013 cycle-walking hash
+ *    permutation), jittered uniformly inside the stratum (McKay et al. 1979).
+ *  - BK_SAMPLER_SOBOL: Sobol points by index with Joe & Kuo (2008)
+ *    direction numbers (new-joe-kuo-6.21201); with `scramble` set, hash-based
+ *    Owen scrambling (Burley 2020) keyed by (seed, stream, dim). Unscrambled
+ *    point 0 is the origin, so unscrambled designs are for tests only.
+ *
+ * Different `stream` values give independent randomisations (replicates).
+ * Every coordinate returned lies in the open interval (0, 1).
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#ifndef BK_SAMPLER_H
+#define BK_SAMPLER_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+typedef enum {
+  BK_SAMPLER_RANDOM,
+  BK_SAMPLER_LHS,
+  BK_SAMPLER_SOBOL
+} bk_sampler_kind_t;
+
+/* The largest Sobol dimension supported. */
+#define BK_SOBOL_MAXDIM 21201
+
+/* Value type; valid after a successful bk_sampler_init. */
+typedef struct {
+  bk_sampler_kind_t kind;
+  uint64_t seed;
+  uint64_t stream;
+  uint32_t ndim;
+  uint64_t npoints; /* LHS: design size (required); others: informational */
+  int scramble;     /* Sobol only */
+} bk_sampler_t;
+
+/* Returns 0, or BK_EINVAL (ndim 0 or above BK_SOBOL_MAXDIM for Sobol,
+ * npoints 0 for LHS, npoints above 2^32 for Sobol). */
+int bk_sampler_init(bk_sampler_t *s, bk_sampler_kind_t kind, uint64_t seed,
+                    uint64_t stream, uint32_t ndim, uint64_t npoints,
+                    int scramble);
+
+/* Writes point `index` (ndim coordinates in (0, 1)) into `out`. For LHS
+ * index < npoints. */
+void bk_sampler_point(const bk_sampler_t *s, uint64_t index, double *out);
+
+/* Unscrambled Sobol coordinate as a 32-bit integer (for tests). */
+uint32_t bk_sobol_raw(uint64_t index, uint32_t dim);
+
+/* The keyed permutation of [0, n): a bijection for every key. */
+uint64_t bk_permute(uint64_t i, uint64_t n, uint64_t key);
+
+#endif

@@ -1,0 +1,1 @@
+/* sobol_table: to be written. */

@@ -1,0 +1,1 @@
+/* special: to be written. */

@@ -1,0 +1,36 @@
+/*
+ * Special functions used by the distributions and the estimators: standard
+ * normal pdf/cdf/inverse, regularized incomplete gamma and beta functions and
+ * their inverses. Each implementation names its published algorithm and its
+ * accuracy beside the code.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#ifndef BK_SPECIAL_H
+#define BK_SPECIAL_H
+
+double bk_norm_pdf(double x);
+/* Phi(x), accurate to full double precision in both tails. */
+double bk_norm_cdf(double x);
+/* 1 - Phi(x) without cancellation (Phi(-x)). */
+double bk_norm_sf(double x);
+/* Phi^-1(p) for 0 < p < 1 (AS 241 plus one Newton refinement); -inf/inf at
+ * 0/1, NaN outside. */
+double bk_norm_icdf(double p);
+
+/* Regularized lower incomplete gamma P(a, x) and upper Q(a, x). */
+double bk_gamma_p(double a, double x);
+double bk_gamma_q(double a, double x);
+/* x such that P(a, x) = p. */
+double bk_gamma_p_inv(double a, double p);
+
+/* Regularized incomplete beta I_x(a, b). */
+double bk_beta_inc(double a, double b, double x);
+/* x such that I_x(a, b) = p. */
+double bk_beta_inc_inv(double a, double b, double p);
+
+/* Student t distribution with nu degrees of freedom: cdf and quantile. */
+double bk_student_cdf(double t, double nu);
+double bk_student_icdf(double p, double nu);
+
+#endif

@@ -1,0 +1,1 @@
+/* study: to be written. */

@@ -1,0 +1,1 @@
+/* template: to be written. */

@@ -1,0 +1,1 @@
+/* transform: to be written. */
