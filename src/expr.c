@@ -32,12 +32,14 @@
 #include "alloc.h"
 #include "error.h"
 
-/* A tree taller than MAX_HEIGHT (or parsing recursion deeper than it) is
- * refused, which keeps the recursive parser and code generator well inside
- * the C stack. STACK_SLOTS bounds the evaluation stack; by the Sethi-Ullman
- * bound a program needing more would have more than 2^63 leaves, so the
- * check in bk_expr_compile() is a guard only. */
-#define MAX_HEIGHT  4000
+/* Parsing recursion (parentheses, signs, powers, calls) deeper than
+ * MAX_NESTING and trees taller than MAX_HEIGHT are refused, which keeps the
+ * recursive parser and code generator well inside the C stack. STACK_SLOTS
+ * bounds the evaluation stack; by the Sethi-Ullman bound a program needing
+ * more would have more than 2^63 leaves, so the check in bk_expr_compile()
+ * is a guard only. */
+#define MAX_NESTING 500
+#define MAX_HEIGHT  10000
 #define STACK_SLOTS 64
 
 /* Longest number literal accepted; longer ones cannot be more precise. */
@@ -886,10 +888,10 @@ static int parse_power(parser_t *p) {
 static int parse_unary(parser_t *p) {
   if (p->rc)
     return -1;
-  if (++p->depth > MAX_HEIGHT)
+  if (++p->depth > MAX_NESTING)
     return fail(p, BK_EPARSE, p->tstart,
-                "expression is too complex (more than %d nested operations)",
-                MAX_HEIGHT);
+                "expression is nested too deeply (more than %d levels)",
+                MAX_NESTING);
   int r;
   if (p->tok == T_MINUS || p->tok == T_PLUS) {
     int neg = p->tok == T_MINUS;
