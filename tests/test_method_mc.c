@@ -1,0 +1,264 @@
+/*
+ * Tests of the sampling methods on closed-form problems: the exact Pf must
+ * fall inside the interval each method states, the intervals must cover at
+ * about their nominal rate over many seeds, stopping must be deterministic,
+ * and designs must be what they claim (replicate counts, keys).
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include <criterion/criterion.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "estimate.h"
+#include "method.h"
+#include "special.h"
+#include "study.h"
+
+static char dir[256];
+
+static void setup(void) {
+  snprintf(dir, sizeof dir, "/tmp/bk-test-mc-XXXXXX");
+  cr_assert(mkdtemp(dir));
+}
+
+static void teardown(void) {
+  char cmd[600];
+  snprintf(cmd, sizeof cmd, "rm -rf '%s'", dir);
+  cr_assert_eq(system(cmd), 0);
+}
+
+TestSuite(method_mc, .init = setup, .fini = teardown);
+
+static bk_study_t *study_from(const char *fmt, ...) {
+  char text[4096];
+  va_list ap;
+  va_start(ap, fmt);
+  vsnprintf(text, sizeof text, fmt, ap);
+  va_end(ap);
+  char path[512];
+  snprintf(path, sizeof path, "%s/study.yaml", dir);
+  FILE *f = fopen(path, "w");
+  cr_assert(f);
+  fputs(text, f);
+  fclose(f);
+  bk_study_t *s;
+  bk_error_t err;
+  bk_error_clear(&err);
+  int rc = bk_study_load(path, &s, &err);
+  cr_assert_eq(rc, 0, "%d:%d: %s", err.line, err.col, err.msg);
+  return s;
+}
+
+static void run(bk_study_t *s, bk_result_t *r) {
+  bk_evaluator_t ev;
+  bk_evaluator_inprocess(&ev, s);
+  bk_error_t err;
+  bk_error_clear(&err);
+  int rc = bk_method_run(s, &ev, NULL, r, &err);
+  cr_assert_eq(rc, 0, "%s", err.msg);
+}
+
+static void expect_inside(const bk_result_t *r, double exact,
+                          const char *what) {
+  cr_expect(r->est.ci[0] <= exact && exact <= r->est.ci[1],
+            "%s: exact Pf %.6e outside the %s interval [%.6e, %.6e] "
+            "(estimate %.6e, n %llu)",
+            what, exact, r->est.ci_method, r->est.ci[0], r->est.ci[1],
+            r->est.pf, (unsigned long long)r->evaluations);
+}
+
+/* Cornell (1969): g = R - S with normal R, S is normal, so
+ * Pf = Phi(-(mR - mS)/sqrt(sR^2 + sS^2)) exactly. Here beta = 2.5. */
+static const char linear_study[] =
+    "seed: %d\n"
+    "variables:\n"
+    "  r: {type: normal, mean: 200, sd: 20}\n"
+    "  s: {type: normal, mean: 125, sd: 20}\n"
+    "limit_state: r - s*1.0\n"
+    "analysis: {method: %s, samples: %d%s}\n";
+
+static double linear_exact(void) {
+  return bk_norm_cdf(-75.0 / sqrt(800.0));
+}
+
+Test(method_mc, linear_in_normals_random) {
+  bk_study_t *s = study_from(linear_study, 11, "random", 400000, "");
+  bk_result_t r;
+  run(s, &r);
+  expect_inside(&r, linear_exact(), "random");
+  cr_assert_eq(r.evaluations, 400000);
+  cr_assert_str_eq(r.est.ci_method, "wilson");
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+Test(method_mc, linear_in_normals_lhs_and_sobol) {
+  const char *methods[] = {"lhs", "sobol"};
+  for (int i = 0; i < 2; i++) {
+    bk_study_t *s = study_from(linear_study, 12, methods[i], 262144,
+                               ", replicates: 8");
+    bk_result_t r;
+    run(s, &r);
+    expect_inside(&r, linear_exact(), methods[i]);
+    cr_assert_eq(r.replicates, 8);
+    cr_assert_eq(r.per_replicate, 32768);
+    cr_assert_str_eq(r.est.ci_method, "student-t");
+    bk_result_close(&r);
+    bk_study_free(s);
+  }
+}
+
+/* Rosenblueth & Esteva (1972): lognormal R over lognormal S, exact
+ * beta = ln((mR/mS) sqrt((1+cS^2)/(1+cR^2))) / sqrt(ln((1+cR^2)(1+cS^2))).
+ */
+Test(method_mc, lognormal_over_lognormal) {
+  double mR = 3.0, cR = 0.15, mS = 1.2, cS = 0.25;
+  double beta = log((mR / mS) * sqrt((1 + cS * cS) / (1 + cR * cR))) /
+                sqrt(log((1 + cR * cR) * (1 + cS * cS)));
+  double exact = bk_norm_cdf(-beta);
+  const char *methods[] = {"random", "lhs", "sobol"};
+  for (int i = 0; i < 3; i++) {
+    bk_study_t *s = study_from(
+        "seed: 5\n"
+        "variables:\n"
+        "  cap: {type: lognormal, mean: %g, cov: %g}\n"
+        "  dem: {type: lognormal, mean: %g, cov: %g}\n"
+        "limit_state: cap/dem - 1\n"
+        "analysis: {method: %s, samples: 524288%s}\n",
+        mR, cR, mS, cS, methods[i], i ? ", replicates: 16" : "");
+    bk_result_t r;
+    run(s, &r);
+    expect_inside(&r, exact, methods[i]);
+    bk_result_close(&r);
+    bk_study_free(s);
+  }
+}
+
+/* Sum of n iid exponentials with rate lambda is Gamma(n, 1/lambda):
+ * P(S > t) = exp(-x) sum_{k<n} x^k/k! with x = lambda t (Erlang
+ * distribution, any probability handbook). Failure when the sum exceeds
+ * the threshold. */
+Test(method_mc, sum_of_exponentials) {
+  double lambda = 2.0, t = 6.0;
+  int n = 4;
+  double x = lambda * t, term = 1, sum = 0;
+  for (int k = 0; k < n; k++) {
+    sum += term;
+    term *= x / (k + 1);
+  }
+  double exact = exp(-x) * sum;
+  const char *methods[] = {"random", "lhs", "sobol"};
+  for (int i = 0; i < 3; i++) {
+    bk_study_t *s = study_from(
+        "variables:\n"
+        "  a: {type: exponential, rate: 2}\n"
+        "  b: {type: exponential, rate: 2}\n"
+        "  c: {type: exponential, rate: 2}\n"
+        "  d: {type: exponential, rate: 2}\n"
+        "limit_state: 6 - (a + b + c + d)\n"
+        "analysis: {method: %s, samples: 262144%s}\n",
+        methods[i], i ? ", replicates: 8" : "");
+    bk_result_t r;
+    run(s, &r);
+    expect_inside(&r, exact, methods[i]);
+    bk_result_close(&r);
+    bk_study_free(s);
+  }
+}
+
+/* Coverage of the stated 95% intervals over independent seeds: the exact
+ * Pf should lie inside about 95% of the time. With 200 repetitions the
+ * count of misses is binomial (sd about 3), so accept 88%..99.5%. Source
+ * of the expectation: the nominal level of the Wilson interval (Wilson
+ * 1927) and of the t interval for replicate means (Student 1908). */
+Test(method_mc, intervals_cover_the_exact_value) {
+  const char *methods[] = {"random", "lhs"};
+  for (int m = 0; m < 2; m++) {
+    int covered = 0, reps = 200;
+    for (int seed = 1; seed <= reps; seed++) {
+      bk_study_t *s = study_from(linear_study, seed, methods[m], 4000,
+                                 m ? ", replicates: 10" : "");
+      bk_result_t r;
+      run(s, &r);
+      covered += r.est.ci[0] <= linear_exact() && linear_exact() <= r.est.ci[1];
+      bk_result_close(&r);
+      bk_study_free(s);
+    }
+    double c = (double)covered / reps;
+    cr_expect(c >= 0.88 && c <= 0.995, "%s coverage %.3f", methods[m], c);
+  }
+}
+
+/* target_cov is checked after whole batches: two runs stop at the same
+ * evaluation count with identical estimates. */
+Test(method_mc, target_cov_stops_deterministically) {
+  bk_study_t *s = study_from(linear_study, 3, "random", 5000000,
+                             ", target_cov: 0.05");
+  bk_result_t a, b;
+  run(s, &a);
+  run(s, &b);
+  cr_assert_str_eq(a.stop_reason, "target_cov reached");
+  cr_assert_lt(a.evaluations, 5000000);
+  cr_assert_eq(a.evaluations % 65536, 0);
+  cr_assert_eq(a.evaluations, b.evaluations);
+  cr_assert(a.est.pf == b.est.pf);
+  cr_assert_leq(a.est.cov, 0.05);
+  expect_inside(&a, linear_exact(), "random with target_cov");
+  bk_result_close(&a);
+  bk_result_close(&b);
+  bk_study_free(s);
+}
+
+Test(method_mc, replicates_stop_on_target_cov) {
+  bk_study_t *s = study_from(linear_study, 3, "sobol", 65536 * 16,
+                             ", replicates: 16, target_cov: 0.05");
+  bk_result_t r;
+  run(s, &r);
+  cr_assert_str_eq(r.stop_reason, "target_cov reached");
+  cr_assert_lt(r.replicates, 16);
+  cr_assert_geq(r.replicates, 2);
+  cr_assert_eq(r.evaluations, (uint64_t)r.replicates * 65536);
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+Test(method_mc, same_seed_same_numbers_other_seed_other_numbers) {
+  bk_study_t *a = study_from(linear_study, 8, "lhs", 8000, ", replicates: 4");
+  bk_study_t *b = study_from(linear_study, 9, "lhs", 8000, ", replicates: 4");
+  bk_result_t ra, rb, ra2;
+  run(a, &ra);
+  run(a, &ra2);
+  run(b, &rb);
+  for (int i = 0; i < 4; i++)
+    cr_assert(ra.replicate_pf[i] == ra2.replicate_pf[i]);
+  cr_assert(ra.est.pf != rb.est.pf || ra.replicate_pf[0] != rb.replicate_pf[0]);
+  bk_result_close(&ra);
+  bk_result_close(&ra2);
+  bk_result_close(&rb);
+  bk_study_free(a);
+  bk_study_free(b);
+}
+
+/* A limit state that is NaN for some inputs: those evaluations are model
+ * errors, left out, and pf_bounds brackets the estimate. */
+Test(method_mc, not_a_number_is_excluded_with_bounds) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  x: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: sqrt(x + 2) - 1.2\n"
+                             "analysis: {samples: 100000}\n");
+  bk_result_t r;
+  run(s, &r);
+  /* P(x < -2) = Phi(-2) = 0.02275 (Abramowitz & Stegun Table 26.1). */
+  cr_assert_gt(r.model_errors, 1800);
+  cr_assert_lt(r.model_errors, 2800);
+  cr_assert_eq(r.excluded, r.model_errors);
+  cr_assert_eq(r.est.n, 100000 - r.model_errors);
+  cr_assert_leq(r.pf_bounds[0], r.est.pf);
+  cr_assert_geq(r.pf_bounds[1], r.est.pf);
+  bk_result_close(&r);
+  bk_study_free(s);
+}

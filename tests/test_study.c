@@ -1,0 +1,360 @@
+/*
+ * Tests of the study loader: a valid study loads with the right values,
+ * and every kind of mistake is reported with file:line:col and a message
+ * saying what is expected.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include <criterion/criterion.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "study.h"
+
+static char dir[256];
+static char path[512];
+
+static void setup(void) {
+  snprintf(dir, sizeof dir, "/tmp/bk-test-study-XXXXXX");
+  cr_assert(mkdtemp(dir));
+  snprintf(path, sizeof path, "%s/study.yaml", dir);
+}
+
+static void teardown(void) {
+  char cmd[600];
+  snprintf(cmd, sizeof cmd, "rm -rf '%s'", dir);
+  cr_assert_eq(system(cmd), 0);
+}
+
+TestSuite(study, .init = setup, .fini = teardown);
+
+static void write_file(const char *name, const char *text) {
+  char p[600];
+  snprintf(p, sizeof p, "%s/%s", dir, name);
+  FILE *f = fopen(p, "w");
+  cr_assert(f);
+  fputs(text, f);
+  fclose(f);
+}
+
+static int load(const char *yaml, bk_study_t **s, bk_error_t *err) {
+  write_file("study.yaml", yaml);
+  bk_error_clear(err);
+  return bk_study_load(path, s, err);
+}
+
+/* Loads a study that must fail and checks line, column and message. */
+static void expect_error(const char *yaml, int line, int col,
+                         const char *msg) {
+  bk_study_t *s = (bk_study_t *)1;
+  bk_error_t err;
+  int rc = load(yaml, &s, &err);
+  cr_assert_neq(rc, 0, "study loaded but should fail with: %s", msg);
+  cr_assert_null(s);
+  cr_assert_str_eq(err.path, path);
+  cr_expect_eq(err.line, line, "line %d, want %d (%s)", err.line, line,
+               err.msg);
+  cr_expect_eq(err.col, col, "col %d, want %d (%s)", err.col, col, err.msg);
+  cr_expect_str_eq(err.msg, msg);
+}
+
+/* Like expect_error, but the message need only contain `part` (for texts
+ * composed by the distribution and transformation modules). */
+static void expect_error_part(const char *yaml, int line, int col,
+                              const char *part) {
+  bk_study_t *s = (bk_study_t *)1;
+  bk_error_t err;
+  int rc = load(yaml, &s, &err);
+  cr_assert_neq(rc, 0, "study loaded but should fail with: %s", part);
+  cr_expect_eq(err.line, line, "line %d, want %d (%s)", err.line, line,
+               err.msg);
+  cr_expect_eq(err.col, col, "col %d, want %d (%s)", err.col, col, err.msg);
+  cr_expect(strstr(err.msg, part), "message '%s' lacks '%s'", err.msg, part);
+}
+
+#define HEAD                                                                   \
+  "name: bracket\n"                                                            \
+  "seed: 42\n"
+
+Test(study, valid_study_loads) {
+  bk_study_t *s;
+  bk_error_t err;
+  int rc = load(HEAD "variables:\n"
+                     "  load: {type: gumbel, mean: 12.5, cov: 0.2}\n"
+                     "  res:  {type: lognormal, mean: 30, cov: 7.0E-02}\n"
+                     "  k:    {type: constant, value: 1.2}\n"
+                     "  w: 3e0\n"
+                     "correlations:\n"
+                     "  - [load, res, 0.25]\n"
+                     "limit_state: \"res - k*load*w/3\"\n"
+                     "analysis: {method: sobol, samples: 4096, replicates: 4,"
+                     " target_cov: 0.1}\n",
+                &s, &err);
+  cr_assert_eq(rc, 0, "%s:%d:%d: %s", err.path, err.line, err.col, err.msg);
+  cr_assert_str_eq(s->name, "bracket");
+  cr_assert_eq(s->seed, 42);
+  cr_assert_eq(s->nvars, 4);
+  cr_assert_eq(s->vars[0].dist.kind, BK_DIST_GUMBEL);
+  cr_assert_float_eq(s->vars[0].dist.mean, 12.5, 1e-12);
+  cr_assert_float_eq(s->vars[0].dist.sd, 2.5, 1e-12);
+  cr_assert_float_eq(s->vars[1].dist.sd, 30 * 0.07, 1e-12);
+  cr_assert_eq(s->vars[3].dist.kind, BK_DIST_CONSTANT);
+  cr_assert_eq(bk_transform_nu(s->transform), 2);
+  cr_assert_eq(s->ncorr, 1);
+  cr_assert_eq(s->analysis.method, BK_METHOD_SOBOL);
+  cr_assert_eq(s->analysis.samples, 4096);
+  cr_assert_eq(s->analysis.replicates, 4);
+  cr_assert_float_eq(s->analysis.target_cov, 0.1, 1e-15);
+  char folder[600];
+  snprintf(folder, sizeof folder, "%s/runs/bracket", dir);
+  cr_assert_str_eq(s->run.folder, folder);
+  double x[4] = {12, 30, 1.2, 3};
+  cr_assert_float_eq(bk_expr_eval(s->g, x), 30 - 1.2 * 12, 1e-12);
+  bk_study_free(s);
+}
+
+Test(study, fingerprint_ignores_run_settings_but_not_the_model) {
+  bk_study_t *a, *b, *c;
+  bk_error_t err;
+  const char *base = HEAD "variables: {x: {type: normal, mean: 1, sd: 2}}\n"
+                          "limit_state: 3 - x\n"
+                          "analysis: {samples: 100}\n";
+  cr_assert_eq(load(base, &a, &err), 0);
+  cr_assert_eq(load(HEAD "variables: {x: {type: normal, mean: 1, sd: 2}}\n"
+                         "limit_state: 3 - x\n"
+                         "analysis: {samples: 100, target_cov: 0.5}\n"
+                         "run: {slots: 3}\n",
+                    &b, &err),
+               0);
+  cr_assert_eq(load(HEAD "variables: {x: {type: normal, mean: 1, sd: 2.5}}\n"
+                         "limit_state: 3 - x\n"
+                         "analysis: {samples: 100}\n",
+                    &c, &err),
+               0);
+  cr_assert_str_eq(a->digest_study, b->digest_study);
+  cr_assert_str_neq(a->digest_study, c->digest_study);
+  bk_study_free(a);
+  bk_study_free(b);
+  bk_study_free(c);
+}
+
+Test(study, malformed_yaml) {
+  expect_error(HEAD "variables:\n  x: {type: normal, mean: 1\n", 4, 1,
+               "malformed YAML: did not find expected ',' or '}' while "
+               "parsing a flow mapping");
+}
+
+Test(study, unknown_top_level_key) {
+  expect_error(HEAD "variabels: {}\n", 3, 1,
+               "unknown key 'variabels' in the study file; expected one of: "
+               "name, seed, variables, correlations, model, limit_state, "
+               "analysis, run");
+}
+
+Test(study, duplicated_key) {
+  expect_error(HEAD "variables:\n"
+                    "  x: {type: normal, mean: 1, sd: 1}\n"
+                    "  x: {type: normal, mean: 2, sd: 1}\n"
+                    "limit_state: x\n",
+               5, 3,
+               "duplicate key 'x' in variables (first given on line 4)");
+}
+
+Test(study, wrong_type_for_number) {
+  expect_error(HEAD "variables:\n"
+                    "  x: {type: normal, mean: heavy, sd: 1}\n"
+                    "limit_state: x\n",
+               4, 27, "mean of variable 'x' must be a number, got 'heavy'");
+}
+
+Test(study, wrong_type_for_mapping) {
+  expect_error(HEAD "variables: [x, y]\n", 3, 12,
+               "variables must be a mapping (name: value lines), got a list");
+}
+
+Test(study, unknown_distribution) {
+  expect_error_part(HEAD "variables:\n"
+                         "  x: {type: gauss, mean: 1, sd: 1}\n"
+                         "limit_state: x\n",
+                    4, 13,
+                    "unknown distribution type 'gauss'; expected one of "
+                    "normal, lognormal,");
+}
+
+Test(study, unknown_parameter) {
+  expect_error_part(HEAD "variables:\n"
+                         "  x: {type: normal, mean: 1, stdev: 1}\n"
+                         "limit_state: x\n",
+                    4, 31,
+                    "unknown key 'stdev' in variable 'x'; expected one of: "
+                    "type, mean, sd, cov");
+}
+
+Test(study, cov_must_be_positive) {
+  expect_error_part(HEAD "variables:\n"
+                         "  x: {type: lognormal, mean: 10, cov: -0.1}\n"
+                         "limit_state: x\n",
+                    4, 35, "variable 'x' (lognormal): ");
+  bk_study_t *s;
+  bk_error_t err;
+  load(HEAD "variables:\n"
+            "  x: {type: lognormal, mean: 10, cov: -0.1}\n"
+            "limit_state: x\n",
+       &s, &err);
+  cr_expect(strstr(err.msg, "cov"), "%s", err.msg);
+}
+
+Test(study, sd_missing) {
+  expect_error_part(HEAD "variables:\n"
+                         "  x: {type: normal, mean: 10}\n"
+                         "limit_state: x\n",
+                    4, 6, "variable 'x' (normal): ");
+}
+
+Test(study, lower_not_below_upper) {
+  expect_error_part(HEAD "variables:\n"
+                         "  x: {type: uniform, lower: 5, upper: 2}\n"
+                         "limit_state: x\n",
+                    4, -1, "variable 'x' (uniform): ");
+}
+
+Test(study, missing_type) {
+  expect_error_part(HEAD "variables:\n"
+                         "  x: {mean: 10, sd: 1}\n"
+                         "limit_state: x\n",
+                    4, 6, "variable 'x' needs a type: one of normal,");
+}
+
+Test(study, unknown_variable_in_correlation) {
+  expect_error(HEAD "variables:\n"
+                    "  x: {type: normal, mean: 1, sd: 1}\n"
+                    "  y: {type: normal, mean: 1, sd: 1}\n"
+                    "correlations:\n"
+                    "  - [x, z, 0.5]\n"
+                    "limit_state: x - y\n",
+               7, 10, "unknown variable 'z' in a correlation");
+}
+
+Test(study, correlation_out_of_range) {
+  expect_error(HEAD "variables:\n"
+                    "  x: {type: normal, mean: 1, sd: 1}\n"
+                    "  y: {type: normal, mean: 1, sd: 1}\n"
+                    "correlations:\n"
+                    "  - [x, y, 1.5]\n"
+                    "limit_state: x - y\n",
+               7, 13,
+               "correlation of x and y must lie strictly between -1 and 1 "
+               "(got 1.5)");
+}
+
+Test(study, correlation_matrix_not_positive_definite) {
+  expect_error_part(HEAD "variables:\n"
+                         "  a: {type: normal, mean: 1, sd: 1}\n"
+                         "  b: {type: normal, mean: 1, sd: 1}\n"
+                         "  c: {type: normal, mean: 1, sd: 1}\n"
+                         "correlations:\n"
+                         "  - [a, b, 0.9]\n"
+                         "  - [b, c, 0.9]\n"
+                         "  - [a, c, -0.9]\n"
+                         "limit_state: a + b + c\n",
+                    8, 3, "correlations: ");
+  bk_study_t *s;
+  bk_error_t err;
+  load(HEAD "variables:\n"
+            "  a: {type: normal, mean: 1, sd: 1}\n"
+            "  b: {type: normal, mean: 1, sd: 1}\n"
+            "  c: {type: normal, mean: 1, sd: 1}\n"
+            "correlations:\n"
+            "  - [a, b, 0.9]\n"
+            "  - [b, c, 0.9]\n"
+            "  - [a, c, -0.9]\n"
+            "limit_state: a + b + c\n",
+       &s, &err);
+  cr_expect(strstr(err.msg, "positive definite"), "%s", err.msg);
+}
+
+Test(study, unknown_name_in_limit_state) {
+  bk_study_t *s;
+  bk_error_t err;
+  int rc = load(HEAD "variables:\n"
+                     "  capacity: {type: normal, mean: 10, sd: 1}\n"
+                     "  demand: {type: normal, mean: 5, sd: 1}\n"
+                     "limit_state: \"capacity - demnd\"\n",
+                &s, &err);
+  cr_assert_neq(rc, 0);
+  cr_expect_eq(err.line, 6);
+  /* The column of the unknown name inside the quoted scalar. */
+  cr_expect_eq(err.col, 26, "col %d: %s", err.col, err.msg);
+  cr_expect(strncmp(err.msg, "limit_state: unknown name 'demnd'", 33) == 0,
+            "%s", err.msg);
+  cr_expect(strstr(err.msg, "demand"), "suggests the nearest name: %s",
+            err.msg);
+}
+
+Test(study, limit_state_missing) {
+  expect_error(HEAD "variables:\n"
+                    "  x: {type: normal, mean: 1, sd: 1}\n",
+               1, 1,
+               "the study file needs 'limit_state', an expression that is "
+               "<= 0 on failure, e.g. \"r - s\"");
+}
+
+Test(study, samples_or_target_needed) {
+  expect_error(HEAD "variables: {x: {type: normal, mean: 1, sd: 1}}\n"
+                    "limit_state: x\n"
+                    "analysis: {method: random}\n",
+               5, 11,
+               "give analysis.samples (the number of evaluations) or "
+               "analysis.target_cov (stop once the estimate is that "
+               "precise)");
+}
+
+Test(study, lhs_needs_samples_at_least_replicates) {
+  expect_error(HEAD "variables: {x: {type: normal, mean: 1, sd: 1}}\n"
+                    "limit_state: x\n"
+                    "analysis: {method: lhs, samples: 4, replicates: 8}\n",
+               5, 33,
+               "analysis.samples (4) must be at least the number of "
+               "replicates (8)");
+}
+
+Test(study, unknown_method) {
+  expect_error(HEAD "variables: {x: {type: normal, mean: 1, sd: 1}}\n"
+                    "limit_state: x\n"
+                    "analysis: {method: montecarlo, samples: 10}\n",
+               5, 20,
+               "unknown method 'montecarlo'; expected one of random, lhs, "
+               "sobol, form, importance, cross-entropy, subset");
+}
+
+Test(study, empty_file) {
+  expect_error("", 1, 1, "the study file is empty; start from `brink init`");
+}
+
+Test(study, missing_file) {
+  bk_study_t *s;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_neq(bk_study_load("/nonexistent/study.yaml", &s, &err), 0);
+  cr_assert_str_eq(err.msg,
+                   "cannot read the study file: No such file or directory");
+}
+
+Test(study, numbers_are_c_literals) {
+  bk_study_t *s;
+  bk_error_t err;
+  int rc = load(HEAD "variables:\n"
+                     "  e: {type: normal, mean: 7.0E+10, sd: 7e9}\n"
+                     "  f: {type: normal, mean: 1e-3, sd: .5e-4}\n"
+                     "limit_state: e*f\n"
+                     "analysis: {samples: 1e3}\n",
+                &s, &err);
+  cr_assert_eq(rc, 0, "%s", err.msg);
+  cr_assert_float_eq(s->vars[0].dist.mean, 7e10, 1);
+  cr_assert_float_eq(s->vars[1].dist.sd, 5e-5, 1e-18);
+  cr_assert_eq(s->analysis.samples, 1000);
+  bk_study_free(s);
+}
