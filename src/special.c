@@ -308,41 +308,39 @@ double bk_gamma_q(double a, double x) {
   return q;
 }
 
-/* Inverse of P(a, .) by Halley's method on f(x) = P(a, x) - p (or the
- * complement form when p > 1/2), f'(x) = x^(a-1) e^-x / Gamma(a),
- * f''/f' = (a-1)/x - 1, started from the Wilson-Hilferty approximation
- * (A&S 26.4.17) for a > 1 and from the small-x series otherwise (as in
- * Numerical Recipes, 3rd ed., section 6.2.1), with a bracket kept so that a
- * wild step falls back to bisection. */
-double bk_gamma_p_inv(double a, double p) {
-  if (isnan(a) || isnan(p) || a <= 0.0 || p < 0.0 || p > 1.0)
-    return NAN;
-  if (p == 0.0)
-    return 0.0;
-  if (p == 1.0)
-    return INFINITY;
-  double q = 1.0 - p;
+/* Solves P(a, x) = p (tail = 0) or Q(a, x) = p (tail = 1) for x, with the
+ * target first put on the side where it is at most 1/2 so the residual is
+ * formed from the directly computed small one of P and Q. Halley's method
+ * on f, f'(x) = x^(a-1) e^-x / Gamma(a), f''/f' = (a-1)/x - 1, started from
+ * the Wilson-Hilferty approximation (A&S 26.4.17) for a > 1 and from the
+ * small-x series otherwise (as in Numerical Recipes, 3rd ed., section
+ * 6.2.1), with a bracket kept so that a wild step falls back to
+ * bisection. */
+static double gamma_inv(double a, double p, int tail) {
+  if (p > 0.5) {
+    p = 1.0 - p; /* exact */
+    tail = !tail;
+  }
+  double pl = tail ? 1.0 - p : p; /* target of P, for the start only */
   double x;
   if (a > 1.0) {
-    double z = bk_norm_icdf(p);
+    double z = tail ? -bk_norm_icdf(p) : bk_norm_icdf(p);
     double w = 1.0 - 1.0 / (9.0 * a) + z / (3.0 * sqrt(a));
     x = w > 0.0 ? a * w * w * w : 1e-3 * a;
-    if (x <= 0.0)
-      x = 1e-3;
   } else {
     double t = 1.0 - a * (0.253 + a * 0.12);
-    if (p < t)
-      x = pow(p / t, 1.0 / a);
+    if (pl < t)
+      x = pow(pl / t, 1.0 / a);
     else
-      x = 1.0 - log1p(-(p - t) / (1.0 - t));
+      x = 1.0 - log(tail ? p / (1.0 - t) : (1.0 - pl) / (1.0 - t));
   }
   double lo = 0.0, hi = INFINITY;
-  for (int it = 0; it < 200; it++) {
-    if (!(x > 0.0))
-      x = lo > 0.0 ? lo : DBL_MIN;
+  for (int it = 0; it < 300; it++) {
+    if (!(x > 0.0) || !isfinite(x))
+      x = isinf(hi) ? fmax(2.0 * lo, 1.0) : 0.5 * (lo + hi);
     double pp, qq;
     gamma_pq(a, x, &pp, &qq);
-    double f = p <= 0.5 ? pp - p : q - qq;
+    double f = tail ? p - qq : pp - p; /* increasing in x */
     if (f == 0.0)
       return x;
     if (f < 0.0)
@@ -359,15 +357,41 @@ double bk_gamma_p_inv(double a, double p) {
         return x - dx;
       xn = x - dx;
     }
-    if (!(xn > lo && xn < hi))
-      xn = isinf(hi) ? 2.0 * x + 1.0 : 0.5 * (lo + hi);
-    if (fabs(xn - x) <= 4.0 * EPS * xn)
-      return xn;
+    if (!(xn > lo && xn < hi)) {
+      if (isinf(hi))
+        xn = 2.0 * x + 1.0;
+      else if (lo > 0.0 && hi / lo > 8.0)
+        xn = sqrt(lo * hi);
+      else if (lo == 0.0)
+        xn = 1e-3 * hi;
+      else
+        xn = 0.5 * (lo + hi);
+    }
     if (hi - lo <= 4.0 * EPS * lo)
       return xn;
     x = xn;
   }
   return x;
+}
+
+double bk_gamma_p_inv(double a, double p) {
+  if (isnan(a) || isnan(p) || a <= 0.0 || p < 0.0 || p > 1.0)
+    return NAN;
+  if (p == 0.0)
+    return 0.0;
+  if (p == 1.0)
+    return INFINITY;
+  return gamma_inv(a, p, 0);
+}
+
+double bk_gamma_q_inv(double a, double q) {
+  if (isnan(a) || isnan(q) || a <= 0.0 || q < 0.0 || q > 1.0)
+    return NAN;
+  if (q == 0.0)
+    return INFINITY;
+  if (q == 1.0)
+    return 0.0;
+  return gamma_inv(a, q, 1);
 }
 
 /* ---------------------------------------------------------------------- */

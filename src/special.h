@@ -23,6 +23,8 @@ double bk_gamma_p(double a, double x);
 double bk_gamma_q(double a, double x);
 /* x such that P(a, x) = p. */
 double bk_gamma_p_inv(double a, double p);
+/* x such that Q(a, x) = q, accurate for small q (upper tail). */
+double bk_gamma_q_inv(double a, double q);
 
 /* Regularized incomplete beta I_x(a, b). */
 double bk_beta_inc(double a, double b, double x);
