@@ -19,8 +19,11 @@
 
 #include "alloc.h"
 #include "buf.h"
+#include "dispatch.h"
 #include "error.h"
+#include "exec.h"
 #include "method.h"
+#include "records.h"
 #include "report.h"
 #include "stop.h"
 #include "study.h"
@@ -166,6 +169,15 @@ typedef struct {
   double start;
   double last;
   int shown;
+  /* The latest estimate, from the method's decision points. */
+  double pf;
+  double cov;
+  uint64_t failures;
+  uint64_t planned;
+  uint64_t evaluations;
+  uint64_t errors;
+  /* From the dispatcher, for studies with a model. */
+  const bk_dispatch_stats_t *dst;
 } progress_t;
 
 static double now_seconds(void) {
@@ -194,35 +206,64 @@ static void format_eta(char *b, size_t n, double s) {
     snprintf(b, n, "%.0fh%02.0fm", floor(s / 3600), fmod(s / 60, 60));
 }
 
-static void on_progress(void *data, const bk_result_t *r, uint64_t planned) {
-  progress_t *p = data;
+static void show_progress(progress_t *p, int final) {
   if (p->quiet)
     return;
   double t = now_seconds();
-  int final = r->evaluations >= planned;
   if (!final && t - p->last < (p->tty ? 0.1 : 10.0))
     return;
   p->last = t;
   double el = t - p->start;
-  double rate = el > 0 ? (double)r->evaluations / el : 0;
-  char rb[32], eb[32];
+  uint64_t done = p->evaluations;
+  uint64_t fresh = done;
+  int running = 0;
+  if (p->dst) {
+    uint64_t d2 = p->dst->replayed + p->dst->completed;
+    if (d2 > done)
+      done = d2;
+    fresh = p->dst->completed;
+    running = p->dst->running;
+  }
+  double rate = el > 0 ? (double)fresh / el : 0;
+  char rb[32], eb[32], cov[32], run[32] = "";
   format_rate(rb, sizeof rb, rate);
   format_eta(eb, sizeof eb,
-             rate > 0 ? (double)(planned - r->evaluations) / rate : NAN);
-  char cov[32];
-  if (isfinite(r->est.cov))
-    snprintf(cov, sizeof cov, "%.3f", r->est.cov);
+             rate > 0 && p->planned > done
+                 ? (double)(p->planned - done) / rate
+                 : (p->planned <= done ? 0 : NAN));
+  if (isfinite(p->cov))
+    snprintf(cov, sizeof cov, "%.3f", p->cov);
   else
     snprintf(cov, sizeof cov, "-");
+  if (p->dst)
+    snprintf(run, sizeof run, "  %d running", running);
+  uint64_t errors = p->dst ? p->dst->errors : p->errors;
   fprintf(stderr,
-          "%s%llu/%llu evaluations  %llu failures  %llu errors  Pf %.3e  "
-          "cov %s  %s  ETA %s%s",
-          p->tty ? "\r\033[K" : "", (unsigned long long)r->evaluations,
-          (unsigned long long)planned, (unsigned long long)r->est.failures,
-          (unsigned long long)r->model_errors, r->est.pf, cov, rb, eb,
-          p->tty ? "" : "\n");
+          "%s%llu/%llu done%s  %llu failures  %llu errors  Pf %.3e  cov %s  "
+          "%s  ETA %s%s",
+          p->tty ? "\r\033[K" : "", (unsigned long long)done,
+          (unsigned long long)p->planned, run,
+          (unsigned long long)p->failures, (unsigned long long)errors, p->pf,
+          cov, rb, eb, p->tty ? "" : "\n");
   fflush(stderr);
   p->shown = 1;
+}
+
+static void on_progress(void *data, const bk_result_t *r, uint64_t planned) {
+  progress_t *p = data;
+  p->pf = r->est.pf;
+  p->cov = r->est.cov;
+  p->failures = r->est.failures;
+  p->planned = planned;
+  p->evaluations = r->evaluations;
+  p->errors = r->model_errors;
+  show_progress(p, r->evaluations >= planned);
+}
+
+static void on_tick(void *data, const bk_dispatch_stats_t *st) {
+  progress_t *p = data;
+  p->dst = st;
+  show_progress(p, 0);
 }
 
 /* ---- commands ------------------------------------------------------- */
@@ -233,6 +274,140 @@ static int load_or_exit(const char *path, bk_study_t **s) {
   if (bk_study_load(path, s, &err)) {
     print_error(&err);
     return err.code == BK_ENOMEM ? BK_EXIT_RUNTIME : BK_EXIT_USAGE;
+  }
+  return 0;
+}
+
+static uint64_t planned_evaluations(const bk_study_t *s) {
+  const bk_analysis_t *a = &s->analysis;
+  if (a->method == BK_METHOD_LHS || a->method == BK_METHOD_SOBOL)
+    return (a->samples / a->replicates) * a->replicates;
+  uint64_t n = a->samples ? a->samples : a->max_evaluations;
+  return n < a->max_evaluations ? n : a->max_evaluations;
+}
+
+/* What a run with an external model holds open. */
+typedef struct {
+  bk_records_t *records;
+  bk_exec_t *exec;
+  bk_dispatch_t *dispatch;
+  char *work_dir;
+  char host[256];
+} model_run_t;
+
+static int model_run_close(model_run_t *m, bk_error_t *err) {
+  int rc = 0;
+  bk_dispatch_free(m->dispatch);
+  bk_exec_free(m->exec);
+  if (m->records && (rc = bk_records_close(m->records)) != 0)
+    bk_error_set(err, rc, NULL, 0, 0, "cannot close the records: %s",
+                 bk_strerror(rc));
+  bk_free(m->work_dir);
+  memset(m, 0, sizeof *m);
+  return rc;
+}
+
+/* Opens the records (resuming), the executor and the dispatcher. Returns 0
+ * or an exit code, having printed why. */
+static int model_run_open(const bk_study_t *s, model_run_t *m,
+                          progress_t *pr, int quiet) {
+  bk_error_t err;
+  bk_error_clear(&err);
+  size_t nparts = 3 + s->model.ndecks;
+  bk_fingerprint_part_t *parts = bk_calloc(nparts, sizeof *parts);
+  char **names = bk_calloc(nparts, sizeof *names);
+  if (!parts || !names) {
+    bk_free(parts);
+    bk_free(names);
+    fprintf(stderr, "brink: out of memory\n");
+    return BK_EXIT_RUNTIME;
+  }
+  parts[0] = (bk_fingerprint_part_t){"study", s->digest_study};
+  parts[1] = (bk_fingerprint_part_t){"model", s->digest_model};
+  parts[2] = (bk_fingerprint_part_t){"tool", "brink-" BK_VERSION};
+  for (size_t i = 0; i < s->model.ndecks; i++) {
+    bk_buf_t b;
+    bk_buf_init(&b);
+    bk_buf_printf(&b, "template:%s", s->model.decks[i].template_name);
+    names[3 + i] = b.data;
+    parts[3 + i] = (bk_fingerprint_part_t){b.data, s->model.decks[i].digest};
+  }
+  const char **ynames = bk_calloc(s->model.noutputs + 1, sizeof *ynames);
+  for (size_t i = 0; ynames && i < s->model.noutputs; i++)
+    ynames[i] = s->model.outputs[i].name;
+  bk_buf_t lp;
+  bk_buf_init(&lp);
+  bk_buf_printf(&lp, "%s/records.log", s->run.folder);
+  bk_records_opts_t ro = {
+      .path = lp.data,
+      .tool = "brink " BK_VERSION,
+      .nparts = nparts,
+      .parts = parts,
+      .nx = s->nvars,
+      .xnames = (const char *const *)s->var_names,
+      .ny = s->model.noutputs,
+      .ynames = ynames,
+  };
+  int rc = bk_records_open(&m->records, &ro, &err);
+  for (size_t i = 3; i < nparts; i++)
+    bk_free(names[i]);
+  bk_free(names);
+  bk_free(parts);
+  bk_free(ynames);
+  if (rc) {
+    print_error(&err);
+    bk_buf_close(&lp);
+    return rc == BK_EMISMATCH ? BK_EXIT_USAGE : BK_EXIT_RUNTIME;
+  }
+  size_t dropped = bk_records_dropped(m->records);
+  if (dropped)
+    fprintf(stderr,
+            "brink: warning: dropped a torn last line (%zu bytes) from %s, "
+            "left by an interrupted write; that evaluation will run again\n",
+            dropped, lp.data);
+  size_t count = bk_records_count(m->records);
+  if (count && !quiet)
+    fprintf(stderr, "brink: resuming: %zu evaluations already recorded in "
+                    "%s\n",
+            count, lp.data);
+  bk_buf_close(&lp);
+  bk_buf_t wd;
+  bk_buf_init(&wd);
+  if (s->run.scratch[0])
+    bk_buf_printf(&wd, "%s/brink-%s-%ld", s->run.scratch, s->name,
+                  (long)getpid());
+  else
+    bk_buf_printf(&wd, "%s/work", s->run.folder);
+  m->work_dir = wd.data;
+  int mrc = make_dirs(m->work_dir);
+  if (mrc) {
+    fprintf(stderr, "brink: cannot create %s: %s\n", m->work_dir,
+            bk_strerror(mrc));
+    model_run_close(m, &err);
+    return BK_EXIT_RUNTIME;
+  }
+  if (gethostname(m->host, sizeof m->host) != 0)
+    snprintf(m->host, sizeof m->host, "localhost");
+  m->host[sizeof m->host - 1] = '\0';
+  if ((rc = bk_exec_local_new(&m->exec, s->run.slots)) != 0) {
+    fprintf(stderr, "brink: cannot start the executor: %s\n",
+            bk_strerror(rc));
+    model_run_close(m, &err);
+    return BK_EXIT_RUNTIME;
+  }
+  bk_dispatch_opts_t dop = {
+      .study = s,
+      .records = m->records,
+      .exec = m->exec,
+      .work_dir = m->work_dir,
+      .host = m->host,
+      .tick = on_tick,
+      .tick_data = pr,
+  };
+  if ((rc = bk_dispatch_new(&m->dispatch, &dop)) != 0) {
+    fprintf(stderr, "brink: out of memory\n");
+    model_run_close(m, &err);
+    return BK_EXIT_RUNTIME;
   }
   return 0;
 }
@@ -261,13 +436,6 @@ static int cmd_run(int argc, char **argv) {
   int rc = load_or_exit(path, &s);
   if (rc)
     return rc;
-  if (s->model.present) {
-    fprintf(stderr, "brink: %s: studies with a model section are not "
-                    "supported by this version yet\n",
-            path);
-    bk_study_free(s);
-    return BK_EXIT_USAGE;
-  }
   bk_error_t err;
   bk_error_clear(&err);
   int mrc = make_dirs(s->run.folder);
@@ -277,11 +445,29 @@ static int cmd_run(int argc, char **argv) {
     bk_study_free(s);
     return BK_EXIT_RUNTIME;
   }
-  bk_stop_install();
-  progress_t pr = {isatty(2), quiet, now_seconds(), 0, 0};
+  progress_t pr;
+  memset(&pr, 0, sizeof pr);
+  pr.tty = isatty(2);
+  pr.quiet = quiet;
+  pr.start = now_seconds();
+  pr.planned = planned_evaluations(s);
+  pr.pf = NAN;
+  pr.cov = NAN;
   bk_method_opts_t opts = {on_progress, &pr};
   bk_evaluator_t ev;
-  bk_evaluator_inprocess(&ev, s);
+  model_run_t mr;
+  memset(&mr, 0, sizeof mr);
+  if (s->model.present) {
+    rc = model_run_open(s, &mr, &pr, quiet);
+    if (rc) {
+      bk_study_free(s);
+      return rc;
+    }
+    bk_dispatch_evaluator(mr.dispatch, &ev);
+  } else {
+    bk_evaluator_inprocess(&ev, s);
+  }
+  bk_stop_install();
   bk_result_t res;
   double t0 = now_seconds();
   rc = bk_method_run(s, &ev, &opts, &res, &err);
@@ -289,11 +475,29 @@ static int cmd_run(int argc, char **argv) {
   if (pr.shown && pr.tty)
     fputc('\n', stderr);
   int exit_code = BK_EXIT_DONE;
+  uint64_t recorded = mr.records ? bk_records_count(mr.records) : 0;
+  int crc = model_run_close(&mr, &err);
+  if (rc == 0 && crc)
+    rc = crc;
   if (rc == BK_ESTOPPED) {
+    if (s->model.present)
+      fprintf(stderr,
+              "brink: stopped; %llu evaluations are recorded in %s/records.log."
+              " Run `brink run %s` again to resume\n",
+              (unsigned long long)recorded, s->run.folder, path);
+    else
+      fprintf(stderr,
+              "brink: stopped after %llu evaluations; run `brink run %s` "
+              "again to resume\n",
+              (unsigned long long)res.evaluations, path);
+    exit_code = BK_EXIT_STOPPED;
+  } else if (rc == BK_ENOSPACE || rc == -ENOSPC || rc == BK_EIO ||
+             rc == -EIO) {
+    print_error(&err);
     fprintf(stderr,
-            "brink: stopped after %llu evaluations; run `brink run %s` again "
-            "to resume\n",
-            (unsigned long long)res.evaluations, path);
+            "brink: stopped; the records written so far are intact. Free "
+            "space and run `brink run %s` again to resume\n",
+            path);
     exit_code = BK_EXIT_STOPPED;
   } else if (rc) {
     print_error(&err);
@@ -307,7 +511,7 @@ static int cmd_run(int argc, char **argv) {
     if (write_atomic(s->run.folder, "report.json", &json, &err) ||
         write_atomic(s->run.folder, "report.txt", &text, &err)) {
       print_error(&err);
-      exit_code = BK_EXIT_RUNTIME;
+      exit_code = BK_EXIT_STOPPED;
     } else if (!quiet) {
       fputs(text.data, stdout);
       printf("\nReport written to %s/report.txt and report.json\n",
