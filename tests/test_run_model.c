@@ -1,0 +1,394 @@
+/*
+ * Integration tests of studies that run an external program: the test
+ * model (tests/helpers/model.c) wrapped through templates, extraction and
+ * the local executor; every fault kind classified and recorded; the error
+ * limit; resume after kill -9 giving the same records as an uninterrupted
+ * run; a changed study refused; a torn last line dropped; a second brink
+ * refused; Ctrl-C leaving no model process behind.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include <criterion/criterion.h>
+#include <dirent.h>
+#include <errno.h>
+#include <math.h>
+#include <signal.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <sys/wait.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "special.h"
+
+static char dir[256];
+
+static void setup(void) {
+  snprintf(dir, sizeof dir, "/tmp/bk-test-runmodel-XXXXXX");
+  cr_assert(mkdtemp(dir));
+}
+
+static void teardown(void) {
+  char cmd[600];
+  snprintf(cmd, sizeof cmd, "rm -rf '%s'", dir);
+  cr_assert_eq(system(cmd), 0);
+}
+
+TestSuite(run_model, .init = setup, .fini = teardown, .timeout = 300);
+
+static const char *env(const char *name) {
+  const char *v = getenv(name);
+  cr_assert(v, "%s must be set", name);
+  return v;
+}
+
+static void write_file(const char *name, const char *fmt, ...) {
+  char p[600];
+  snprintf(p, sizeof p, "%s/%s", dir, name);
+  FILE *f = fopen(p, "w");
+  cr_assert(f, "%s", p);
+  va_list ap;
+  va_start(ap, fmt);
+  vfprintf(f, fmt, ap);
+  va_end(ap);
+  fclose(f);
+}
+
+static char *read_file(const char *name) {
+  char p[600];
+  snprintf(p, sizeof p, "%s/%s", dir, name);
+  FILE *f = fopen(p, "r");
+  if (!f)
+    return NULL;
+  size_t cap = 1 << 20, n = 0;
+  char *buf = malloc(cap);
+  size_t r;
+  while ((r = fread(buf + n, 1, cap - n - 1, f)) > 0) {
+    n += r;
+    if (n + 1 >= cap)
+      buf = realloc(buf, cap *= 2);
+  }
+  buf[n] = '\0';
+  fclose(f);
+  return buf;
+}
+
+static int exists(const char *name) {
+  char p[600];
+  struct stat st;
+  snprintf(p, sizeof p, "%s/%s", dir, name);
+  return stat(p, &st) == 0;
+}
+
+static int brink(const char *args) {
+  char cmd[2048];
+  snprintf(cmd, sizeof cmd,
+           "cd '%s' && '%s' %s >out.txt 2>err.txt </dev/null", dir,
+           env("BRINK_EXE"), args);
+  int st = system(cmd);
+  cr_assert(WIFEXITED(st));
+  return WEXITSTATUS(st);
+}
+
+static pid_t brink_background(const char *args) {
+  char cmd[2048];
+  snprintf(cmd, sizeof cmd,
+           "cd '%s' && exec '%s' %s >>bg-out.txt 2>>bg-err.txt </dev/null",
+           dir, env("BRINK_EXE"), args);
+  pid_t pid = fork();
+  cr_assert_geq(pid, 0);
+  if (pid == 0) {
+    execl("/bin/sh", "sh", "-c", cmd, (char *)NULL);
+    _exit(127);
+  }
+  return pid;
+}
+
+/* A study of two standard normal inputs: g = beta - (a + b)/sqrt(2), so
+ * Pf = Phi(-beta) exactly (Cornell 1969, linear limit state in normals). */
+static void write_study(const char *name, const char *folder,
+                        const char *method, int samples, const char *mode,
+                        const char *extra_model) {
+  write_file("deck.txt", "# evaluation {{ _key }}\n"
+                         "x1 = {{ a : %%.17g }}\n"
+                         "x2 = {{ b : %%.17g }}\n"
+                         "beta = 1.5\n");
+  write_file(name,
+             "name: %s\n"
+             "seed: 77\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "  b: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  files: [{template: deck.txt, to: in.txt}]\n"
+             "  command: ['%s', in.txt]\n"
+             "  env: {BK_MODEL_MODE: '%s'}\n"
+             "  timeout: 5\n"
+             "  outputs:\n"
+             "    g: {file: out.txt, pattern: 'result: g = (\\S+)'}\n"
+             "%s"
+             "limit_state: g\n"
+             "analysis: {method: %s, samples: %d%s}\n"
+             "run: {folder: %s, slots: 2}\n",
+             folder, env("BRINK_TEST_MODEL"), mode, extra_model, method,
+             samples, strcmp(method, "random") ? ", replicates: 4" : "",
+             folder);
+}
+
+/* The records of a log as comparable text: every line without '#', with
+ * the columns that do not depend on timing or place (seconds, host, note,
+ * checksum) removed, sorted by key. */
+static char *canonical_records(const char *folder) {
+  char cmd[1024];
+  snprintf(cmd, sizeof cmd,
+           "cd '%s' && grep -v '^#' %s/records.log | tail -n +2 | "
+           "awk -F'\\t' '{ s = $1 \"\\t\" $2 \"\\t\" $3; "
+           "for (i = 6; i <= NF - 2; i++) s = s \"\\t\" $i; print s }' | "
+           "LC_ALL=C sort > %s.canon",
+           dir, folder, folder);
+  cr_assert_eq(system(cmd), 0);
+  char name[300];
+  snprintf(name, sizeof name, "%s.canon", folder);
+  return read_file(name);
+}
+
+static int count_lines(const char *s) {
+  int n = 0;
+  for (; *s; s++)
+    n += *s == '\n';
+  return n;
+}
+
+Test(run_model, wraps_the_model_and_estimates_the_exact_pf) {
+  write_study("s.yaml", "ok", "random", 600, "ok", "");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *canon = canonical_records("ok");
+  cr_assert_eq(count_lines(canon), 600);
+  free(canon);
+  /* Python's json module reads the summary; Phi(-1.5) = 0.0668072
+   * (Abramowitz & Stegun Table 26.1) lies inside the Wilson interval. */
+  char cmd[1024];
+  snprintf(cmd, sizeof cmd,
+           "/usr/bin/python3 -c \"import json,sys\n"
+           "d=json.load(open(sys.argv[1]))\n"
+           "assert d['evaluations']==600 and d['model_errors']==0, d\n"
+           "assert d['ci'][0] <= %.10f <= d['ci'][1], d['ci']\n"
+           "\" '%s/ok/report.json'",
+           bk_norm_cdf(-1.5), dir);
+  cr_assert_eq(system(cmd), 0);
+  /* keep: failed (the default) keeps exactly the folders of failures. */
+  char *json = read_file("ok/report.json");
+  char *p = strstr(json, "\"failures\": ");
+  cr_assert(p);
+  int failures = atoi(p + 12);
+  free(json);
+  int kept = 0;
+  char wd[600];
+  snprintf(wd, sizeof wd, "%s/ok/work", dir);
+  DIR *d = opendir(wd);
+  cr_assert(d);
+  struct dirent *e;
+  while ((e = readdir(d)))
+    kept += e->d_name[0] != '.';
+  closedir(d);
+  cr_assert_eq(kept, failures);
+}
+
+/* Each misbehaviour ends as its own fault kind in the records, and the
+ * error limit stops the study with exit 1 and a message. */
+Test(run_model, every_fault_kind_is_classified) {
+  struct {
+    const char *mode;
+    const char *status;
+    const char *extra;
+  } cases[] = {
+      {"exit 3", "exit-code", ""},
+      {"crash", "signal", ""},
+      {"garbage", "not-a-number", ""},
+      {"partial", "no-match", ""},
+      {"hang", "timeout", "  retries: 0\n"},
+  };
+  for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+    char folder[32], name[40];
+    snprintf(folder, sizeof folder, "f%zu", i);
+    snprintf(name, sizeof name, "f%zu.yaml", i);
+    write_study(name, folder, "random", 2, cases[i].mode, cases[i].extra);
+    if (strcmp(cases[i].mode, "hang") == 0) {
+      /* A short timeout keeps the test quick. */
+      char *t = read_file(name);
+      char *at = strstr(t, "timeout: 5");
+      cr_assert(at);
+      at[9] = '1';
+      write_file(name, "%s", t);
+      free(t);
+    }
+    int rc = brink(name);
+    cr_assert_eq(rc, 1, "%s: exit %d: %s", cases[i].mode, rc,
+                 read_file("err.txt"));
+    char log[64];
+    snprintf(log, sizeof log, "%s/records.log", folder);
+    char *text = read_file(log);
+    char want[64];
+    snprintf(want, sizeof want, "\t%s\t", cases[i].status);
+    cr_assert(strstr(text, want), "%s: no '%s' in\n%s", cases[i].mode,
+              cases[i].status, text);
+    free(text);
+    cr_assert(strstr(read_file("err.txt"), "model runs failed"),
+              "%s", read_file("err.txt"));
+  }
+}
+
+Test(run_model, missing_program_and_missing_output_file) {
+  write_study("s.yaml", "sp", "random", 2, "ok", "");
+  char *t = read_file("s.yaml");
+  char *at = strstr(t, env("BRINK_TEST_MODEL"));
+  cr_assert(at);
+  char *fixed = malloc(strlen(t) + 64);
+  snprintf(fixed, strlen(t) + 64, "%.*s/nonexistent/solver%s",
+           (int)(at - t), t, at + strlen(env("BRINK_TEST_MODEL")));
+  write_file("s.yaml", "%s", fixed);
+  cr_assert_eq(brink("s.yaml"), 2, "a bad argument is a usage error");
+  cr_assert_eq(brink("run s.yaml"), 1);
+  char *log = read_file("sp/records.log");
+  cr_assert(strstr(log, "\tspawn-failed\t"), "%s", log);
+  free(log);
+  free(t);
+  free(fixed);
+  write_study("n.yaml", "no", "random", 2, "ok", "");
+  t = read_file("n.yaml");
+  at = strstr(t, "file: out.txt");
+  cr_assert(at);
+  memcpy(at, "file: zz.txt ", 13);
+  write_file("n.yaml", "%s", t);
+  free(t);
+  cr_assert_eq(brink("run n.yaml"), 1);
+  log = read_file("no/records.log");
+  cr_assert(strstr(log, "\tno-output-file\t"), "%s", log);
+  free(log);
+}
+
+Test(run_model, flaky_model_succeeds_on_retry) {
+  write_study("s.yaml", "fl", "random", 4, "flaky 1", "  retries: 1\n");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *log = read_file("fl/records.log");
+  cr_assert(strstr(log, "\tok\t2\t"), "attempts recorded as 2: %s", log);
+  free(log);
+}
+
+/* kill -9 at random moments, then resume: the records equal those of an
+ * uninterrupted run, key for key (DESIGN.md section 4, "Evaluation key"). */
+Test(run_model, resume_after_kill_9_gives_identical_records) {
+  write_study("ref.yaml", "ref", "lhs", 120, "slow 0.02", "");
+  cr_assert_eq(brink("run ref.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *want = canonical_records("ref");
+  cr_assert_eq(count_lines(want), 120);
+  write_study("k.yaml", "k", "lhs", 120, "slow 0.02", "");
+  unsigned seed = 12345;
+  for (int round = 0; round < 4; round++) {
+    pid_t pid = brink_background("run k.yaml --quiet");
+    seed = seed * 1103515245u + 12345u;
+    usleep(150000 + (seed >> 8) % 400000);
+    kill(pid, SIGKILL);
+    int st;
+    waitpid(pid, &st, 0);
+    /* Model processes of the killed brink die with their parent's loss?
+     * No: they finish on their own in a moment; wait for them. */
+    usleep(100000);
+  }
+  int rc = brink("run k.yaml --quiet");
+  cr_assert_eq(rc, 0, "%s", read_file("err.txt"));
+  char *got = canonical_records("k");
+  cr_assert_str_eq(got, want);
+  /* And the report's numbers are the same. */
+  char *a = read_file("ref/report.json"), *b = read_file("k/report.json");
+  char *pa = strstr(a, "\"pf\""), *pb = strstr(b, "\"pf\"");
+  cr_assert(pa && pb);
+  cr_assert_eq(strncmp(pa, pb, strstr(pa, "\"evaluations\"") - pa), 0);
+  free(a);
+  free(b);
+  free(want);
+  free(got);
+}
+
+Test(run_model, changed_study_is_refused_naming_what_changed) {
+  write_study("s.yaml", "ch", "random", 4, "ok", "");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  write_file("deck.txt", "x1 = {{ a }}\nx2 = {{ b }}\nbeta = 1.6\n");
+  cr_assert_eq(brink("run s.yaml"), 2);
+  char *err = read_file("err.txt");
+  cr_assert(strstr(err, "template"), "%s", err);
+  cr_assert(strstr(err, "deck.txt"), "%s", err);
+}
+
+Test(run_model, torn_last_line_is_dropped_with_a_warning) {
+  write_study("s.yaml", "torn", "random", 6, "ok", "");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *want = canonical_records("torn");
+  /* Cut the last line in half, as a power loss would. */
+  char *log = read_file("torn/records.log");
+  size_t len = strlen(log);
+  size_t cut = len - 1;
+  while (cut > 0 && log[cut - 1] != '\n')
+    cut--;
+  cut += (len - cut) / 2;
+  char p[600];
+  snprintf(p, sizeof p, "%s/torn/records.log", dir);
+  cr_assert_eq(truncate(p, (off_t)cut), 0);
+  free(log);
+  cr_assert_eq(brink("run s.yaml"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("err.txt"), "dropped a torn last line"),
+            "%s", read_file("err.txt"));
+  char *got = canonical_records("torn");
+  cr_assert_str_eq(got, want);
+  free(want);
+  free(got);
+}
+
+Test(run_model, second_brink_on_the_same_folder_is_refused) {
+  write_study("s.yaml", "lock", "random", 40, "slow 0.2", "");
+  pid_t pid = brink_background("run s.yaml --quiet");
+  for (int i = 0; i < 250 && !exists("lock/records.log.lock"); i++)
+    usleep(20000);
+  cr_assert(exists("lock/records.log.lock"));
+  cr_assert_eq(brink("run s.yaml"), 1);
+  cr_assert(strstr(read_file("err.txt"), "in use"), "%s",
+            read_file("err.txt"));
+  kill(pid, SIGINT);
+  int st;
+  waitpid(pid, &st, 0);
+  cr_assert_eq(WEXITSTATUS(st), 3);
+}
+
+/* Ctrl-C: exit 3, the resume hint, and no model process left running. */
+Test(run_model, interrupt_stops_models_and_exits_3) {
+  write_study("s.yaml", "int", "random", 40, "hang", "");
+  pid_t pid = brink_background("run s.yaml");
+  for (int i = 0; i < 250 && !exists("int/work/mc-1/model.pid"); i++)
+    usleep(20000);
+  cr_assert(exists("int/work/mc-1/model.pid"));
+  char *pidtext = read_file("int/work/mc-1/model.pid");
+  pid_t model = (pid_t)atoi(pidtext);
+  free(pidtext);
+  cr_assert_gt(model, 0);
+  kill(pid, SIGINT);
+  int st;
+  waitpid(pid, &st, 0);
+  cr_assert(WIFEXITED(st));
+  cr_assert_eq(WEXITSTATUS(st), 3, "%s", read_file("bg-err.txt"));
+  cr_assert(strstr(read_file("bg-err.txt"), "again to resume"), "%s",
+            read_file("bg-err.txt"));
+  /* The model's process is gone (or a zombie about to be reaped). */
+  char proc[64];
+  snprintf(proc, sizeof proc, "/proc/%d/stat", (int)model);
+  FILE *f = fopen(proc, "r");
+  if (f) {
+    char buf[512] = "";
+    cr_assert(fgets(buf, sizeof buf, f));
+    fclose(f);
+    char *rp = strrchr(buf, ')');
+    cr_assert(rp && (rp[2] == 'Z' || rp[2] == 'X'), "model still runs: %s",
+              buf);
+  }
+}
