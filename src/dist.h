@@ -82,6 +82,9 @@ int bk_dist_init(bk_dist_t *d, bk_dist_kind_t kind, const bk_dist_spec_t *spec,
 
 double bk_dist_pdf(const bk_dist_t *d, double x);
 double bk_dist_cdf(const bk_dist_t *d, double x);
+/* Survival function 1 - cdf, computed directly (accurate in the upper
+ * tail). */
+double bk_dist_sf(const bk_dist_t *d, double x);
 /* Inverse cdf for 0 < p < 1. */
 double bk_dist_icdf(const bk_dist_t *d, double p);
 /* The median (icdf(0.5)). */

@@ -563,6 +563,28 @@ double bk_beta_inc_inv(double a, double b, double p) {
   return beta_inv(a, b, p, 0);
 }
 
+double bk_gamma_density(double a, double x) {
+  if (isnan(a) || isnan(x) || a <= 0.0)
+    return NAN;
+  if (x < 0.0 || isinf(x))
+    return 0.0;
+  if (x == 0.0)
+    return a < 1.0 ? INFINITY : a == 1.0 ? 1.0 : 0.0;
+  return gamma_prefactor(a, x) / x;
+}
+
+double bk_beta_density(double a, double b, double x, double y) {
+  if (isnan(a) || isnan(b) || isnan(x) || isnan(y) || a <= 0.0 || b <= 0.0)
+    return NAN;
+  if (x < 0.0 || y < 0.0)
+    return 0.0;
+  if (x == 0.0)
+    return a < 1.0 ? INFINITY : a == 1.0 ? b : 0.0;
+  if (y == 0.0)
+    return b < 1.0 ? INFINITY : b == 1.0 ? a : 0.0;
+  return beta_prefactor(a, b, x, y) / (x * y);
+}
+
 /* ---------------------------------------------------------------------- */
 /* Student t                                                               */
 /* ---------------------------------------------------------------------- */

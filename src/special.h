@@ -31,6 +31,12 @@ double bk_beta_inc(double a, double b, double x);
 /* x such that I_x(a, b) = p. */
 double bk_beta_inc_inv(double a, double b, double p);
 
+/* Densities in the same accurate form: x^(a-1) e^-x / Gamma(a), and
+ * x^(a-1) y^(b-1) / B(a, b) with y = 1 - x given by the caller (who may know
+ * it more precisely than 1 - x). */
+double bk_gamma_density(double a, double x);
+double bk_beta_density(double a, double b, double x, double y);
+
 /* Student t distribution with nu degrees of freedom: cdf and quantile. */
 double bk_student_cdf(double t, double nu);
 double bk_student_icdf(double p, double nu);

@@ -17,6 +17,7 @@
 #include <errno.h>
 #include <ftw.h>
 #include <math.h>
+#include <pthread.h>
 #include <signal.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -693,4 +694,69 @@ Test(exec_local, bad_arguments_are_refused) {
   cr_assert_eq(p.calls, 0);
   bk_exec_free(ex);
   bk_exec_free(NULL);
+}
+
+/* A real signal while every model hangs: nothing but the stop poll can
+ * wake the executor. A thread waits until both slots' models have written
+ * their pids, inspects them, then signals this process. */
+typedef struct {
+  const char *dirs[2];
+  pid_t pids[2];
+  int own_group[2]; /* process group id == pid */
+  int own_session[2];
+  char stdin_of[2][64]; /* where fd 0 points */
+} watcher_t;
+
+static void *watch_then_signal(void *arg) {
+  watcher_t *w = arg;
+  for (int i = 0; i < 2; i++) {
+    while ((w->pids[i] = read_pid(w->dirs[i], "model.pid")) == 0)
+      usleep(10000);
+    w->own_group[i] = getpgid(w->pids[i]) == w->pids[i];
+    w->own_session[i] = getsid(w->pids[i]) == w->pids[i];
+    char fd0[64];
+    snprintf(fd0, sizeof fd0, "/proc/%d/fd/0", (int)w->pids[i]);
+    ssize_t n = readlink(fd0, w->stdin_of[i], sizeof w->stdin_of[i] - 1);
+    w->stdin_of[i][n > 0 ? n : 0] = '\0';
+  }
+  kill(getpid(), SIGINT);
+  return NULL;
+}
+
+Test(exec_local, interrupt_signal_stops_hanging_models) {
+  bk_stop_install();
+  enum { NJOBS = 4 };
+  bk_exec_t *ex;
+  cr_assert_eq(bk_exec_local_new(&ex, 2), 0);
+  const char *dirs[NJOBS];
+  probe_t p[NJOBS] = {{0}};
+  char *argv[] = {model(), "mode=hang", NULL};
+  for (int i = 0; i < NJOBS; i++) {
+    char name[16];
+    snprintf(name, sizeof name, "run%d", i);
+    dirs[i] = subdir(name);
+    bk_job_t job = job_in(dirs[i], argv);
+    cr_assert_eq(bk_exec_submit(ex, &job, record, &p[i]), 0);
+  }
+  watcher_t w = {.dirs = {dirs[0], dirs[1]}};
+  pthread_t thread;
+  cr_assert_eq(pthread_create(&thread, NULL, watch_then_signal, &w), 0);
+  cr_assert_eq(bk_exec_wait(ex), BK_ESTOPPED);
+  pthread_join(thread, NULL);
+  cr_assert_eq(bk_stop_signal(), SIGINT);
+  for (int i = 0; i < NJOBS; i++) {
+    cr_assert_eq(p[i].calls, 1);
+    cr_assert_eq(p[i].res.fault, BK_FAULT_INTERRUPTED, "job %d: %s", i,
+                 p[i].res.why);
+  }
+  for (int i = 0; i < 2; i++) {
+    cr_assert(w.own_group[i], "model %d shares a process group", i);
+    cr_assert(w.own_session[i], "model %d shares a session", i);
+    cr_assert_str_eq(w.stdin_of[i], "/dev/null");
+    cr_assert(process_gone(w.pids[i]), "model %d survived", i);
+  }
+  for (int i = 2; i < NJOBS; i++)
+    cr_assert_eq(read_pid(dirs[i], "model.pid"), 0, "job %d started", i);
+  bk_stop_set(0);
+  bk_exec_free(ex);
 }

@@ -397,8 +397,9 @@ Test(run_model, interrupt_stops_models_and_exits_3) {
  * deflection of a cantilever under an end load is P L^3 / (3 E I)
  * (Euler-Bernoulli; Roark's Formulas for Stress and Strain, beam table),
  * and with lognormal P and E it is lognormal, so
- * Pf = P(delta > L/60) = 1 - Phi((ln(3 E... ) ...)) exactly:
- * ln delta = ln P - ln E + ln(L^3 / (3 I)). The deck uses nu = 0, where
+ * Pf = P(delta > L/60) = 1 - Phi((ln(L/60) - mu) / s) exactly, with
+ * ln delta = ln P - ln E + ln(L^3 / (3 I)) normal of mean mu and standard
+ * deviation s. The deck uses nu = 0, where
  * CalculiX's B32R beam matches Euler-Bernoulli within +0.08 % on any mesh
  * (shared/notes/fe-solver-facts.md), a shift of less than 0.01 standard
  * deviations of ln delta. */

@@ -39,6 +39,8 @@
  *   abort             abort(), that is SIGABRT
  *   hang              sleep forever; SIGTERM kills it
  *   hang-ignore-term  sleep forever ignoring SIGTERM; only SIGKILL helps
+ *                     (both hang modes die with their parent process, so
+ *                     a test program killed midway leaves none behind)
  *   garbage           normal run, but g prints as "NaN" and sum as "twelve"
  *   partial           write the first half of the output bytes, exit 0
  *   orphan            fork a child in the same process group that writes
@@ -64,6 +66,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/prctl.h>
 #include <sys/types.h>
 #include <sys/wait.h>
 #include <time.h>
@@ -81,6 +84,7 @@ typedef struct {
 static input_t inputs[MAX_INPUTS];
 static int ninputs;
 static double t_start;
+static pid_t parent_pid;
 
 static void die(int status, const char *fmt, ...) {
   va_list ap;
@@ -312,6 +316,11 @@ static void die_of(int sig) {
 }
 
 static void hang_forever(int ignore_term) {
+  /* A hanging model must not outlive a test program that died without
+   * killing it. */
+  prctl(PR_SET_PDEATHSIG, SIGKILL);
+  if (getppid() != parent_pid)
+    _exit(1);
   if (ignore_term)
     signal(SIGTERM, SIG_IGN);
   fprintf(stderr, "bk-test-model: hanging%s\n",
@@ -367,6 +376,7 @@ static int flaky_should_fail(int n) {
 
 int main(int argc, char **argv) {
   t_start = now();
+  parent_pid = getppid();
   write_pid_file("model.pid", getpid());
 
   for (int i = 1; i < argc; i++) {
