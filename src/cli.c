@@ -328,7 +328,7 @@ static int model_run_open(const bk_study_t *s, model_run_t *m,
   for (size_t i = 0; i < s->model.ndecks; i++) {
     bk_buf_t b;
     bk_buf_init(&b);
-    bk_buf_printf(&b, "template:%s", s->model.decks[i].template_name);
+    bk_buf_printf(&b, "template %s", s->model.decks[i].template_name);
     names[3 + i] = b.data;
     parts[3 + i] = (bk_fingerprint_part_t){b.data, s->model.decks[i].digest};
   }

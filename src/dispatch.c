@@ -477,6 +477,8 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
     pending++;
   }
   int wrc = bk_exec_wait(d->o.exec);
+  /* A batch boundary is a natural point to put the records on disk. */
+  bk_records_sync(d->o.records);
   if (d->fatal) {
     *err = d->fatal_err;
     if (!err->code)
