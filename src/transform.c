@@ -634,6 +634,11 @@ static double toward_zero_3(double v) {
   return v > 0 ? floor(v * 1000) / 1000 : ceil(v * 1000) / 1000;
 }
 
+/* "an" before a vowel sound: of the marginal names only "exponential". */
+static const char *article(const char *name) {
+  return name[0] && strchr("aeio", name[0]) ? "an" : "a";
+}
+
 /* Allocates count * size bytes (or nothing when count is 0). */
 static int alloc_array(void **out, size_t count, size_t size) {
   *out = NULL;
@@ -680,8 +685,7 @@ int bk_transform_new(bk_transform_t **out, size_t n, const bk_dist_t *dists,
       goto fail;
     }
     if (!(fabs(c->rho) < 1)) {
-      set_why(why, whycap, "correlation %g must lie strictly between -1 and 1",
-              c->rho);
+      set_why(why, whycap, "%g must lie strictly between -1 and 1", c->rho);
       goto fail;
     }
     for (int s = 0; s < 2; s++) {
@@ -774,20 +778,15 @@ int bk_transform_new(bk_transform_t **out, size_t n, const bk_dist_t *dists,
     double r0 = bk_nataf_rho0(da, db, c->rho);
     if (isnan(r0)) {
       double lo, hi;
+      const char *na = bk_dist_name(da->kind), *nb = bk_dist_name(db->kind);
       bad = (int)i;
       bk_nataf_range(da, db, &lo, &hi);
-      if (c->rho > 0)
-        set_why(why, whycap,
-                "correlation %g cannot be reached by a %s and a %s marginal "
-                "(largest reachable about %g)",
-                c->rho, bk_dist_name(da->kind), bk_dist_name(db->kind),
-                toward_zero_3(hi));
-      else
-        set_why(why, whycap,
-                "correlation %g cannot be reached by a %s and a %s marginal "
-                "(smallest reachable about %g)",
-                c->rho, bk_dist_name(da->kind), bk_dist_name(db->kind),
-                toward_zero_3(lo));
+      set_why(why, whycap,
+              "%g cannot be reached by %s %s and %s %s marginal (%s reachable "
+              "about %g)",
+              c->rho, article(na), na, article(nb), nb,
+              c->rho > 0 ? "largest" : "smallest",
+              toward_zero_3(c->rho > 0 ? hi : lo));
       goto fail;
     }
     size_t ra = pos[c->a], rb = pos[c->b];
