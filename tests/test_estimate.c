@@ -84,12 +84,13 @@ Test(estimate, binomial_cov_formula) {
 }
 
 /* EN 1990:2002 Annex C, Table C1 (from memory, two decimals): beta for
- * Pf = 1e-1 ... 1e-7. */
+ * Pf = 1e-1 ... 1e-7. The table is not rounded uniformly (1e-2 gives
+ * 2.3263, printed 2.32), so agreement within 0.01 is asked. */
 Test(estimate, beta_matches_en1990_table_c1) {
   const double pf[] = {1e-1, 1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7};
   const double beta[] = {1.28, 2.32, 3.09, 3.72, 4.27, 4.75, 5.20};
   for (int i = 0; i < 7; i++) {
-    cr_assert(fabs(bk_beta_from_pf(pf[i]) - beta[i]) < 0.006,
+    cr_assert(fabs(bk_beta_from_pf(pf[i]) - beta[i]) < 0.01,
               "Pf %g: beta %.4f", pf[i], bk_beta_from_pf(pf[i]));
     cr_assert_float_eq(bk_pf_from_beta(bk_beta_from_pf(pf[i])), pf[i],
                        pf[i] * 1e-12);

@@ -142,7 +142,7 @@ Test(study, fingerprint_ignores_run_settings_but_not_the_model) {
 }
 
 Test(study, malformed_yaml) {
-  expect_error(HEAD "variables:\n  x: {type: normal, mean: 1\n", 4, 1,
+  expect_error(HEAD "variables:\n  x: {type: normal, mean: 1\n", 5, 1,
                "malformed YAML: did not find expected ',' or '}' while "
                "parsing a flow mapping");
 }
@@ -188,7 +188,7 @@ Test(study, unknown_parameter) {
   expect_error_part(HEAD "variables:\n"
                          "  x: {type: normal, mean: 1, stdev: 1}\n"
                          "limit_state: x\n",
-                    4, 31,
+                    4, 30,
                     "unknown key 'stdev' in variable 'x'; expected one of: "
                     "type, mean, sd, cov");
 }
@@ -197,7 +197,7 @@ Test(study, cov_must_be_positive) {
   expect_error_part(HEAD "variables:\n"
                          "  x: {type: lognormal, mean: 10, cov: -0.1}\n"
                          "limit_state: x\n",
-                    4, 35, "variable 'x' (lognormal): ");
+                    4, 34, "variable 'x' (lognormal): ");
   bk_study_t *s;
   bk_error_t err;
   load(HEAD "variables:\n"
@@ -218,7 +218,7 @@ Test(study, lower_not_below_upper) {
   expect_error_part(HEAD "variables:\n"
                          "  x: {type: uniform, lower: 5, upper: 2}\n"
                          "limit_state: x\n",
-                    4, -1, "variable 'x' (uniform): ");
+                    4, 32, "variable 'x' (uniform): lower must be < upper");
 }
 
 Test(study, missing_type) {
@@ -235,7 +235,7 @@ Test(study, unknown_variable_in_correlation) {
                     "correlations:\n"
                     "  - [x, z, 0.5]\n"
                     "limit_state: x - y\n",
-               7, 10, "unknown variable 'z' in a correlation");
+               7, 9, "unknown variable 'z' in a correlation");
 }
 
 Test(study, correlation_out_of_range) {
@@ -245,7 +245,7 @@ Test(study, correlation_out_of_range) {
                     "correlations:\n"
                     "  - [x, y, 1.5]\n"
                     "limit_state: x - y\n",
-               7, 13,
+               7, 12,
                "correlation of x and y must lie strictly between -1 and 1 "
                "(got 1.5)");
 }
@@ -316,7 +316,7 @@ Test(study, lhs_needs_samples_at_least_replicates) {
   expect_error(HEAD "variables: {x: {type: normal, mean: 1, sd: 1}}\n"
                     "limit_state: x\n"
                     "analysis: {method: lhs, samples: 4, replicates: 8}\n",
-               5, 33,
+               5, 34,
                "analysis.samples (4) must be at least the number of "
                "replicates (8)");
 }
