@@ -371,13 +371,17 @@ static int model_run_open(const bk_study_t *s, model_run_t *m,
                     "%s\n",
             count, lp.data);
   bk_buf_close(&lp);
+  /* Run folders are named by absolute paths, so that _folder and
+   * BRINK_FOLDER mean the same from inside the model's working folder. */
+  char *abs_folder = realpath(s->run.folder, NULL);
   bk_buf_t wd;
   bk_buf_init(&wd);
   if (s->run.scratch[0])
     bk_buf_printf(&wd, "%s/brink-%s-%ld", s->run.scratch, s->name,
                   (long)getpid());
   else
-    bk_buf_printf(&wd, "%s/work", s->run.folder);
+    bk_buf_printf(&wd, "%s/work", abs_folder ? abs_folder : s->run.folder);
+  free(abs_folder);
   m->work_dir = wd.data;
   int mrc = make_dirs(m->work_dir);
   if (mrc) {

@@ -129,17 +129,22 @@ static void fill_common(mc_t *m) {
   }
 }
 
-static int check_error_limit(mc_t *m) {
+/* At the end (`final`) the limit applies whatever the count; during the
+ * run only after MIN_FOR_ERROR_LIMIT evaluations, so that one early crash
+ * does not stop a study. */
+static int check_error_limit(mc_t *m, int final) {
   const bk_model_t *md = &m->s->model;
-  if (!md->present || m->total_n < MIN_FOR_ERROR_LIMIT)
+  if (m->total_n == 0 || (!final && m->total_n < MIN_FOR_ERROR_LIMIT))
+    return 0;
+  if (!md->present && m->total_e < m->total_n)
     return 0;
   double frac = (double)m->total_e / (double)m->total_n;
   if (frac > md->max_error_fraction)
     return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
                         "%llu of %llu model runs failed (%.1f%%, above "
-                        "model.max_error_fraction %g); see the run folders "
-                        "kept for them, fix the model and run again to "
-                        "resume",
+                        "model.max_error_fraction %g); the records say why "
+                        "and the run folders are kept. Fix the model and "
+                        "run again to resume",
                         (unsigned long long)m->total_e,
                         (unsigned long long)m->total_n, 100 * frac,
                         md->max_error_fraction);
@@ -177,7 +182,7 @@ static int run_random(mc_t *m) {
     if ((rc = bk__result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
     progress(m, total);
-    if ((rc = check_error_limit(m)))
+    if ((rc = check_error_limit(m, 0)))
       return rc;
     if (a->target_cov > 0 && r->est.cov <= a->target_cov) {
       r->stop_reason = "target_cov reached";
@@ -232,7 +237,7 @@ static int run_replicated(mc_t *m) {
     if ((rc = bk__result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
     progress(m, planned);
-    if ((rc = check_error_limit(m)))
+    if ((rc = check_error_limit(m, 0)))
       return rc;
     if (a->target_cov > 0 && r->replicates >= 2 &&
         r->est.cov <= a->target_cov) {
@@ -284,6 +289,8 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
     rc = run_random(&m);
   else
     rc = run_replicated(&m);
+  if (rc == 0)
+    rc = check_error_limit(&m, 1);
 out:
   bk_free(m.pts);
   bk_free(m.xs);

@@ -683,6 +683,38 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
   return 0;
 }
 
+/* A program named without a '/' must be on PATH, and an absolute path
+ * must be an executable file; a relative path with a '/' is resolved in
+ * each run folder (e.g. a script copied there) and checked at run time. */
+static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
+  if (prog[0] == '/') {
+    if (access(prog, X_OK) != 0)
+      return FAIL(L, n, "cannot run '%s': %s", prog, strerror(errno));
+    return 0;
+  }
+  if (strchr(prog, '/'))
+    return 0;
+  const char *path = getenv("PATH");
+  if (!path || !*path)
+    path = "/usr/local/bin:/usr/bin:/bin";
+  for (const char *p = path; *p;) {
+    const char *colon = strchr(p, ':');
+    size_t len = colon ? (size_t)(colon - p) : strlen(p);
+    char cand[4096];
+    snprintf(cand, sizeof cand, "%.*s/%s", (int)(len ? len : 1),
+             len ? p : ".", prog);
+    struct stat st;
+    if (stat(cand, &st) == 0 && S_ISREG(st.st_mode) && access(cand, X_OK) == 0)
+      return 0;
+    p += len;
+    if (*p == ':')
+      p++;
+  }
+  return FAIL(L, n, "program '%s' is not on PATH; install it or give its "
+                    "full path",
+              prog);
+}
+
 static int load_model(loader_t *L, yaml_node_t *mn) {
   bk_model_t *m = &L->s->model;
   static const char *const keys[] = {
@@ -723,6 +755,9 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
     return rc;
   if (m->argc == 0)
     return FAIL(L, cn, "model.command must name a program");
+  if ((rc = check_program(L, node_at(L, cn->data.sequence.items.start[0]),
+                          m->argv[0])))
+    return rc;
   if ((n = lookup(L, mn, "env"))) {
     if ((rc = want_mapping(L, n, "model.env")) ||
         (rc = check_keys(L, n, "model.env", NULL)))

@@ -224,7 +224,9 @@ Test(run_model, every_fault_kind_is_classified) {
       write_file(name, "%s", t);
       free(t);
     }
-    int rc = brink(name);
+    char args[64];
+    snprintf(args, sizeof args, "run %s", name);
+    int rc = brink(args);
     cr_assert_eq(rc, 1, "%s: exit %d: %s", cases[i].mode, rc,
                  read_file("err.txt"));
     char log[64];
@@ -249,9 +251,26 @@ Test(run_model, missing_program_and_missing_output_file) {
   snprintf(fixed, strlen(t) + 64, "%.*s/nonexistent/solver%s",
            (int)(at - t), t, at + strlen(env("BRINK_TEST_MODEL")));
   write_file("s.yaml", "%s", fixed);
-  cr_assert_eq(brink("s.yaml"), 2, "a bad argument is a usage error");
-  cr_assert_eq(brink("run s.yaml"), 1);
-  char *log = read_file("sp/records.log");
+  /* Known before the run: exit 2, the location, nothing written. */
+  cr_assert_eq(brink("run s.yaml"), 2);
+  cr_assert(strstr(read_file("err.txt"),
+                   "cannot run '/nonexistent/solver': No such file or "
+                   "directory"),
+            "%s", read_file("err.txt"));
+  cr_assert(!exists("sp"));
+  free(t);
+  free(fixed);
+  /* Found at load time but not runnable from the run folder: a
+   * spawn-failed fault for every run. */
+  write_study("r.yaml", "sp2", "random", 2, "ok", "");
+  t = read_file("r.yaml");
+  at = strstr(t, env("BRINK_TEST_MODEL"));
+  fixed = malloc(strlen(t) + 64);
+  snprintf(fixed, strlen(t) + 64, "%.*s./missing/solver%s", (int)(at - t), t,
+           at + strlen(env("BRINK_TEST_MODEL")));
+  write_file("r.yaml", "%s", fixed);
+  cr_assert_eq(brink("run r.yaml"), 1);
+  char *log = read_file("sp2/records.log");
   cr_assert(strstr(log, "\tspawn-failed\t"), "%s", log);
   free(log);
   free(t);
@@ -271,6 +290,12 @@ Test(run_model, missing_program_and_missing_output_file) {
 
 Test(run_model, flaky_model_succeeds_on_retry) {
   write_study("s.yaml", "fl", "random", 4, "flaky 1", "  retries: 1\n");
+  /* Each attempt gets a fresh run folder, so the attempt counter lives
+   * beside it. */
+  write_file("deck.txt", "x1 = {{ a : %%.17g }}\n"
+                         "x2 = {{ b : %%.17g }}\n"
+                         "beta = 1.5\n"
+                         "marker = {{ _folder }}.marker\n");
   cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
   char *log = read_file("fl/records.log");
   cr_assert(strstr(log, "\tok\t2\t"), "attempts recorded as 2: %s", log);
