@@ -113,6 +113,39 @@ void bk_pattern_free(bk_pattern_t *p) {
   bk_free(p);
 }
 
+/*
+ * Finds what the scan cannot give as a search over the whole output would:
+ * \G (true where a pcre2_match() call starts, and the scan starts calls at
+ * other places than a whole-text search) and (*COMMIT) (whose failure ends
+ * the whole call). Returns the message and sets *at, or returns NULL. The
+ * look is lexical: a \G in a (?x) comment is refused too.
+ */
+static const char *unsupported(const char *re, size_t *at) {
+  for (size_t i = 0; re[i]; i++) {
+    if (re[i] == '\\') {
+      if (re[i + 1] == 'G') {
+        *at = i;
+        return "\\G is not supported in output patterns";
+      }
+      if (re[i + 1] == 'Q') {
+        const char *e = strstr(re + i + 2, "\\E");
+        if (!e)
+          return NULL;
+        i = (size_t)(e - re) + 1;
+        continue;
+      }
+      if (re[i + 1])
+        i++;
+      continue;
+    }
+    if (strncmp(re + i, "(*COMMIT", 8) == 0) {
+      *at = i;
+      return "(*COMMIT) is not supported in output patterns";
+    }
+  }
+  return NULL;
+}
+
 int bk_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
                        size_t msgcap, size_t *err_off) {
   *out = NULL;
@@ -153,6 +186,18 @@ int bk_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
     }
     if (err_off)
       *err_off = off;
+    pcre2_compile_context_free(cctx);
+    bk_pattern_free(p);
+    return BK_EPARSE;
+  }
+  /* Checked once PCRE2 has accepted the pattern, so that a \G inside a
+   * broken pattern does not hide PCRE2's message. */
+  size_t at = 0;
+  const char *why = unsupported(re, &at);
+  if (why) {
+    put(msg, msgcap, "%s", why);
+    if (err_off)
+      *err_off = at;
     pcre2_compile_context_free(cctx);
     bk_pattern_free(p);
     return BK_EPARSE;

@@ -9,7 +9,8 @@
  * Matching rules: lines end in LF, CR LF or CR; `.` does not match a line
  * end (write [\s\S] or (?s) to cross lines); patterns work on bytes (no
  * UTF-8 mode, so (*UTF) is refused); matches do not overlap and are found
- * left to right, exactly as if the whole output were one string.
+ * left to right, exactly as if the whole output were one string. \G and
+ * (*COMMIT), which depend on where each search call starts, are refused.
  *
  * Numbers are read in C and Fortran notations: 1.5E+03, 1.5e3, 1.5D+03,
  * -.5e-2, +3., and Fortran's exponent without the letter (-1.474969+104).

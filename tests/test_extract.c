@@ -673,6 +673,10 @@ Test(extract, invalid_pattern_reports_message_and_offset) {
       {"a{2,1}", "numbers out of order in {} quantifier", 5},
       {"*u", "quantifier does not follow a repeatable item", 0},
       {"(*UTF)x", "using UTF is disabled by the application", 6},
+      /* brink's own refusals, for what a piecewise scan cannot match as a
+       * whole-text search would. */
+      {"u = \\G(\\S+)", "\\G is not supported in output patterns", 4},
+      {"a(*COMMIT)b", "(*COMMIT) is not supported in output patterns", 1},
   };
   for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
     bk_pattern_t *p = (bk_pattern_t *)1;
