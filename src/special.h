@@ -28,6 +28,8 @@ double bk_gamma_q_inv(double a, double q);
 
 /* Regularized incomplete beta I_x(a, b). */
 double bk_beta_inc(double a, double b, double x);
+/* Its complement 1 - I_x(a, b), computed directly (accurate when small). */
+double bk_beta_inc_c(double a, double b, double x);
 /* x such that I_x(a, b) = p. */
 double bk_beta_inc_inv(double a, double b, double p);
 
