@@ -130,6 +130,41 @@ static double norm_logcdf(double u) {
   return -0.5 * u * u - log(-u) - LN_SQRT_2PI + log1p(s);
 }
 
+/* -log Phi(u) > 0, also where Phi(u) rounds to 1 (u > 30, where it is
+ * Phi(-u) to double precision since -log(1 - q) = q (1 + q/2 + ...)). */
+static double neg_logcdf(double u) {
+  if (u > 30.0)
+    return exp(norm_logcdf(-u));
+  return -norm_logcdf(u);
+}
+
+/* log(-log Phi(u)), finite for every finite u; the extreme-value kinds
+ * need it beyond the range where Phi(-u) is representable. */
+static double log_neg_logcdf(double u) {
+  if (u > 30.0)
+    return norm_logcdf(-u);
+  return log(-norm_logcdf(u));
+}
+
+/* Phi(hi) - Phi(lo) for 0 <= hi - lo <= 1/2 by 8-point Gauss-Legendre
+ * quadrature of the density (nodes and weights of A&S Table 25.4, from
+ * memory; numpy.polynomial.legendre.leggauss agrees to 1e-15): every term
+ * is positive, so the result keeps full relative accuracy where the
+ * difference of the two cdf values would cancel (a truncated normal near a
+ * finite bound). The quadrature error is below 1e-20 relative at this
+ * width. */
+static double norm_mass_narrow(double lo, double hi) {
+  static const double node[4] = {0.18343464249564980, 0.52553240991632899,
+                                 0.79666647741362674, 0.96028985649753623};
+  static const double weight[4] = {0.36268378337836198, 0.31370664587788727,
+                                   0.22238103445337447, 0.10122853629037626};
+  double h = 0.5 * (hi - lo), m = 0.5 * (hi + lo), sum = 0.0;
+  for (int i = 0; i < 4; i++)
+    sum += weight[i] *
+           (bk_norm_pdf(m - h * node[i]) + bk_norm_pdf(m + h * node[i]));
+  return h * sum;
+}
+
 /* u = Phi^-1(F) given F and S = 1 - F, each computed directly, taking the
  * small one so that neither tail is lost. */
 static double u_from_fs(double f, double s) {
@@ -293,15 +328,48 @@ static int moment_sd(check_t *c, double *sd) {
 /* Moment equations solved for a shape parameter                           */
 /* ---------------------------------------------------------------------- */
 
+/* lgamma(1 + 2s) - 2 lgamma(1 + s) for |s| < 0.02, from the series
+ * lgamma(1 + z) = -gamma z + sum_k>=2 (-1)^k zeta(k) z^k / k (A&S 6.1.33):
+ * the difference is sum_k>=2 (-1)^k zeta(k) (2^k - 2)/k s^k, and the terms
+ * to k = 13 leave a relative error below 1e-16. Formed from lgamma, the
+ * difference (about 1.64 s^2) would cancel to 1e-16/s relative. zeta(k)
+ * from memory, confirmed against scipy.special.zeta. */
+static double lgamma_diff_small(double s) {
+  static const double zeta[14] = {0,
+                                  0,
+                                  1.6449340668482264,
+                                  1.2020569031595943,
+                                  1.0823232337111382,
+                                  1.0369277551433699,
+                                  1.0173430619844491,
+                                  1.0083492773819228,
+                                  1.0040773561979443,
+                                  1.0020083928260822,
+                                  1.0009945751278181,
+                                  1.0004941886041195,
+                                  1.0002460865533080,
+                                  1.0001227133475785};
+  double sum = 0.0, sk = -s; /* (-s)^k */
+  for (int k = 2; k <= 13; k++) {
+    sk *= -s;
+    sum += zeta[k] * (ldexp(1.0, k) - 2.0) / k * sk;
+  }
+  return sum;
+}
+
 /* cov^2 of a Weibull variable (location 0) as a function of t = 1/k:
  * Gamma(1+2t)/Gamma(1+t)^2 - 1, increasing in t. */
 static double weibull_cov2(double t) {
+  if (t < 0.02)
+    return expm1(lgamma_diff_small(t));
   return expm1(lgamma(1.0 + 2.0 * t) - 2.0 * lgamma(1.0 + t));
 }
 
 /* cov^2 of a Frechet variable (location 0), t = 1/alpha in (0, 1/2):
  * Gamma(1-2t)/Gamma(1-t)^2 - 1, increasing in t. */
 static double frechet_cov2(double t) {
+  if (t < 0.02)
+    return expm1(lgamma_diff_small(-t));
   return expm1(lgamma(1.0 - 2.0 * t) - 2.0 * lgamma(1.0 - t));
 }
 
@@ -322,12 +390,12 @@ static double solve_increasing(double (*f)(double), double target, double lo,
   return 0.5 * (lo + hi);
 }
 
-/* Weibull shape k above which the relative spread is below 1e-5: the cov
- * formula then is the first term pi/(sqrt6 k) of its expansion within
- * 1e-10 relative. */
+/* Range of t = 1/shape searched by the moment forms. Below T_MIN (cov
+ * under 1e-15) t = cov sqrt(6)/pi, the first term of the expansion, is
+ * exact to double precision. */
 #define WEIBULL_T_MAX 100.0 /* smallest shape 0.01 */
-#define WEIBULL_T_MIN 1e-12 /* largest shape 1e12 */
-#define FRECHET_T_MIN 1e-12
+#define WEIBULL_T_MIN 1e-15
+#define FRECHET_T_MIN 1e-15
 
 /* ---------------------------------------------------------------------- */
 /* Initialisation per kind                                                 */
@@ -477,14 +545,14 @@ static int init_weibull_frechet(bk_dist_t *d, check_t *c, int frechet) {
                     "sd/(mean - location) must be < %.3g for weibull (got "
                     "%g; the shape would be below 0.01)",
                     sqrt(weibull_cov2(WEIBULL_T_MAX)), cov);
-      t = cov < 1e-6 ? cov / PI_OVER_SQRT6
-                     : solve_increasing(weibull_cov2, cov * cov, WEIBULL_T_MIN,
-                                        WEIBULL_T_MAX);
+      t = cov < 1e-15 ? cov / PI_OVER_SQRT6
+                      : solve_increasing(weibull_cov2, cov * cov, WEIBULL_T_MIN,
+                                         WEIBULL_T_MAX);
       shape = 1.0 / t;
       scale = (mean - loc) / tgamma(1.0 + t);
     } else {
       /* Any cov > 0 is reached for shape in (2, inf). */
-      t = cov < 1e-6
+      t = cov < 1e-15
               ? cov / PI_OVER_SQRT6
               : solve_increasing(frechet_cov2, cov * cov, FRECHET_T_MIN, 0.5);
       if (!(t < 0.5))
@@ -766,8 +834,13 @@ static int init_truncated_normal(bk_dist_t *d, check_t *c) {
     s = -1.0;
   }
   double pa = bk_norm_cdf(a);
-  double z =
-      b <= 0.0 ? bk_norm_cdf(b) - pa : (0.5 - pa) + (0.5 - bk_norm_sf(b));
+  double z;
+  if (b - a <= 0.5)
+    z = norm_mass_narrow(a, b);
+  else if (b <= 0.0)
+    z = bk_norm_cdf(b) - pa;
+  else
+    z = (0.5 - pa) + (0.5 - bk_norm_sf(b));
   if (!(z > 1e-300))
     return fail(c->r, BK_ERANGE, s > 0 ? BK_PARAM_UPPER : BK_PARAM_LOWER,
                 "[lower, upper] = [%g, %g] has probability below 1e-300 "
@@ -886,10 +959,27 @@ static void tn_work_fs(const bk_dist_t *d, double z, double *f, double *s) {
   if (z <= a) {
     *f = 0.0;
     *s = 1.0;
-  } else if (z >= b) {
+    return;
+  }
+  if (z >= b) {
     *f = 1.0;
     *s = 0.0;
-  } else if (z <= 0.0) {
+    return;
+  }
+  /* Near a finite bound, by quadrature (see norm_mass_narrow). */
+  int near_a = z - a <= 0.5, near_b = b - z <= 0.5;
+  if (near_a || near_b) {
+    if (near_a)
+      *f = norm_mass_narrow(a, z) / zm;
+    if (near_b)
+      *s = norm_mass_narrow(z, b) / zm;
+    if (!near_a)
+      *f = 1.0 - *s;
+    if (!near_b)
+      *s = 1.0 - *f;
+    return;
+  }
+  if (z <= 0.0) {
     *f = (bk_norm_cdf(z) - pa) / zm;
     *s = b <= 0.0 ? (bk_norm_cdf(b) - bk_norm_cdf(z)) / zm
                   : ((0.5 - bk_norm_cdf(z)) + (0.5 - bk_norm_sf(b))) / zm;
@@ -1231,15 +1321,19 @@ double bk_dist_from_u(const bk_dist_t *d, double u) {
   case BK_DIST_LOGNORMAL:
     return exp(p[0] + p[1] * u);
   case BK_DIST_GUMBEL:
-    return p[0] - p[1] * log(-norm_logcdf(u));
+    return p[0] - p[1] * log_neg_logcdf(u);
   case BK_DIST_GUMBEL_MIN:
-    return p[0] + p[1] * log(-norm_logcdf(-u));
+    return p[0] + p[1] * log_neg_logcdf(-u);
   case BK_DIST_WEIBULL:
+    if (u < -30.0)
+      return p[2] + p[1] * exp(log_neg_logcdf(-u) / p[0]);
     return p[2] + p[1] * pow(-norm_logcdf(-u), 1.0 / p[0]);
   case BK_DIST_FRECHET:
+    if (u > 30.0)
+      return p[2] + p[1] * exp(-log_neg_logcdf(u) / p[0]);
     return p[2] + p[1] * pow(-norm_logcdf(u), -1.0 / p[0]);
   case BK_DIST_EXPONENTIAL:
-    return p[1] - norm_logcdf(-u) / p[0];
+    return p[1] + neg_logcdf(-u) / p[0];
   case BK_DIST_CONSTANT:
     return p[0];
   default:

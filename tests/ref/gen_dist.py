@@ -127,7 +127,8 @@ def cases():
             [m * nu, (1 - m) * nu, lo, hi])
     for mu, sig, lo, hi in [(0.0, 1.0, -1.0, 2.0), (10.0, 2.0, 12.0, None),
                             (5.0, 1.0, None, 4.5), (0.0, 1.0, 5.0, None),
-                            (0.0, 1.0, -10.0, -8.0), (3.0, 0.5, 2.0, 3.5)]:
+                            (0.0, 1.0, -10.0, -8.0), (3.0, 0.5, 2.0, 3.5),
+                            (0.0, 1.0, 3.0, 4.0)]:
         params = [("mu", mu), ("sigma", sig)]
         a = -np.inf if lo is None else (lo - mu) / sig
         b = np.inf if hi is None else (hi - mu) / sig
