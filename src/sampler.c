@@ -31,14 +31,14 @@
 /* Domain tags (ASCII "bk.lhs.p", "bk.lhs.j", "bk.sobol") so that the
  * permutations, the jitter and the scrambles of one (seed, stream) are
  * unrelated to each other and to the random sampler of the same stream. */
-#define TAG_LHS_PERM UINT64_C(0x626B2E6C68732E70)
+#define TAG_LHS_PERM   UINT64_C(0x626B2E6C68732E70)
 #define TAG_LHS_JITTER UINT64_C(0x626B2E6C68732E6A)
-#define TAG_SOBOL UINT64_C(0x626B2E736F626F6C)
+#define TAG_SOBOL      UINT64_C(0x626B2E736F626F6C)
 
 /* LHS strata must stay distinct in double precision. */
 #define LHS_MAXPOINTS (UINT64_C(1) << 53)
 
-#define SOBOL_BITS 32
+#define SOBOL_BITS      32
 #define SOBOL_MAXPOINTS (UINT64_C(1) << SOBOL_BITS)
 
 static uint64_t seed_stream_key(uint64_t seed, uint64_t stream, uint64_t tag) {
@@ -56,39 +56,97 @@ static inline uint64_t rotl64(uint64_t x, unsigned r) {
  * "Correlated Multi-Jittered Sampling", function permute) over a keyed
  * bijection of b-bit integers, b the bit length of n - 1, so the walk takes
  * fewer than two steps on average; then a keyed rotation, (x + offset) mod
- * n, which makes every stratum equally likely for each i over keys.
+ * n, which makes every stratum nearly equally likely for each i over keys.
  *
  * Kensler's bijection is a fixed 32-bit hash; a straight generalisation of
- * it to 64 bits (masked xor-shifts and odd multipliers) gave consecutive
- * indices strongly dependent strata (chi-square of the triples (perm(i),
- * perm(i + 1), perm(i + 2)) over keys with z-scores of hundreds to
- * thousands for n from 24 to 100). The bijection here is instead a 4-round
- * Feistel network on the split of the b bits into a low part of b / 2 bits
- * and a high part of the rest, each half-round adding a multiply-fold hash
- * of one part, keyed by rotations of two mixed key words, into the other
- * with xor: each half-round is invertible, hence so is the network, and the
- * same triple test gives |z| < 3 for n of 9 and above. */
+ * it to 64 bits (masked xor-shifts and odd multipliers) gave strongly
+ * dependent strata to consecutive indices: the chi-square statistic of the
+ * triples (perm(i), perm(i + 1), perm(i + 2)) over keys had z-scores of
+ * hundreds to thousands for n from 24 to 100. The bijection here is instead
+ * a Feistel network on the split of the b bits into a low part of b / 2
+ * bits and a high part of the rest, each half-round xoring a multiply-fold
+ * hash of one part, keyed by rotations of two mixed key words, into the
+ * other: each half-round is invertible, hence so is the network. With 4
+ * rounds, or 8 for b <= 5 where the parts are tiny, the same triple test
+ * gives |z| < 3 for every n from 3 to 64 (and the test suite checks a few).
+ * Full uniformity over all n! permutations is not claimed. */
+typedef struct {
+  uint64_t n;  /* domain size, at least 2 */
+  uint64_t w;  /* b low bits set, b the bit length of n - 1 */
+  uint64_t lo; /* the l = b / 2 low bits set */
+  unsigned l;
+  unsigned rounds; /* 4, or 8 for b <= 5 */
+} perm_domain_t;
+
+static inline perm_domain_t perm_domain(uint64_t n) {
+  perm_domain_t p;
+  unsigned b = 64 - (unsigned)__builtin_clzll(n - 1);
+  p.n = n;
+  p.w = UINT64_MAX >> (64 - b);
+  p.l = b / 2;
+  p.lo = p.w >> (b - p.l);
+  p.rounds = b <= 5 ? 8 : 4;
+  return p;
+}
+
+/* The two key words of a permutation key. */
+static inline uint64_t perm_ka(uint64_t key) {
+  return bk_rng_mix64(key ^ UINT64_C(0x5851F42D4C957F2D));
+}
+
+static inline uint64_t perm_kb(uint64_t ka) {
+  return bk_rng_mix64(ka ^ UINT64_C(0x14057B7EF767814F));
+}
+
+/* Round r of the Feistel network: the high part takes a hash of the low
+ * part, then the low part one of the high part. */
+static inline uint64_t feistel_round(uint64_t x, uint64_t ka, uint64_t kb,
+                                     unsigned r, const perm_domain_t *p) {
+  unsigned s = (16 * r + 5 * (r >> 2)) & 63, t = (s + 8) & 63;
+  uint64_t h = ((x & p->lo) ^ rotl64(ka, s)) * (rotl64(kb, s) | 1);
+  x ^= ((h ^ h >> 32) << p->l) & p->w;
+  h = ((x >> p->l) ^ rotl64(kb, t)) * (rotl64(ka, t) | 1);
+  return x ^ ((h ^ h >> 32) & p->lo);
+}
+
+/* The 4-round Feistel bijection of [0, 2^b). */
+static inline uint64_t feistel(uint64_t x, uint64_t ka, uint64_t kb,
+                               const perm_domain_t *p) {
+  for (unsigned r = 0; r < p->rounds; r++)
+    x = feistel_round(x, ka, kb, r, p);
+  return x;
+}
+
+/* The high 64 bits of a * b: ka mapped onto [0, n) as mulhi64(ka, n),
+ * nearly uniform and without a division. The portable branch gives the
+ * same value, so designs agree across platforms. */
+static inline uint64_t mulhi64(uint64_t a, uint64_t b) {
+#ifdef __SIZEOF_INT128__
+  return (uint64_t)((unsigned __int128)a * b >> 64);
+#else
+  uint64_t a0 = (uint32_t)a, a1 = a >> 32, b0 = (uint32_t)b, b1 = b >> 32;
+  uint64_t p0 = a0 * b0, p1 = a0 * b1, p2 = a1 * b0, p3 = a1 * b1;
+  uint64_t mid = (p0 >> 32) + (uint32_t)p1 + (uint32_t)p2;
+  return p3 + (p1 >> 32) + (p2 >> 32) + (mid >> 32);
+#endif
+}
+
+/* Cycle walking from a first image x, then the keyed rotation. */
+static inline uint64_t perm_finish(uint64_t x, uint64_t ka, uint64_t kb,
+                                   const perm_domain_t *p) {
+  while (x >= p->n)
+    x = feistel(x, ka, kb, p);
+  uint64_t off = mulhi64(ka, p->n);
+  return x < p->n - off ? x + off : x - (p->n - off);
+}
+
 uint64_t bk_permute(uint64_t i, uint64_t n, uint64_t key) {
   if (n <= 1)
     return 0;
   assert(i < n);
-  unsigned b = 64 - (unsigned)__builtin_clzll(n - 1);
-  uint64_t w = UINT64_MAX >> (64 - b);
-  unsigned l = b / 2;
-  uint64_t lo = w >> (b - l);
-  uint64_t ka = bk_rng_mix64(key ^ UINT64_C(0x5851F42D4C957F2D));
-  uint64_t kb = bk_rng_mix64(ka ^ UINT64_C(0x14057B7EF767814F));
-  uint64_t x = i;
-  do {
-    for (unsigned r = 0; r < 4; r++) {
-      uint64_t p = ((x & lo) ^ rotl64(ka, 16 * r)) * (rotl64(kb, 16 * r) | 1);
-      x ^= ((p ^ p >> 32) << l) & w;
-      p = ((x >> l) ^ rotl64(kb, 16 * r + 8)) * (rotl64(ka, 16 * r + 8) | 1);
-      x ^= (p ^ p >> 32) & lo;
-    }
-  } while (x >= n);
-  uint64_t off = (ka >> 3) % n;
-  return x < n - off ? x + off : x - (n - off);
+  perm_domain_t p = perm_domain(n);
+  uint64_t ka = perm_ka(key), kb = perm_kb(ka);
+  return perm_finish(feistel(i, ka, kb, &p), ka, kb, &p);
 }
 
 /* ---- Latin hypercube ------------------------------------------------ */
@@ -106,13 +164,34 @@ static double lhs_coord(uint64_t k, uint64_t n, double u) {
   return v;
 }
 
+/* Coordinate d is in stratum bk_permute(index, n, base + d * golden),
+ * jittered by the uniform of (seed, jitter stream, index, d). The
+ * permutations of a chunk of dimensions are computed round by round side by
+ * side, so their dependency chains overlap; the result is bk_permute's. */
 static void lhs_point(const bk_sampler_t *s, uint64_t index, double *out) {
+  enum { CHUNK = 8 };
+  uint64_t n = s->npoints;
   uint64_t base = seed_stream_key(s->seed, s->stream, TAG_LHS_PERM);
   bk_rng_u01_fill(s->seed, bk_rng_mix64(s->stream ^ TAG_LHS_JITTER), index, 0,
                   s->ndim, out);
-  for (uint32_t d = 0; d < s->ndim; d++) {
-    uint64_t k = bk_permute(index, s->npoints, base + (uint64_t)d * GOLDEN);
-    out[d] = lhs_coord(k, s->npoints, out[d]);
+  if (n == 1)
+    return; /* one stratum: the jitter is the point */
+  perm_domain_t p = perm_domain(n);
+  uint64_t ka[CHUNK], kb[CHUNK], x[CHUNK];
+  for (uint32_t d0 = 0; d0 < s->ndim; d0 += CHUNK) {
+    uint32_t nd = s->ndim - d0 < CHUNK ? s->ndim - d0 : CHUNK;
+    for (uint32_t k = 0; k < nd; k++) {
+      ka[k] = perm_ka(base + (uint64_t)(d0 + k) * GOLDEN);
+      kb[k] = perm_kb(ka[k]);
+      x[k] = index;
+    }
+    for (unsigned r = 0; r < p.rounds; r++)
+      for (uint32_t k = 0; k < nd; k++)
+        x[k] = feistel_round(x[k], ka[k], kb[k], r, &p);
+    for (uint32_t k = 0; k < nd; k++) {
+      uint64_t stratum = perm_finish(x[k], ka[k], kb[k], &p);
+      out[d0 + k] = lhs_coord(stratum, n, out[d0 + k]);
+    }
   }
 }
 
@@ -120,14 +199,20 @@ static void lhs_point(const bk_sampler_t *s, uint64_t index, double *out) {
 
 /* Direction numbers v[j][d] = m_{j+1} << (31 - j) of dimensions d below
  * sobol_nready, filled in dimension order on demand; sobol_bitpos is where
- * the next dimension's numbers start in bk__sobol_mbits. Process-wide and
- * not thread-safe while growing: bk_sampler_init grows it to the sampler's
- * ndim, after which bk_sampler_point only reads it and may run in many
- * threads, as long as no other thread calls bk_sampler_init or
+ * the next dimension's numbers start in bk__sobol_mbits. For the first
+ * SOBOL_FASTDIM dimensions sobol_bytes[d][q][b] also holds the xor of the
+ * direction numbers 8q..8q+7 selected by the bits of b, so a coordinate
+ * costs four lookups instead of a loop over the index bits.
+ *
+ * Process-wide and not thread-safe while growing: bk_sampler_init grows it
+ * to the sampler's ndim, after which bk_sampler_point only reads it and may
+ * run in many threads, as long as no other thread calls bk_sampler_init or
  * bk_sobol_raw with more dimensions at the same time. The layout puts one
  * bit's numbers of all dimensions side by side, so a point xors contiguous
- * rows. */
+ * rows. Pages of the arrays are touched only as dimensions are used. */
+#define SOBOL_FASTDIM 256
 static uint32_t sobol_v[SOBOL_BITS][BK__SOBOL_NDIM];
+static uint32_t sobol_bytes[SOBOL_FASTDIM][4][256];
 static uint32_t sobol_nready;
 static uint64_t sobol_bitpos;
 
@@ -165,6 +250,13 @@ static void sobol_fill(uint32_t d) {
   }
   for (unsigned j = 0; j < SOBOL_BITS; j++)
     sobol_v[j][d] = (uint32_t)(m[j + 1] << (SOBOL_BITS - 1 - j));
+  if (d < SOBOL_FASTDIM)
+    for (unsigned q = 0; q < 4; q++) {
+      uint32_t *t = sobol_bytes[d][q];
+      t[0] = 0;
+      for (unsigned b = 1; b < 256; b++)
+        t[b] = t[b & (b - 1)] ^ sobol_v[8 * q + __builtin_ctz(b)][d];
+    }
 }
 
 static void sobol_grow(uint32_t ndim) {
@@ -219,33 +311,45 @@ static inline double u52(uint64_t y) {
  * 2^m indices onto an aligned block of 2^m Sobol points in shuffled order
  * (still a (t, m, s)-net), so prefixes of different replicates are not the
  * same points; then each coordinate is Owen-scrambled with a per-(seed,
- * stream, dim) seed. The 20 bits below the 32 are a hash of the scrambled
- * coordinate and the dimension key, that is, further Owen digits that
- * depend on all digits above them. Unscrambled coordinates are x / 2^32 +
- * 2^-53, so the origin stays off the boundary. */
+ * stream, dim) seed. The 20 bits below the 32 are a multiplicative hash
+ * of the scrambled coordinate and the dimension key, that is, further Owen
+ * digits that depend on all digits above them. Unscrambled coordinates are x /
+ * 2^32 + 2^-53, so the origin stays off the boundary. */
+static inline uint32_t sobol_fast(uint32_t i, uint32_t d) {
+  return sobol_bytes[d][0][i & 255] ^ sobol_bytes[d][1][i >> 8 & 255] ^
+         sobol_bytes[d][2][i >> 16 & 255] ^ sobol_bytes[d][3][i >> 24];
+}
+
 static void sobol_point(const bk_sampler_t *s, uint64_t index, double *out) {
   enum { CHUNK = 64 };
   uint32_t x[CHUNK];
-  uint64_t key = seed_stream_key(s->seed, s->stream, TAG_SOBOL);
+  uint64_t key = 0;
   uint32_t i = (uint32_t)index;
-  if (s->scramble)
+  if (s->scramble) {
+    key = seed_stream_key(s->seed, s->stream, TAG_SOBOL);
     i = owen_scramble(i, (uint32_t)(key >> 32));
+  }
   if (s->ndim > sobol_nready)
     sobol_grow(s->ndim);
   for (uint32_t d0 = 0; d0 < s->ndim; d0 += CHUNK) {
     uint32_t nd = s->ndim - d0 < CHUNK ? s->ndim - d0 : CHUNK;
-    for (uint32_t k = 0; k < nd; k++)
-      x[k] = 0;
-    for (uint32_t bits = i; bits; bits &= bits - 1) {
-      const uint32_t *row = &sobol_v[__builtin_ctz(bits)][d0];
+    if (d0 + nd <= SOBOL_FASTDIM) {
       for (uint32_t k = 0; k < nd; k++)
-        x[k] ^= row[k];
+        x[k] = sobol_fast(i, d0 + k);
+    } else {
+      for (uint32_t k = 0; k < nd; k++)
+        x[k] = 0;
+      for (uint32_t bits = i; bits; bits &= bits - 1) {
+        const uint32_t *row = &sobol_v[__builtin_ctz(bits)][d0];
+        for (uint32_t k = 0; k < nd; k++)
+          x[k] ^= row[k];
+      }
     }
     for (uint32_t k = 0; k < nd; k++) {
       if (s->scramble) {
         uint64_t kd = bk_rng_mix64(key + (uint64_t)(d0 + k + 1) * GOLDEN);
         uint32_t y = owen_scramble(x[k], (uint32_t)kd);
-        uint64_t low = bk_rng_mix64(kd ^ y) >> 44;
+        uint64_t low = (kd ^ y) * GOLDEN >> 44;
         out[d0 + k] = u52((uint64_t)y << 20 | low);
       } else {
         out[d0 + k] = u52((uint64_t)x[k] << 20);
