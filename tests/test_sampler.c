@@ -91,6 +91,26 @@ Test(sampler, unscrambled_sobol_points_are_raw_values_off_the_edge) {
   cr_expect_eq(x[0], 0x1p-53, "the origin moved just inside");
 }
 
+/* Points of a sampler use byte tables for the first 256 dimensions and
+ * the bit loop above: both agree with bk_sobol_raw, including the chunk
+ * that straddles dimension 256. */
+Test(sampler, sobol_points_agree_with_raw_values_in_every_dimension) {
+  enum { ND = 300 };
+  bk_sampler_t s;
+  cr_assert_eq(bk_sampler_init(&s, BK_SAMPLER_SOBOL, 1, 2, ND, 0, 0), 0);
+  double x[ND];
+  const uint64_t idx[] = {
+      0, 1, 255, 256, 65535, 123456789, UINT32_MAX, (UINT64_C(1) << 32) + 5};
+  for (size_t a = 0; a < 8; a++) {
+    bk_sampler_point(&s, idx[a], x);
+    for (uint32_t d = 0; d < ND; d++)
+      cr_assert_eq(x[d], bk_sobol_raw(idx[a], d) * 0x1p-32 + 0x1p-53,
+                   "index %" PRIu64 " dim %u", idx[a], d);
+  }
+  cr_expect_eq(bk_sobol_raw((UINT64_C(1) << 32) + 5, 7), bk_sobol_raw(5, 7),
+               "the index is taken modulo 2^32");
+}
+
 /* ---- Keyed permutation ---------------------------------------------- */
 
 static void check_bijection(uint64_t n, uint64_t key) {
