@@ -72,11 +72,15 @@ const char *bk_param_name(bk_param_t p);
 /* Returns the parameter for a name, or -1. */
 int bk_param_from_name(const char *name);
 
-/* Fills `d` from `spec`. On failure returns BK_EINVAL (or BK_ERANGE) and
- * writes a message naming the bad parameter and what is valid into `why`
- * (e.g. "cov must be > 0 (got -0.1)"); `bad_param` (may be NULL) receives
- * the offending parameter or -1 when the combination is wrong ("give sd or
- * cov with mean"). `d` is unspecified after failure. */
+/* Fills `d` from `spec`. On failure returns BK_EINVAL (BK_ERANGE when the
+ * values are valid one by one but out of reach together, e.g. a Weibull
+ * spread needing a shape below 0.01) and writes a message naming the bad
+ * parameter, the value and what is valid into `why` (may be NULL), without
+ * a trailing period or the variable's name, e.g. "cov must be > 0 (got
+ * -0.1)", "unknown parameter 'mode' for normal; expected mean with sd or
+ * cov"; `bad_param` (may be NULL) receives the offending parameter or -1
+ * when the combination is wrong ("give sd or cov together with mean").
+ * `d` is unspecified after failure. */
 int bk_dist_init(bk_dist_t *d, bk_dist_kind_t kind, const bk_dist_spec_t *spec,
                  char *why, size_t whycap, int *bad_param);
 
