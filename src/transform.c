@@ -34,11 +34,13 @@
 /* ---------------------------------------------------------------------- */
 
 /* Number of nodes per dimension of the product rule (GH_N^2 = 4096 points
- * per evaluation of rho(rho0)). Against a 180-node reference the 64-node
- * rule gives rho to about 1e-10 or better for the marginals whose quantile
- * function is analytic in u (normal, lognormal, gumbel, weibull, frechet,
- * gamma, exponential, uniform, beta, truncated normal); the triangular
- * quantile has a kink at the mode, and there the error is a few 1e-6. */
+ * per evaluation of rho(rho0)). Against a 180-node rule the 64-node rule
+ * gives rho to about 1e-10 or better for the marginals whose quantile
+ * function x(u) is analytic in u (normal, lognormal, gumbel, weibull,
+ * frechet with a finite variance, gamma, exponential, uniform, beta,
+ * truncated normal). The triangular x(u) has a kink at the mode, where
+ * Gauss-Hermite gives only about 1e-5; such a marginal gets the composite
+ * rule below instead. */
 #define GH_N 64
 
 /* Number of eigenvalues of the Jacobi matrix of the probabilists' Hermite
@@ -222,12 +224,13 @@ static const rule_t *rule_for(const rules_t *rs, rule_t *buf, double k1,
 /* The u at which x(u) = F^-1(Phi(u)) has a kink, or NaN. Only the
  * triangular marginal has one, at its mode, where the density has a corner.
  * The mode is found from the public moments and bounds, mode = 3 mean -
- * lower - upper, the bounds being the quantiles at u = -+38 (Phi(-38) is
- * about 3e-316, so these are the bounds to double precision). */
+ * lower - upper, the bounds being the quantiles at u = -+30 (Phi(-30) is
+ * about 5e-198, so these are the bounds to far below the rounding of the
+ * mean). */
 static double kink_u(const bk_dist_t *d) {
   if (d->kind != BK_DIST_TRIANGULAR)
     return NAN;
-  double lo = bk_dist_from_u(d, -38), hi = bk_dist_from_u(d, 38);
+  double lo = bk_dist_from_u(d, -30), hi = bk_dist_from_u(d, 30);
   if (!(hi > lo))
     return NAN;
   double mode = 3 * d->mean - lo - hi;
@@ -650,6 +653,42 @@ static int alloc_array(void **out, size_t count, size_t size) {
   return *out ? 0 : BK_ENOMEM;
 }
 
+static int same_dist(const bk_dist_t *x, const bk_dist_t *y) {
+  if (x->kind != y->kind || x->mean != y->mean || x->sd != y->sd)
+    return 0;
+  for (size_t i = 0; i < sizeof x->p / sizeof x->p[0]; i++)
+    if (x->p[i] != y->p[i])
+      return 0;
+  return 1;
+}
+
+static const pair_rho0_t *find_pair(const bk_transform_t *t, size_t a,
+                                    size_t b) {
+  if (t->npairs == 0)
+    return NULL;
+  pair_rho0_t key = {a < b ? a : b, a < b ? b : a, 0};
+  return bsearch(&key, t->pairs, t->npairs, sizeof *t->pairs, cmp_pair);
+}
+
+/* rho0 of an earlier pair i' < i with the same marginals and rho, or NaN.
+ * Studies often correlate many identical variables alike, and a numeric
+ * solve costs up to a few 1e5 quantile evaluations, so it is done once. */
+static double earlier_solution(const bk_transform_t *t, const bk_dist_t *d,
+                               const bk_corr_t *corr, size_t i) {
+  const bk_dist_t *da = &d[corr[i].a], *db = &d[corr[i].b];
+  const bk_dist_t *fa = da, *fb = db;
+  if (closed_form(&fa, &fb) != FORM_NUMERIC)
+    return NAN; /* cheap anyway */
+  for (size_t j = 0; j < i; j++) {
+    const bk_dist_t *ea = &d[corr[j].a], *eb = &d[corr[j].b];
+    if (corr[j].rho == corr[i].rho &&
+        ((same_dist(ea, da) && same_dist(eb, db)) ||
+         (same_dist(ea, db) && same_dist(eb, da))))
+      return find_pair(t, corr[j].a, corr[j].b)->rho0;
+  }
+  return NAN;
+}
+
 int bk_transform_new(bk_transform_t **out, size_t n, const bk_dist_t *dists,
                      size_t ncorr, const bk_corr_t *corr, char *why,
                      size_t whycap, int *bad_corr) {
@@ -775,7 +814,9 @@ int bk_transform_new(bk_transform_t **out, size_t n, const bk_dist_t *dists,
   for (size_t i = 0; i < ncorr; i++) {
     const bk_corr_t *c = &corr[i];
     const bk_dist_t *da = &dists[c->a], *db = &dists[c->b];
-    double r0 = bk_nataf_rho0(da, db, c->rho);
+    double r0 = earlier_solution(t, dists, corr, i);
+    if (isnan(r0))
+      r0 = bk_nataf_rho0(da, db, c->rho);
     if (isnan(r0)) {
       double lo, hi;
       const char *na = bk_dist_name(da->kind), *nb = bk_dist_name(db->kind);
@@ -796,10 +837,7 @@ int bk_transform_new(bk_transform_t **out, size_t n, const bk_dist_t *dists,
       rb = tmp;
     }
     t->L[ra * (ra + 1) / 2 + rb] = r0;
-    pair_rho0_t key = {c->a < c->b ? c->a : c->b, c->a < c->b ? c->b : c->a, 0};
-    pair_rho0_t *hit =
-        bsearch(&key, t->pairs, ncorr, sizeof *t->pairs, cmp_pair);
-    hit->rho0 = r0;
+    ((pair_rho0_t *)find_pair(t, c->a, c->b))->rho0 = r0;
   }
 
   size_t minor = cholesky_packed(t->L, t->k);
@@ -916,10 +954,6 @@ double bk_transform_rho0(const bk_transform_t *t, size_t a, size_t b) {
     return NAN;
   if (a == b)
     return t->dists[a].kind == BK_DIST_CONSTANT ? NAN : 1;
-  if (t->npairs == 0)
-    return 0;
-  pair_rho0_t key = {a < b ? a : b, a < b ? b : a, 0};
-  const pair_rho0_t *hit =
-      bsearch(&key, t->pairs, t->npairs, sizeof *t->pairs, cmp_pair);
+  const pair_rho0_t *hit = find_pair(t, a, b);
   return hit ? hit->rho0 : 0;
 }

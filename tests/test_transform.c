@@ -604,3 +604,17 @@ Test(transform, allocation_failures_return_enomem) {
   cr_assert_eq(rc, 0);
   cr_assert_gt(fail_at, 3, "several allocations were exercised");
 }
+
+Test(transform, identical_pairs_share_one_solution) {
+  /* Pairs with equal marginals and rho are solved once; the reused rho0
+   * must equal a fresh solve (in either order of the marginals). */
+  bk_dist_t d[4] = {gumbel(), gumbel(), uniform01(), gumbel()};
+  bk_corr_t c[] = {{0, 2, 0.5}, {2, 1, 0.5}, {3, 2, 0.4}};
+  bk_transform_t *t;
+  cr_assert_eq(bk_transform_new(&t, 4, d, 3, c, NULL, 0, NULL), 0);
+  double want = bk_nataf_rho0(&d[0], &d[2], 0.5);
+  cr_assert_eq(bk_transform_rho0(t, 0, 2), want);
+  cr_assert(fabs(bk_transform_rho0(t, 1, 2) - want) < 1e-12);
+  cr_assert_eq(bk_transform_rho0(t, 2, 3), bk_nataf_rho0(&d[3], &d[2], 0.4));
+  bk_transform_free(t);
+}
