@@ -5,9 +5,12 @@
  *    marginals F_a, F_b and a Gaussian-copula correlation rho0, the physical
  *    correlation is rho = E[z_a z_b] with z = (X - mean) / sd and
  *    X = F^-1(Phi(U)), (U_a, U_b) standard bivariate normal with correlation
- *    rho0. The expectation is a product Gauss-Hermite rule, and rho0 for a
- *    given rho is found by Brent's method on (-1, 1). Closed forms are used
- *    where they exist.
+ *    rho0. The expectation is a product Gauss-Hermite rule (composite
+ *    Gauss-Legendre next to the kink of a triangular marginal), and rho0
+ *    for a given rho is found by Brent's method on [-1, 1]. Closed forms
+ *    are used where they exist. Accuracy: rho0 to about 1e-10 against
+ *    scipy for the marginals tested; it degrades for frechet shapes close
+ *    to 2, whose variance barely exists.
  *
  * 2. The transformation itself: the adjusted matrix R0 of the correlated
  *    variables is Cholesky-factorised, R0 = L L^T, and z = L u maps
@@ -18,8 +21,8 @@
 #include "transform.h"
 
 #include <float.h>
-#include <stdarg.h>
 #include <math.h>
+#include <stdarg.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -822,12 +825,18 @@ int bk_transform_new(bk_transform_t **out, size_t n, const bk_dist_t *dists,
       const char *na = bk_dist_name(da->kind), *nb = bk_dist_name(db->kind);
       bad = (int)i;
       bk_nataf_range(da, db, &lo, &hi);
-      set_why(why, whycap,
-              "%g cannot be reached by %s %s and %s %s marginal (%s reachable "
-              "about %g)",
-              c->rho, article(na), na, article(nb), nb,
-              c->rho > 0 ? "largest" : "smallest",
-              toward_zero_3(c->rho > 0 ? hi : lo));
+      if (isnan(lo) || isnan(hi))
+        set_why(why, whycap,
+                "the correlation of %s %s and %s %s marginal cannot be "
+                "computed (a quantile is not finite far in the tails)",
+                article(na), na, article(nb), nb);
+      else
+        set_why(why, whycap,
+                "%g cannot be reached by %s %s and %s %s marginal (%s "
+                "reachable about %g)",
+                c->rho, article(na), na, article(nb), nb,
+                c->rho > 0 ? "largest" : "smallest",
+                toward_zero_3(c->rho > 0 ? hi : lo));
       goto fail;
     }
     size_t ra = pos[c->a], rb = pos[c->b];
