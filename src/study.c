@@ -251,12 +251,55 @@ static void scalar_offset_mark(loader_t *L, yaml_node_t *n, size_t off,
   out->column = col;
 }
 
+/* Removes "." components and "name/.." pairs, lexically (as a user reads
+ * the path; symbolic links are not consulted). Works in place. */
+static void normalize_path(char *path) {
+  int absolute = path[0] == '/';
+  char *out = path + absolute;
+  const char *in = path + absolute;
+  char *start = out;
+  while (*in) {
+    const char *end = strchr(in, '/');
+    size_t len = end ? (size_t)(end - in) : strlen(in);
+    if (len == 0 || (len == 1 && in[0] == '.')) {
+      /* skip */
+    } else if (len == 2 && in[0] == '.' && in[1] == '.') {
+      char *last = out > start ? out - 1 : start;
+      while (last > start && last[-1] != '/')
+        last--;
+      int last_is_dotdot = out - last >= 3 && last[0] == '.' &&
+                           last[1] == '.' && last[2] == '/';
+      if (out > start && !last_is_dotdot) {
+        out = last;
+      } else if (!absolute) {
+        memcpy(out, "../", 3);
+        out += 3;
+      }
+    } else {
+      memmove(out, in, len);
+      out += len;
+      *out++ = '/';
+    }
+    in += len;
+    if (*in == '/')
+      in++;
+  }
+  if (out > start)
+    out--;
+  *out = '\0';
+  if (out == path)
+    strcpy(path, ".");
+}
+
 static char *resolve_path(const char *dir, const char *p) {
-  if (p[0] == '/' || strcmp(dir, ".") == 0)
-    return bk_strdup(p);
   bk_buf_t b;
   bk_buf_init(&b);
-  bk_buf_printf(&b, "%s/%s", dir, p);
+  if (p[0] == '/' || strcmp(dir, ".") == 0)
+    bk_buf_puts(&b, p);
+  else
+    bk_buf_printf(&b, "%s/%s", dir, p);
+  if (b.data)
+    normalize_path(b.data);
   return b.data;
 }
 

@@ -358,3 +358,19 @@ Test(study, numbers_are_c_literals) {
   cr_assert_eq(s->analysis.samples, 1000);
   bk_study_free(s);
 }
+
+Test(study, paths_are_relative_to_the_study_and_normalized) {
+  bk_study_t *s;
+  bk_error_t err;
+  int rc = load("variables: {x: {type: normal, mean: 1, sd: 1}}\n"
+                "limit_state: x\n"
+                "analysis: {samples: 10}\n"
+                "run: {folder: ../out/./a/../b}\n",
+                &s, &err);
+  cr_assert_eq(rc, 0, "%s", err.msg);
+  char want[600];
+  snprintf(want, sizeof want, "%.*s/out/b",
+           (int)(strrchr(dir, '/') - dir), dir);
+  cr_assert_str_eq(s->run.folder, want);
+  bk_study_free(s);
+}
