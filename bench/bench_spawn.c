@@ -6,7 +6,9 @@
  *
  * SPDX-License-Identifier: MIT
  */
+#ifndef _GNU_SOURCE
 #define _GNU_SOURCE
+#endif
 #include <fcntl.h>
 #include <stdio.h>
 #include <stdlib.h>
