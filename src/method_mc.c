@@ -239,7 +239,10 @@ static int run_replicated(mc_t *m) {
     progress(m, planned);
     if ((rc = check_error_limit(m, 0)))
       return rc;
-    if (a->target_cov > 0 && r->replicates >= 2 &&
+    /* The spread of fewer than four replicates says too little about the
+     * error to stop on. */
+    uint32_t min_reps = a->replicates < 4 ? a->replicates : 4;
+    if (a->target_cov > 0 && r->replicates >= min_reps &&
         r->est.cov <= a->target_cov) {
       r->stop_reason = "target_cov reached";
       break;

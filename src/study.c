@@ -252,42 +252,46 @@ static void scalar_offset_mark(loader_t *L, yaml_node_t *n, size_t off,
 }
 
 /* Removes "." components and "name/.." pairs, lexically (as a user reads
- * the path; symbolic links are not consulted). Works in place. */
+ * the path; symbolic links are not consulted). Works in place: the output
+ * never runs ahead of the input, because each component is written with
+ * the separator before it. */
 static void normalize_path(char *path) {
   int absolute = path[0] == '/';
-  char *out = path + absolute;
-  const char *in = path + absolute;
-  char *start = out;
+  char *start = path + absolute;
+  char *out = start;
+  const char *in = start;
   while (*in) {
     const char *end = strchr(in, '/');
     size_t len = end ? (size_t)(end - in) : strlen(in);
-    if (len == 0 || (len == 1 && in[0] == '.')) {
-      /* skip */
-    } else if (len == 2 && in[0] == '.' && in[1] == '.') {
-      char *last = out > start ? out - 1 : start;
+    int dot = len == 1 && in[0] == '.';
+    int dotdot = len == 2 && in[0] == '.' && in[1] == '.';
+    if (len == 0 || dot) {
+      /* nothing to write */
+    } else if (dotdot && out > start) {
+      char *last = out;
       while (last > start && last[-1] != '/')
         last--;
-      int last_is_dotdot = out - last >= 3 && last[0] == '.' &&
-                           last[1] == '.' && last[2] == '/';
-      if (out > start && !last_is_dotdot) {
-        out = last;
-      } else if (!absolute) {
-        memcpy(out, "../", 3);
-        out += 3;
+      if (strncmp(last, "..", 2) == 0 && out - last == 2) {
+        *out++ = '/';
+        memmove(out, "..", 2);
+        out += 2;
+      } else {
+        out = last > start ? last - 1 : start;
       }
+    } else if (dotdot && absolute) {
+      /* "/.." is "/" */
     } else {
+      if (out > start)
+        *out++ = '/';
       memmove(out, in, len);
       out += len;
-      *out++ = '/';
     }
     in += len;
     if (*in == '/')
       in++;
   }
-  if (out > start)
-    out--;
   *out = '\0';
-  if (out == path)
+  if (path[0] == '\0')
     strcpy(path, ".");
 }
 

@@ -225,7 +225,7 @@ Test(method_mc, replicates_stop_on_target_cov) {
   run(s, &r);
   cr_assert_str_eq(r.stop_reason, "target_cov reached");
   cr_assert_lt(r.replicates, 16);
-  cr_assert_geq(r.replicates, 2);
+  cr_assert_geq(r.replicates, 4);
   cr_assert_eq(r.evaluations, (uint64_t)r.replicates * 65536);
   bk_result_close(&r);
   bk_study_free(s);
