@@ -27,6 +27,7 @@
 #include "report.h"
 #include "stop.h"
 #include "study.h"
+#include "template.h"
 
 static const char usage_text[] =
     "usage: brink COMMAND [OPTIONS]\n"
@@ -574,6 +575,46 @@ static int cmd_check(int argc, char **argv) {
     double g = bk_expr_eval(s->g, med);
     printf("  at the medians g = %.6g (%s)\n", g,
            g <= 0 ? "failed" : "safe");
+  } else {
+    const bk_model_t *m = &s->model;
+    printf("\nModel\n  command   ");
+    for (size_t i = 0; i < m->argc; i++)
+      printf("%s%s", i ? " " : "", m->argv[i]);
+    printf("\n  timeout   %s", m->timeout > 0 ? "" : "none");
+    if (m->timeout > 0)
+      printf("%g s", m->timeout);
+    printf(", retries %d, on_error %s, keep %s\n", m->retries,
+           m->on_error == BK_ON_ERROR_SKIP   ? "skip"
+           : m->on_error == BK_ON_ERROR_FAIL ? "fail"
+                                             : "abort",
+           (const char *[]){"all", "failed", "errors", "none"}[m->keep]);
+    for (size_t i = 0; i < m->noutputs; i++)
+      printf("  output    %s from %s, pattern %s (%s match)\n",
+             m->outputs[i].name,
+             m->outputs[i].from_stdout ? "stdout" : m->outputs[i].file,
+             m->outputs[i].pattern,
+             (const char *[]){"first", "last", "max",
+                              "min"}[m->outputs[i].match]);
+    for (size_t i = 0; i < m->ndecks; i++) {
+      bk_buf_t deck;
+      bk_buf_init(&deck);
+      bk_template_ctx_t ctx = {med, 0, "check/0", "(run folder)"};
+      bk_template_render(m->decks[i].tpl, &ctx, &deck);
+      printf("\n%s rendered at the medians (from %s):\n", m->decks[i].to,
+             m->decks[i].template_name);
+      int lines = 0;
+      const char *p = deck.data ? deck.data : "";
+      while (*p && lines < 60) {
+        const char *nl = strchr(p, '\n');
+        size_t len = nl ? (size_t)(nl - p) : strlen(p);
+        printf("  | %.*s\n", (int)len, p);
+        lines++;
+        p += len + (nl ? 1 : 0);
+      }
+      if (*p)
+        printf("  | ... (%zu bytes in all)\n", deck.len);
+      bk_buf_close(&deck);
+    }
   }
   const bk_analysis_t *a = &s->analysis;
   printf("\nMethod %s, seed %llu\n", bk_method_name(a->method),
