@@ -1,7 +1,7 @@
 /*
  * Baseline for the executor benchmark: spawns a program N times with at
  * most C running at once (fork, exec, waitpid), each in a folder of its
- * own with stdout to a file, and nothing else: no templates, no
+ * own with stdout and stderr to files, and nothing else: no templates, no
  * extraction, no records. Usage: bench_spawn N C FOLDER PROGRAM [ARGS...]
  *
  * SPDX-License-Identifier: MIT
@@ -34,7 +34,9 @@ int main(int argc, char **argv) {
         if (chdir(dir) != 0)
           _exit(126);
         int fd = open("stdout", O_WRONLY | O_CREAT | O_TRUNC, 0666);
+        int fe = open("stderr", O_WRONLY | O_CREAT | O_TRUNC, 0666);
         dup2(fd, 1);
+        dup2(fe, 2);
         execvp(argv[4], argv + 4);
         _exit(127);
       }
