@@ -49,6 +49,27 @@ typedef struct {
   double ci[2];
 } bk_history_t;
 
+/* A design point found by FORM (form, and importance without a given
+ * center). Arrays are owned by the result. */
+typedef struct {
+  int present;
+  int converged;
+  int iterations;
+  double beta;    /* FORM reliability index, distance to the origin in u */
+  double pf_form; /* Phi(-beta) */
+  double pf_sorm; /* Breitung SORM; NaN when not computed */
+  double *u;      /* nu coordinates */
+  double *x;      /* nvars physical values */
+  double *alpha2; /* nvars importance factors (0 for constants), sum 1 */
+} bk_design_point_t;
+
+/* A labelled number a method wants reported (levels of subset simulation,
+ * effective sample size, ...). */
+typedef struct {
+  char label[64];
+  double value;
+} bk_detail_t;
+
 /* What a method reports back. Owned by the caller; bk_result_close frees
  * the arrays. */
 typedef struct {
@@ -56,9 +77,9 @@ typedef struct {
   bk_estimate_t est;
   uint64_t evaluations; /* model calls, all of them */
   uint64_t model_errors;
-  uint64_t excluded;    /* runs left out of the estimate (on_error: skip) */
-  double pf_bounds[2];  /* excluded runs taken as safe / as failed */
-  uint32_t replicates;  /* lhs, sobol: replicates completed */
+  uint64_t excluded;   /* runs left out of the estimate (on_error: skip) */
+  double pf_bounds[2]; /* excluded runs taken as safe / as failed */
+  uint32_t replicates; /* lhs, sobol: replicates completed */
   uint64_t per_replicate;
   double *replicate_pf;
   const char *stop_reason; /* "target_cov reached", "samples done", ... */
@@ -66,6 +87,11 @@ typedef struct {
   size_t nhistory;
   size_t caphistory;
   double seconds;
+  bk_design_point_t dp;
+  char **warnings; /* evidence against the method's result */
+  size_t nwarnings;
+  bk_detail_t *details;
+  size_t ndetails;
 } bk_result_t;
 
 void bk_result_close(bk_result_t *r);
@@ -93,5 +119,26 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
 
 /* Appends a history entry; returns 0 or BK_ENOMEM. */
 int bk__result_push_history(bk_result_t *r);
+/* Adds a warning (printed in reports); returns 0 or BK_ENOMEM. */
+int bk__result_warn(bk_result_t *r, const char *fmt, ...)
+    __attribute__((format(printf, 2, 3)));
+/* Adds a labelled number to the report; returns 0 or BK_ENOMEM. */
+int bk__result_detail(bk_result_t *r, const char *label, double value);
+/* Allocates dp's arrays for nu and nvars; returns 0 or BK_ENOMEM. */
+int bk__result_design_point(bk_result_t *r, size_t nu, size_t nvars);
+
+/* The other methods, one file each. */
+int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,
+                    const bk_method_opts_t *opts, bk_result_t *res,
+                    bk_error_t *err);
+int bk__method_importance(const bk_study_t *s, bk_evaluator_t *ev,
+                          const bk_method_opts_t *opts, bk_result_t *res,
+                          bk_error_t *err);
+int bk__method_cross_entropy(const bk_study_t *s, bk_evaluator_t *ev,
+                             const bk_method_opts_t *opts, bk_result_t *res,
+                             bk_error_t *err);
+int bk__method_subset(const bk_study_t *s, bk_evaluator_t *ev,
+                      const bk_method_opts_t *opts, bk_result_t *res,
+                      bk_error_t *err);
 
 #endif

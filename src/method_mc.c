@@ -29,7 +29,7 @@
  * they are small enough that a study stops soon after reaching target_cov,
  * and large enough to keep every slot busy. */
 #define BATCH_INPROCESS 65536u
-#define BATCH_MODEL 256u
+#define BATCH_MODEL     256u
 /* The most doubles of inputs held for one chunk (32 MiB). */
 #define CHUNK_DOUBLES (4u << 20)
 /* The error fraction limit is applied after this many evaluations. */
@@ -230,8 +230,8 @@ static int run_replicated(mc_t *m) {
     r->replicates = j + 1;
     uint64_t tn, tk;
     policy_counts(m, m->total_n, m->total_k, m->total_e, &tn, &tk);
-    bk_estimate_replicates(r->replicate_pf, r->replicates, per, tk,
-                           a->ci_level, &r->est);
+    bk_estimate_replicates(r->replicate_pf, r->replicates, per, tk, a->ci_level,
+                           &r->est);
     r->est.n = tn;
     fill_common(m);
     if ((rc = bk__result_push_history(r)))

@@ -129,6 +129,49 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     key(o, "meets_target_beta", &first);
     bk_buf_puts(o, e->beta >= s->analysis.target_beta ? "true" : "false");
   }
+  if (r->dp.present) {
+    key(o, "design_point", &first);
+    bk_buf_printf(o, "{\"converged\": %s, \"iterations\": %d, \"beta\": ",
+                  r->dp.converged ? "true" : "false", r->dp.iterations);
+    bk_json_number(o, r->dp.beta);
+    bk_buf_puts(o, ", \"pf_form\": ");
+    bk_json_number(o, r->dp.pf_form);
+    bk_buf_puts(o, ", \"pf_sorm\": ");
+    bk_json_number(o, r->dp.pf_sorm);
+    bk_buf_puts(o, ", \"x\": {");
+    for (size_t i = 0; i < s->nvars; i++) {
+      bk_buf_puts(o, i ? ", " : "");
+      bk_json_string(o, s->vars[i].name);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->dp.x[i]);
+    }
+    bk_buf_puts(o, "}, \"alpha2\": {");
+    for (size_t i = 0; i < s->nvars; i++) {
+      bk_buf_puts(o, i ? ", " : "");
+      bk_json_string(o, s->vars[i].name);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->dp.alpha2[i]);
+    }
+    bk_buf_puts(o, "}}");
+  }
+  if (r->ndetails) {
+    key(o, "details", &first);
+    bk_buf_putc(o, '{');
+    for (size_t i = 0; i < r->ndetails; i++) {
+      bk_buf_puts(o, i ? ", " : "");
+      bk_json_string(o, r->details[i].label);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->details[i].value);
+    }
+    bk_buf_putc(o, '}');
+  }
+  key(o, "warnings", &first);
+  bk_buf_putc(o, '[');
+  for (size_t i = 0; i < r->nwarnings; i++) {
+    bk_buf_puts(o, i ? ", " : "");
+    bk_json_string(o, r->warnings[i]);
+  }
+  bk_buf_putc(o, ']');
   key(o, "stop_reason", &first);
   bk_json_string(o, r->stop_reason ? r->stop_reason : "");
   key(o, "seconds", &first);
@@ -214,12 +257,34 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   }
   if (s->analysis.has_target_beta) {
     double tb = s->analysis.target_beta;
-    const char *verdict = e->beta_ci[0] >= tb   ? "met"
-                          : e->beta < tb        ? "not met"
-                                                : "met by the estimate, "
-                                                  "not by its interval";
+    const char *verdict = e->beta_ci[0] >= tb ? "met"
+                          : e->beta < tb      ? "not met"
+                                              : "met by the estimate, "
+                                                "not by its interval";
     bk_buf_printf(o, "  target beta          %.2f: %s\n", tb, verdict);
   }
+  if (r->dp.present) {
+    bk_buf_printf(o, "\n  design point (FORM, %s after %d iterations)\n",
+                  r->dp.converged ? "converged" : "NOT converged",
+                  r->dp.iterations);
+    bk_buf_puts(o, "    beta FORM          ");
+    fixed(o, r->dp.beta);
+    bk_buf_puts(o, "   Pf FORM ");
+    num(o, r->dp.pf_form);
+    if (!isnan(r->dp.pf_sorm)) {
+      bk_buf_puts(o, "   Pf SORM (Breitung) ");
+      num(o, r->dp.pf_sorm);
+    }
+    bk_buf_printf(o, "\n    %-16s %14s %10s\n", "variable", "value", "alpha^2");
+    for (size_t i = 0; i < s->nvars; i++)
+      bk_buf_printf(o, "    %-16s %14.6g %10.4f\n", s->vars[i].name, r->dp.x[i],
+                    r->dp.alpha2[i]);
+  }
+  for (size_t i = 0; i < r->ndetails; i++)
+    bk_buf_printf(o, "  %-20s %.6g\n", r->details[i].label,
+                  r->details[i].value);
+  for (size_t i = 0; i < r->nwarnings; i++)
+    bk_buf_printf(o, "  WARNING: %s\n", r->warnings[i]);
   bk_buf_printf(o, "  stopped because      %s", r->stop_reason);
   if (s->analysis.target_cov > 0 && !(e->cov <= s->analysis.target_cov))
     bk_buf_printf(o, " (target_cov %g not reached)", s->analysis.target_cov);

@@ -104,7 +104,8 @@ static const char *scalar(const yaml_node_t *n) {
 }
 
 static int is_null_scalar(const yaml_node_t *n) {
-  if (n->type != YAML_SCALAR_NODE || n->data.scalar.style != YAML_PLAIN_SCALAR_STYLE)
+  if (n->type != YAML_SCALAR_NODE ||
+      n->data.scalar.style != YAML_PLAIN_SCALAR_STYLE)
     return 0;
   const char *v = scalar(n);
   return v[0] == '\0' || strcmp(v, "~") == 0 || strcmp(v, "null") == 0;
@@ -131,9 +132,9 @@ static int want_number(loader_t *L, yaml_node_t *n, const char *what,
   while (*end == ' ')
     end++;
   if (end == v || *end != '\0' || !isfinite(d) ||
-      (v[0] && (v[1] == 'x' || v[1] == 'X' || (v[0] != '-' && v[0] != '+' &&
-                                               v[0] != '.' &&
-                                               !isdigit((unsigned char)v[0])))))
+      (v[0] && (v[1] == 'x' || v[1] == 'X' ||
+                (v[0] != '-' && v[0] != '+' && v[0] != '.' &&
+                 !isdigit((unsigned char)v[0])))))
     return FAIL(L, n, "%s must be a number, got '%s'", what, v);
   *out = d;
   return 0;
@@ -209,8 +210,8 @@ static yaml_node_t *lookup(loader_t *L, yaml_node_t *m, const char *key) {
 
 static int want_mapping(loader_t *L, yaml_node_t *n, const char *what) {
   if (n->type != YAML_MAPPING_NODE)
-    return FAIL(L, n, "%s must be a mapping (name: value lines), got %s",
-                what, is_null_scalar(n) ? "nothing" : kind_word(n));
+    return FAIL(L, n, "%s must be a mapping (name: value lines), got %s", what,
+                is_null_scalar(n) ? "nothing" : kind_word(n));
   return 0;
 }
 
@@ -403,7 +404,8 @@ static int load_variable(loader_t *L, yaml_node_t *k, yaml_node_t *v,
         strncat(list, bk_param_name((bk_param_t)i),
                 sizeof list - strlen(list) - 1);
       }
-      return FAIL(L, pk, "unknown key '%s' in variable '%s'; expected one of: %s",
+      return FAIL(L, pk,
+                  "unknown key '%s' in variable '%s'; expected one of: %s",
                   scalar(pk), name, list);
     }
     char what[160];
@@ -417,9 +419,8 @@ static int load_variable(loader_t *L, yaml_node_t *k, yaml_node_t *v,
   int bad = -1;
   if (bk_dist_init(&var->dist, (bk_dist_kind_t)kind, &spec, why, sizeof why,
                    &bad)) {
-    yaml_node_t *at = (bad >= 0 && bad < BK_PARAM__COUNT && pnode[bad])
-                          ? pnode[bad]
-                          : v;
+    yaml_node_t *at =
+        (bad >= 0 && bad < BK_PARAM__COUNT && pnode[bad]) ? pnode[bad] : v;
     if (bad >= 0 && bad < BK_PARAM__COUNT && pnode[bad]) {
       /* Point at the key, which reads better than the value. */
       for (yaml_node_pair_t *p = v->data.mapping.pairs.start;
@@ -439,7 +440,8 @@ static int load_variables(loader_t *L, yaml_node_t *vn) {
     return rc;
   if ((rc = check_keys(L, vn, "variables", NULL)))
     return rc;
-  size_t n = (size_t)(vn->data.mapping.pairs.top - vn->data.mapping.pairs.start);
+  size_t n =
+      (size_t)(vn->data.mapping.pairs.top - vn->data.mapping.pairs.start);
   if (n == 0)
     return FAIL(L, vn, "variables must name at least one variable");
   s->vars = bk_calloc(n, sizeof *s->vars);
@@ -471,7 +473,8 @@ static int load_correlations(loader_t *L, yaml_node_t *cn) {
   int rc = want_sequence(L, cn, "correlations");
   if (rc)
     return rc;
-  size_t n = (size_t)(cn->data.sequence.items.top - cn->data.sequence.items.start);
+  size_t n =
+      (size_t)(cn->data.sequence.items.top - cn->data.sequence.items.start);
   yaml_node_t **items = bk_calloc(n, sizeof *items);
   s->corr = bk_calloc(n, sizeof *s->corr);
   if (!s->corr || !items) {
@@ -509,8 +512,9 @@ static int load_correlations(loader_t *L, yaml_node_t *cn) {
     if ((rc = want_number(L, nr, "a correlation coefficient", &rho)))
       goto done;
     if (!(rho > -1 && rho < 1)) {
-      rc = FAIL(L, nr, "correlation of %s and %s must lie strictly between "
-                       "-1 and 1 (got %g)",
+      rc = FAIL(L, nr,
+                "correlation of %s and %s must lie strictly between "
+                "-1 and 1 (got %g)",
                 a, b, rho);
       goto done;
     }
@@ -536,8 +540,8 @@ static int build_transform(loader_t *L, yaml_node_t *cn) {
     d[i] = s->vars[i].dist;
   char why[300] = "";
   int bad = -1;
-  int rc = bk_transform_new(&s->transform, s->nvars, d, s->ncorr, s->corr,
-                            why, sizeof why, &bad);
+  int rc = bk_transform_new(&s->transform, s->nvars, d, s->ncorr, s->corr, why,
+                            sizeof why, &bad);
   bk_free(d);
   if (rc == 0)
     return 0;
@@ -559,7 +563,8 @@ static int load_string_list(loader_t *L, yaml_node_t *n, const char *what,
   int rc = want_sequence(L, n, what);
   if (rc)
     return rc;
-  size_t cnt = (size_t)(n->data.sequence.items.top - n->data.sequence.items.start);
+  size_t cnt =
+      (size_t)(n->data.sequence.items.top - n->data.sequence.items.start);
   char **v = bk_calloc(cnt + 1, sizeof *v);
   if (!v)
     return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
@@ -582,7 +587,8 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
     return rc;
   if ((rc = check_keys(L, on, "model.outputs", NULL)))
     return rc;
-  size_t n = (size_t)(on->data.mapping.pairs.top - on->data.mapping.pairs.start);
+  size_t n =
+      (size_t)(on->data.mapping.pairs.top - on->data.mapping.pairs.start);
   m->outputs = bk_calloc(n ? n : 1, sizeof *m->outputs);
   if (!m->outputs)
     return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
@@ -594,17 +600,20 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
     bk_output_t *o = &m->outputs[m->noutputs++];
     const char *name = scalar(k);
     if (!is_identifier(name) || name[0] == '_')
-      return FAIL(L, k, "output name '%s' must start with a letter and "
-                        "contain only letters, digits and '_'",
+      return FAIL(L, k,
+                  "output name '%s' must start with a letter and "
+                  "contain only letters, digits and '_'",
                   name);
     if (var_index(L->s, name) >= 0)
-      return FAIL(L, k, "output '%s' has the name of a variable; choose "
-                        "another name",
+      return FAIL(L, k,
+                  "output '%s' has the name of a variable; choose "
+                  "another name",
                   name);
     o->name = bk_strdup(name);
     char where[160];
     snprintf(where, sizeof where, "output '%s'", name);
-    if ((rc = want_mapping(L, v, where)) || (rc = check_keys(L, v, where, keys)))
+    if ((rc = want_mapping(L, v, where)) ||
+        (rc = check_keys(L, v, where, keys)))
       return rc;
     yaml_node_t *fn = lookup(L, v, "file"), *sn = lookup(L, v, "stdout");
     yaml_node_t *pn = lookup(L, v, "pattern"), *mn = lookup(L, v, "match");
@@ -618,26 +627,30 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
         return FAIL(L, sn, "stdout must be true or false, got '%s'", t);
     }
     if (fn && o->from_stdout)
-      return FAIL(L, fn, "output '%s': give either file or stdout: true, "
-                         "not both",
+      return FAIL(L, fn,
+                  "output '%s': give either file or stdout: true, "
+                  "not both",
                   name);
     if (!fn && !o->from_stdout)
-      return FAIL(L, v, "output '%s' needs a file to read (file: NAME) or "
-                        "stdout: true",
+      return FAIL(L, v,
+                  "output '%s' needs a file to read (file: NAME) or "
+                  "stdout: true",
                   name);
     if (fn) {
       const char *t;
       if ((rc = want_text(L, fn, "file", &t)))
         return rc;
       if (t[0] == '/' || strstr(t, ".."))
-        return FAIL(L, fn, "output file '%s' must be a path inside the run "
-                           "folder (no leading '/' and no '..')",
+        return FAIL(L, fn,
+                    "output file '%s' must be a path inside the run "
+                    "folder (no leading '/' and no '..')",
                     t);
       o->file = bk_strdup(t);
     }
     if (!pn)
-      return FAIL(L, v, "output '%s' needs a pattern (a regular expression "
-                        "whose first group is the number)",
+      return FAIL(L, v,
+                  "output '%s' needs a pattern (a regular expression "
+                  "whose first group is the number)",
                   name);
     const char *pat;
     if ((rc = want_text(L, pn, "pattern", &pat)))
@@ -661,8 +674,9 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
         if (strcmp(t, mnames[i]) == 0)
           found = i;
       if (found < 0)
-        return FAIL(L, mn, "match must be one of first, last, max, min; got "
-                           "'%s'",
+        return FAIL(L, mn,
+                    "match must be one of first, last, max, min; got "
+                    "'%s'",
                     t);
       o->match = (bk_match_t)found;
     }
@@ -675,7 +689,8 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
   int rc = want_sequence(L, fn, "model.files");
   if (rc)
     return rc;
-  size_t n = (size_t)(fn->data.sequence.items.top - fn->data.sequence.items.start);
+  size_t n =
+      (size_t)(fn->data.sequence.items.top - fn->data.sequence.items.start);
   m->decks = bk_calloc(n ? n : 1, sizeof *m->decks);
   if (!m->decks)
     return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
@@ -717,8 +732,8 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
     d->digest = bk_strdup(hex);
     bk_error_t terr;
     bk_error_clear(&terr);
-    int prc = bk_template_parse(d->template_path, text, len, &names, &d->tpl,
-                                &terr);
+    int prc =
+        bk_template_parse(d->template_path, text, len, &names, &d->tpl, &terr);
     bk_free(text);
     if (prc) {
       /* The template's own location is the useful one. */
@@ -748,8 +763,8 @@ static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
     const char *colon = strchr(p, ':');
     size_t len = colon ? (size_t)(colon - p) : strlen(p);
     char cand[4096];
-    snprintf(cand, sizeof cand, "%.*s/%s", (int)(len ? len : 1),
-             len ? p : ".", prog);
+    snprintf(cand, sizeof cand, "%.*s/%s", (int)(len ? len : 1), len ? p : ".",
+             prog);
     struct stat st;
     if (stat(cand, &st) == 0 && S_ISREG(st.st_mode) && access(cand, X_OK) == 0)
       return 0;
@@ -757,17 +772,18 @@ static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
     if (*p == ':')
       p++;
   }
-  return FAIL(L, n, "program '%s' is not on PATH; install it or give its "
-                    "full path",
+  return FAIL(L, n,
+              "program '%s' is not on PATH; install it or give its "
+              "full path",
               prog);
 }
 
 static int load_model(loader_t *L, yaml_node_t *mn) {
   bk_model_t *m = &L->s->model;
   static const char *const keys[] = {
-      "files",   "copy",     "command", "env",
-      "timeout", "retries",  "on_error", "max_error_fraction",
-      "outputs", "keep",     NULL};
+      "files",   "copy",    "command",  "env",
+      "timeout", "retries", "on_error", "max_error_fraction",
+      "outputs", "keep",    NULL};
   int rc = want_mapping(L, mn, "model");
   if (rc || (rc = check_keys(L, mn, "model", keys)))
     return rc;
@@ -796,8 +812,9 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
   }
   yaml_node_t *cn = lookup(L, mn, "command");
   if (!cn)
-    return FAIL(L, mn, "model needs a command, e.g. command: [ccx, -i, "
-                       "beam]");
+    return FAIL(L, mn,
+                "model needs a command, e.g. command: [ccx, -i, "
+                "beam]");
   if ((rc = load_string_list(L, cn, "model.command", &m->argv, &m->argc)))
     return rc;
   if (m->argc == 0)
@@ -809,7 +826,8 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
     if ((rc = want_mapping(L, n, "model.env")) ||
         (rc = check_keys(L, n, "model.env", NULL)))
       return rc;
-    size_t cnt = (size_t)(n->data.mapping.pairs.top - n->data.mapping.pairs.start);
+    size_t cnt =
+        (size_t)(n->data.mapping.pairs.top - n->data.mapping.pairs.start);
     m->env = bk_calloc(cnt + 1, sizeof *m->env);
     if (!m->env)
       return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
@@ -862,8 +880,9 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
                           &m->max_error_fraction)))
       return rc;
     if (!(m->max_error_fraction >= 0 && m->max_error_fraction <= 1))
-      return FAIL(L, n, "model.max_error_fraction must be between 0 and 1 "
-                        "(got %g)",
+      return FAIL(L, n,
+                  "model.max_error_fraction must be between 0 and 1 "
+                  "(got %g)",
                   m->max_error_fraction);
   }
   if ((n = lookup(L, mn, "keep"))) {
@@ -876,8 +895,9 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
       if (strcmp(t, kn[i]) == 0)
         found = i;
     if (found < 0)
-      return FAIL(L, n, "model.keep must be all, failed, errors or none; got "
-                        "'%s'",
+      return FAIL(L, n,
+                  "model.keep must be all, failed, errors or none; got "
+                  "'%s'",
                   t);
     m->keep = (bk_keep_t)found;
   }
@@ -888,11 +908,170 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
 
 /* ---- analysis and run ----------------------------------------------- */
 
+static int want_positive(loader_t *L, yaml_node_t *n, const char *what,
+                         double *out) {
+  int rc = want_number(L, n, what, out);
+  if (rc == 0 && !(*out > 0))
+    return FAIL(L, n, "%s must be > 0 (got %g)", what, *out);
+  return rc;
+}
+
+static int want_int_range(loader_t *L, yaml_node_t *n, const char *what, int lo,
+                          int hi, int *out) {
+  uint64_t v;
+  int rc = want_count(L, n, what, (uint64_t)lo, &v);
+  if (rc)
+    return rc;
+  if (v > (uint64_t)hi)
+    return FAIL(L, n, "%s must be at most %d (got %llu)", what, hi,
+                (unsigned long long)v);
+  *out = (int)v;
+  return 0;
+}
+
+/* The method sections analysis.form, .importance, .cross_entropy and
+ * .subset, each optional, with their defaults. */
+static int load_method_options(loader_t *L, yaml_node_t *an) {
+  bk_analysis_t *a = &L->s->analysis;
+  a->form.step = 1e-3;
+  a->form.central = 0;
+  a->form.max_iterations = 100;
+  a->form.tolerance = 1e-3;
+  a->form.sorm = 0;
+  a->cross_entropy.components = 1;
+  a->cross_entropy.rho = 0.1;
+  a->cross_entropy.max_steps = 30;
+  a->subset.p0 = 0.1;
+  a->subset.max_levels = 20;
+  if (!an)
+    return 0;
+  int rc;
+  yaml_node_t *m, *n;
+  if ((m = lookup(L, an, "form"))) {
+    static const char *const keys[] = {
+        "step", "differences", "max_iterations", "tolerance", "sorm", NULL};
+    if ((rc = want_mapping(L, m, "analysis.form")) ||
+        (rc = check_keys(L, m, "analysis.form", keys)))
+      return rc;
+    if ((n = lookup(L, m, "step")) &&
+        (rc = want_positive(L, n, "analysis.form.step", &a->form.step)))
+      return rc;
+    if ((n = lookup(L, m, "tolerance")) &&
+        (rc = want_positive(L, n, "analysis.form.tolerance",
+                            &a->form.tolerance)))
+      return rc;
+    if ((n = lookup(L, m, "max_iterations")) &&
+        (rc = want_int_range(L, n, "analysis.form.max_iterations", 1, 10000,
+                             &a->form.max_iterations)))
+      return rc;
+    if ((n = lookup(L, m, "differences"))) {
+      const char *t;
+      if ((rc = want_text(L, n, "analysis.form.differences", &t)))
+        return rc;
+      if (strcmp(t, "central") == 0)
+        a->form.central = 1;
+      else if (strcmp(t, "forward") != 0)
+        return FAIL(L, n,
+                    "analysis.form.differences must be forward or "
+                    "central; got '%s'",
+                    t);
+    }
+    if ((n = lookup(L, m, "sorm"))) {
+      const char *t;
+      if ((rc = want_text(L, n, "analysis.form.sorm", &t)))
+        return rc;
+      if (strcmp(t, "true") == 0)
+        a->form.sorm = 1;
+      else if (strcmp(t, "false") != 0)
+        return FAIL(L, n,
+                    "analysis.form.sorm must be true or false; got "
+                    "'%s'",
+                    t);
+    }
+  }
+  if ((m = lookup(L, an, "importance"))) {
+    static const char *const keys[] = {"center", NULL};
+    if ((rc = want_mapping(L, m, "analysis.importance")) ||
+        (rc = check_keys(L, m, "analysis.importance", keys)))
+      return rc;
+    if ((n = lookup(L, m, "center"))) {
+      bk_study_t *s = L->s;
+      if ((rc = want_mapping(L, n, "analysis.importance.center")) ||
+          (rc = check_keys(L, n, "analysis.importance.center", NULL)))
+        return rc;
+      a->importance.center = bk_calloc(s->nvars, sizeof(double));
+      if (!a->importance.center)
+        return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+      for (size_t i = 0; i < s->nvars; i++)
+        a->importance.center[i] = bk_dist_median(&s->vars[i].dist);
+      for (yaml_node_pair_t *p = n->data.mapping.pairs.start;
+           p < n->data.mapping.pairs.top; p++) {
+        yaml_node_t *k = node_at(L, p->key), *v = node_at(L, p->value);
+        int idx = var_index(s, scalar(k));
+        if (idx < 0)
+          return FAIL(L, k,
+                      "unknown variable '%s' in "
+                      "analysis.importance.center",
+                      scalar(k));
+        if ((rc = want_number(L, v, "a design-point coordinate",
+                              &a->importance.center[idx])))
+          return rc;
+      }
+      a->importance.has_center = 1;
+    }
+  }
+  if ((m = lookup(L, an, "cross_entropy"))) {
+    static const char *const keys[] = {"components", "rho", "max_steps", NULL};
+    if ((rc = want_mapping(L, m, "analysis.cross_entropy")) ||
+        (rc = check_keys(L, m, "analysis.cross_entropy", keys)))
+      return rc;
+    if ((n = lookup(L, m, "components")) &&
+        (rc = want_int_range(L, n, "analysis.cross_entropy.components", 1, 64,
+                             &a->cross_entropy.components)))
+      return rc;
+    if ((n = lookup(L, m, "max_steps")) &&
+        (rc = want_int_range(L, n, "analysis.cross_entropy.max_steps", 1, 1000,
+                             &a->cross_entropy.max_steps)))
+      return rc;
+    if ((n = lookup(L, m, "rho"))) {
+      if ((rc = want_number(L, n, "analysis.cross_entropy.rho",
+                            &a->cross_entropy.rho)))
+        return rc;
+      if (!(a->cross_entropy.rho > 0 && a->cross_entropy.rho < 0.5))
+        return FAIL(L, n,
+                    "analysis.cross_entropy.rho must lie between 0 "
+                    "and 0.5 (got %g), e.g. 0.1",
+                    a->cross_entropy.rho);
+    }
+  }
+  if ((m = lookup(L, an, "subset"))) {
+    static const char *const keys[] = {"p0", "max_levels", NULL};
+    if ((rc = want_mapping(L, m, "analysis.subset")) ||
+        (rc = check_keys(L, m, "analysis.subset", keys)))
+      return rc;
+    if ((n = lookup(L, m, "max_levels")) &&
+        (rc = want_int_range(L, n, "analysis.subset.max_levels", 1, 100,
+                             &a->subset.max_levels)))
+      return rc;
+    if ((n = lookup(L, m, "p0"))) {
+      if ((rc = want_number(L, n, "analysis.subset.p0", &a->subset.p0)))
+        return rc;
+      if (!(a->subset.p0 > 0 && a->subset.p0 <= 0.5))
+        return FAIL(L, n,
+                    "analysis.subset.p0 must lie in (0, 0.5] (got "
+                    "%g), e.g. 0.1",
+                    a->subset.p0);
+    }
+  }
+  return 0;
+}
+
 static int load_analysis(loader_t *L, yaml_node_t *an) {
   bk_analysis_t *a = &L->s->analysis;
   static const char *const keys[] = {
-      "method",      "samples",         "replicates", "target_cov",
-      "max_evaluations", "target_beta", "ci_level",   NULL};
+      "method",          "samples",       "replicates", "target_cov",
+      "max_evaluations", "target_beta",   "ci_level",   "form",
+      "importance",      "cross_entropy", "subset",     NULL};
   int rc;
   yaml_node_t *n;
   if (an) {
@@ -911,12 +1090,9 @@ static int load_analysis(loader_t *L, yaml_node_t *an) {
       if (strcmp(t, method_names[i]) == 0)
         found = i;
     if (found < 0)
-      return FAIL(L, n, "unknown method '%s'; expected one of random, lhs, "
-                        "sobol, form, importance, cross-entropy, subset",
-                  t);
-    if (found > BK_METHOD_SOBOL)
-      return FAIL(L, n, "method '%s' is not available in this version of "
-                        "brink; use random, lhs or sobol",
+      return FAIL(L, n,
+                  "unknown method '%s'; expected one of random, lhs, "
+                  "sobol, form, importance, cross-entropy, subset",
                   t);
     a->method = (bk_method_kind_t)found;
   }
@@ -944,10 +1120,13 @@ static int load_analysis(loader_t *L, yaml_node_t *an) {
     if ((rc = want_number(L, n, "analysis.ci_level", &a->ci_level)))
       return rc;
     if (!(a->ci_level >= 0.5 && a->ci_level < 1))
-      return FAIL(L, n, "analysis.ci_level must be at least 0.5 and below 1 "
-                        "(got %g), e.g. 0.95",
+      return FAIL(L, n,
+                  "analysis.ci_level must be at least 0.5 and below 1 "
+                  "(got %g), e.g. 0.95",
                   a->ci_level);
   }
+  if ((rc = load_method_options(L, an)))
+    return rc;
   int replicated = a->method == BK_METHOD_LHS || a->method == BK_METHOD_SOBOL;
   yaml_node_t *rn = an ? lookup(L, an, "replicates") : NULL;
   a->replicates = 1;
@@ -970,17 +1149,41 @@ static int load_analysis(loader_t *L, yaml_node_t *an) {
                   "evaluations, split over the replicates)",
                   method_names[a->method]);
     if (a->samples < a->replicates)
-      return FAIL(L, sn, "analysis.samples (%llu) must be at least the "
-                         "number of replicates (%u)",
+      return FAIL(L, sn,
+                  "analysis.samples (%llu) must be at least the "
+                  "number of replicates (%u)",
                   (unsigned long long)a->samples, a->replicates);
-  } else if (!a->samples && !a->target_cov) {
+  } else if (a->method == BK_METHOD_RANDOM && !a->samples && !a->target_cov) {
     return FAIL(L, an ? an : node_at(L, 1),
                 "give analysis.samples (the number of evaluations) or "
                 "analysis.target_cov (stop once the estimate is that "
                 "precise)");
   }
-  if (!a->max_evaluations)
-    a->max_evaluations = a->samples ? a->samples : 10000000;
+  switch (a->method) {
+  case BK_METHOD_IMPORTANCE:
+  case BK_METHOD_CROSS_ENTROPY:
+    /* samples: evaluations per batch; stop on target_cov. */
+    if (!a->samples)
+      a->samples = 500;
+    if (!(a->target_cov > 0))
+      a->target_cov = 0.1;
+    if (!a->max_evaluations)
+      a->max_evaluations = 200000;
+    break;
+  case BK_METHOD_SUBSET:
+    if (!a->samples)
+      a->samples = 1000; /* per level */
+    if (!a->max_evaluations)
+      a->max_evaluations = 10000000;
+    break;
+  case BK_METHOD_FORM:
+    if (!a->max_evaluations)
+      a->max_evaluations = 1000000;
+    break;
+  default:
+    if (!a->max_evaluations)
+      a->max_evaluations = a->samples ? a->samples : 10000000;
+  }
   return 0;
 }
 
@@ -1081,10 +1284,20 @@ static int make_digests(bk_study_t *s) {
   for (size_t i = 0; i < s->ncorr; i++)
     bk_buf_printf(&b, "corr %s %s %a\n", s->vars[s->corr[i].a].name,
                   s->vars[s->corr[i].b].name, s->corr[i].rho);
+  const bk_analysis_t *an = &s->analysis;
   bk_buf_printf(&b, "g %s\nmethod %s samples %llu replicates %u\n",
-                s->limit_state, bk_method_name(s->analysis.method),
-                (unsigned long long)s->analysis.samples,
-                s->analysis.replicates);
+                s->limit_state, bk_method_name(an->method),
+                (unsigned long long)an->samples, an->replicates);
+  if (an->method >= BK_METHOD_FORM) {
+    bk_buf_printf(&b, "form %a %d %d %a %d\n", an->form.step, an->form.central,
+                  an->form.max_iterations, an->form.tolerance, an->form.sorm);
+    bk_buf_printf(&b, "ce %d %a %d\nsubset %a %d\n",
+                  an->cross_entropy.components, an->cross_entropy.rho,
+                  an->cross_entropy.max_steps, an->subset.p0,
+                  an->subset.max_levels);
+    for (size_t i = 0; an->importance.has_center && i < s->nvars; i++)
+      bk_buf_printf(&b, "center %a\n", an->importance.center[i]);
+  }
   if (!b.data)
     return BK_ENOMEM;
   char hex[33];
@@ -1130,19 +1343,20 @@ static char *dirname_of(const char *path) {
 static char *stem_of(const char *path) {
   const char *base = strrchr(path, '/') ? strrchr(path, '/') + 1 : path;
   const char *dot = strrchr(base, '.');
-  return bk_strndup(base, dot && dot != base ? (size_t)(dot - base)
-                                             : strlen(base));
+  return bk_strndup(base,
+                    dot && dot != base ? (size_t)(dot - base) : strlen(base));
 }
 
 static int load_root(loader_t *L, yaml_node_t *root) {
   bk_study_t *s = L->s;
-  static const char *const keys[] = {"name",        "seed",  "variables",
+  static const char *const keys[] = {"name",         "seed",  "variables",
                                      "correlations", "model", "limit_state",
-                                     "analysis",    "run",   NULL};
+                                     "analysis",     "run",   NULL};
   int rc;
   if (root->type != YAML_MAPPING_NODE)
-    return FAIL(L, root, "a study file is a mapping with at least "
-                         "'variables' and 'limit_state'; got %s",
+    return FAIL(L, root,
+                "a study file is a mapping with at least "
+                "'variables' and 'limit_state'; got %s",
                 kind_word(root));
   if ((rc = check_keys(L, root, "the study file", keys)))
     return rc;
@@ -1153,8 +1367,9 @@ static int load_root(loader_t *L, yaml_node_t *root) {
       return rc;
     for (const char *p = t; *p; p++)
       if (!(isalnum((unsigned char)*p) || *p == '-' || *p == '_' || *p == '.'))
-        return FAIL(L, n, "name '%s' may contain only letters, digits, '-', "
-                          "'_' and '.' (it names the run folder)",
+        return FAIL(L, n,
+                    "name '%s' may contain only letters, digits, '-', "
+                    "'_' and '.' (it names the run folder)",
                     t);
     s->name = bk_strdup(t);
   } else {
@@ -1169,15 +1384,17 @@ static int load_root(loader_t *L, yaml_node_t *root) {
     errno = 0;
     unsigned long long v = strtoull(t, &end, 10);
     if (!isdigit((unsigned char)t[0]) || *end || errno)
-      return FAIL(L, n, "seed must be a whole number from 0 to "
-                        "18446744073709551615, got '%s'",
+      return FAIL(L, n,
+                  "seed must be a whole number from 0 to "
+                  "18446744073709551615, got '%s'",
                   t);
     s->seed = v;
   }
   yaml_node_t *vn = lookup(L, root, "variables");
   if (!vn)
-    return FAIL(L, root, "the study file needs 'variables' (the basic "
-                         "random variables)");
+    return FAIL(L, root,
+                "the study file needs 'variables' (the basic "
+                "random variables)");
   if ((rc = load_variables(L, vn)))
     return rc;
   yaml_node_t *cn = lookup(L, root, "correlations");
@@ -1189,8 +1406,9 @@ static int load_root(loader_t *L, yaml_node_t *root) {
     return rc;
   yaml_node_t *gn = lookup(L, root, "limit_state");
   if (!gn)
-    return FAIL(L, root, "the study file needs 'limit_state', an expression "
-                         "that is <= 0 on failure, e.g. \"r - s\"");
+    return FAIL(L, root,
+                "the study file needs 'limit_state', an expression "
+                "that is <= 0 on failure, e.g. \"r - s\"");
   if ((rc = load_limit_state(L, gn)))
     return rc;
   if ((rc = load_analysis(L, lookup(L, root, "analysis"))))
@@ -1290,6 +1508,7 @@ void bk_study_free(bk_study_t *s) {
     bk_pattern_free(m->outputs[i].re);
   }
   bk_free(m->outputs);
+  bk_free(s->analysis.importance.center);
   bk_free(s->limit_state);
   bk_expr_free(s->g);
   bk_free(s->run.folder);

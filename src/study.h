@@ -28,8 +28,8 @@ typedef struct {
 
 typedef struct {
   char *name;
-  int from_stdout;   /* read the process's standard output */
-  char *file;        /* else this file, relative to the run folder */
+  int from_stdout; /* read the process's standard output */
+  char *file;      /* else this file, relative to the run folder */
   char *pattern;
   bk_match_t match;
   bk_pattern_t *re;
@@ -40,17 +40,26 @@ typedef struct {
   char *template_name; /* as written in the study file */
   char *to;            /* file name inside the run folder */
   bk_template_t *tpl;
-  char *digest;        /* of the template text, for the fingerprint */
+  char *digest; /* of the template text, for the fingerprint */
 } bk_deck_t;
 
-typedef enum { BK_ON_ERROR_SKIP, BK_ON_ERROR_FAIL, BK_ON_ERROR_ABORT } bk_on_error_t;
-typedef enum { BK_KEEP_ALL, BK_KEEP_FAILED, BK_KEEP_ERRORS, BK_KEEP_NONE } bk_keep_t;
+typedef enum {
+  BK_ON_ERROR_SKIP,
+  BK_ON_ERROR_FAIL,
+  BK_ON_ERROR_ABORT
+} bk_on_error_t;
+typedef enum {
+  BK_KEEP_ALL,
+  BK_KEEP_FAILED,
+  BK_KEEP_ERRORS,
+  BK_KEEP_NONE
+} bk_keep_t;
 
 typedef struct {
   int present; /* the study has a model: section */
   bk_deck_t *decks;
   size_t ndecks;
-  char **copy; /* paths (resolved) of static files */
+  char **copy;       /* paths (resolved) of static files */
   char **copy_names; /* as written */
   size_t ncopy;
   char **argv; /* NULL-terminated */
@@ -77,19 +86,53 @@ typedef enum {
   BK_METHOD__COUNT
 } bk_method_kind_t;
 
+/* analysis.form: the design-point search (form, and importance when no
+ * center is given). */
+typedef struct {
+  double step;        /* finite-difference step in u-space; 1e-3 */
+  int central;        /* differences: central (1) or forward (0) */
+  int max_iterations; /* 100 */
+  double tolerance;   /* convergence tolerance on u and g; 1e-3 */
+  int sorm;           /* also Breitung SORM from a curvature batch; 0 */
+} bk_form_opts_t;
+
+/* analysis.importance: sampling around a design point. */
+typedef struct {
+  int has_center; /* center given by the user (x-space) */
+  double *center; /* nvars values (constants keep their value) */
+} bk_importance_opts_t;
+
+/* analysis.cross_entropy: adaptive Gaussian-mixture importance sampling. */
+typedef struct {
+  int components; /* mixture components; 1 */
+  double rho;     /* quantile of the elite set; 0.1 */
+  int max_steps;  /* adaptation steps; 30 */
+} bk_ce_opts_t;
+
+/* analysis.subset: subset simulation. */
+typedef struct {
+  double p0;      /* conditional probability per level; 0.1 */
+  int max_levels; /* 20 */
+} bk_subset_opts_t;
+
 typedef struct {
   bk_method_kind_t method;
-  uint64_t samples;    /* 0 when not given */
+  uint64_t samples;    /* 0 when not given; importance and cross-entropy:
+                          evaluations per batch; subset: per level */
   uint32_t replicates; /* lhs, sobol */
   double target_cov;   /* 0 when not given */
   uint64_t max_evaluations;
   int has_target_beta;
   double target_beta;
   double ci_level;
+  bk_form_opts_t form;
+  bk_importance_opts_t importance;
+  bk_ce_opts_t cross_entropy;
+  bk_subset_opts_t subset;
 } bk_analysis_t;
 
 typedef struct {
-  char *folder;  /* resolved */
+  char *folder; /* resolved */
   int slots;
   char *scratch; /* "" when not given */
 } bk_run_t;
