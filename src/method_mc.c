@@ -30,8 +30,10 @@
  * and large enough to keep every slot busy. */
 #define BATCH_INPROCESS 65536u
 #define BATCH_MODEL     256u
-/* The most doubles of inputs held for one chunk (32 MiB). */
+/* The most doubles of inputs held for one chunk (32 MiB), and the most
+ * points of an in-process chunk (small enough to stay in cache). */
 #define CHUNK_DOUBLES (4u << 20)
+#define CHUNK_INPROCESS 2048u
 /* The error fraction limit is applied after this many evaluations. */
 #define MIN_FOR_ERROR_LIMIT 20
 
@@ -276,6 +278,8 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
   m.chunk = CHUNK_DOUBLES / nv;
   if (m.chunk > batch)
     m.chunk = batch;
+  if (!s->model.present && m.chunk > CHUNK_INPROCESS)
+    m.chunk = CHUNK_INPROCESS;
   if (m.chunk < 1)
     m.chunk = 1;
   size_t ny = s->model.noutputs;
