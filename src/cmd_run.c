@@ -103,7 +103,11 @@ static void show_progress(progress_t *p, int final) {
     running = p->dst->running;
   }
   double rate = el > 0 ? (double)fresh / el : 0;
-  char rb[32], eb[32], cov[32], run[32] = "";
+  char rb[32], eb[32], cov[32], pf[32], run[32] = "";
+  if (isfinite(p->pf))
+    snprintf(pf, sizeof pf, "%.3e", p->pf);
+  else
+    snprintf(pf, sizeof pf, "-");
   format_rate(rb, sizeof rb, rate);
   format_eta(eb, sizeof eb,
              rate > 0 && p->planned > done ? (double)(p->planned - done) / rate
@@ -116,11 +120,11 @@ static void show_progress(progress_t *p, int final) {
     snprintf(run, sizeof run, "  %d running", running);
   uint64_t errors = p->dst ? p->dst->errors : p->errors;
   fprintf(stderr,
-          "%s%llu/%llu done%s  %llu failures  %llu errors  Pf %.3e  cov %s  "
+          "%s%llu/%llu done%s  %llu failures  %llu errors  Pf %s  cov %s  "
           "%s  ETA %s%s",
           p->tty ? "\r\033[K" : "", (unsigned long long)done,
           (unsigned long long)p->planned, run, (unsigned long long)p->failures,
-          (unsigned long long)errors, p->pf, cov, rb, eb, p->tty ? "" : "\n");
+          (unsigned long long)errors, pf, cov, rb, eb, p->tty ? "" : "\n");
   fflush(stderr);
   p->shown = 1;
 }
