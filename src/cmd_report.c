@@ -1,5 +1,6 @@
 /*
- * `brink report`: prints the result of a finished run, as text or JSON.
+ * `brink report`: prints the result of a finished run, as text or JSON, or
+ * writes the self-contained HTML report (--html FILE).
  *
  * SPDX-License-Identifier: MIT
  */
@@ -17,15 +18,78 @@
 #include "buf.h"
 #include "cli.h"
 #include "error.h"
+#include "report.h"
 #include "study.h"
 
 static const char report_help[] =
-    "usage: brink report FOLDER|STUDY.yaml [--json]\n"
+    "usage: brink report FOLDER|STUDY.yaml [--json | --html FILE]\n"
     "\n"
     "Prints the result of a finished run: the text report, or with --json\n"
     "the JSON summary (keys: pf, beta, cov, ci, ci_level, ci_method,\n"
     "evaluations, failures, model_errors, excluded, pf_bounds, method, seed\n"
-    "and more).\n";
+    "and more).\n"
+    "\n"
+    "  --json        the JSON summary instead of the text\n"
+    "  --html FILE   write one self-contained HTML file (no network, charts\n"
+    "                inline) with the study, the result, the convergence,\n"
+    "                the distribution of g, the inputs that drive failure,\n"
+    "                run times and the model errors; open it in a browser\n"
+    "\n"
+    "The study file is found through report.json; give it instead of the\n"
+    "folder if it has moved.\n";
+
+static int write_html(const char *folder, const char *study_path,
+                      const char *out) {
+  char *found = NULL;
+  if (!study_path) {
+    int rc = bk_report_study_path(folder, &found);
+    if (rc) {
+      fprintf(stderr,
+              rc == BK_ENOTFOUND || rc == BK_ECORRUPT
+                  ? "brink: %s/report.json does not name its study file; "
+                    "give the study instead: brink report STUDY.yaml --html "
+                    "FILE\n"
+                  : "brink: no finished result in %s; run `brink run "
+                    "STUDY.yaml` first\n",
+              folder);
+      return BK_EXIT_USAGE;
+    }
+    study_path = found;
+  }
+  bk_study_t *s;
+  int rc = bk__cli_load_study(study_path, &s);
+  if (rc) {
+    if (found)
+      fprintf(stderr,
+              "brink: (the study file named in %s/report.json); give the "
+              "study instead: brink report STUDY.yaml --html FILE\n",
+              folder);
+    bk_free(found);
+    return rc;
+  }
+  bk_buf_t html;
+  bk_buf_init(&html);
+  bk_error_t err;
+  bk_error_clear(&err);
+  int exit_code = BK_EXIT_DONE;
+  if (bk_report_html(folder, s, &html, &err)) {
+    bk__cli_print_error(&err);
+    exit_code = BK_EXIT_USAGE;
+  } else {
+    FILE *f = strcmp(out, "-") == 0 ? stdout : fopen(out, "w");
+    if (!f || fwrite(html.data, 1, html.len, f) != html.len ||
+        (f != stdout && fclose(f) != 0)) {
+      fprintf(stderr, "brink: cannot write %s: %s\n", out, strerror(errno));
+      exit_code = BK_EXIT_RUNTIME;
+    } else if (f != stdout) {
+      fprintf(stderr, "brink: report written to %s\n", out);
+    }
+  }
+  bk_buf_close(&html);
+  bk_study_free(s);
+  bk_free(found);
+  return exit_code;
+}
 
 static int is_regular_file(const char *p) {
   struct stat st;
@@ -35,13 +99,20 @@ static int is_regular_file(const char *p) {
 int bk__cmd_report(int argc, char **argv) {
   const char *target = NULL;
   int json = 0;
+  const char *html = NULL;
   for (int i = 0; i < argc; i++) {
     if (bk__cli_is_help(argv[i])) {
       fputs(report_help, stdout);
       return BK_EXIT_DONE;
     } else if (strcmp(argv[i], "--json") == 0)
       json = 1;
-    else if (argv[i][0] == '-')
+    else if (strcmp(argv[i], "--html") == 0) {
+      if (i + 1 >= argc)
+        return bk__cli_usage_error("report: %s",
+                                   "--html needs a file name, e.g. --html "
+                                   "report.html");
+      html = argv[++i];
+    } else if (argv[i][0] == '-')
       return bk__cli_usage_error("report: unknown option '%s'", argv[i]);
     else if (target)
       return bk__cli_usage_error("report: one folder at a time ('%s' is extra)",
@@ -53,6 +124,8 @@ int bk__cmd_report(int argc, char **argv) {
     return bk__cli_usage_error("report: %s",
                                "give the run folder or the study "
                                "file, e.g. brink report runs/NAME");
+  if (json && html)
+    return bk__cli_usage_error("report: %s", "choose --json or --html");
   char *folder = NULL;
   if (is_regular_file(target)) {
     bk_study_t *s;
@@ -63,6 +136,11 @@ int bk__cmd_report(int argc, char **argv) {
     bk_study_free(s);
   } else {
     folder = bk_strdup(target);
+  }
+  if (html) {
+    int rc = write_html(folder, is_regular_file(target) ? target : NULL, html);
+    bk_free(folder);
+    return rc;
   }
   bk_buf_t p;
   bk_buf_init(&p);

@@ -6,6 +6,7 @@
 #include "report.h"
 
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include "dist.h"
@@ -73,6 +74,10 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   bk_buf_putc(o, '{');
   key(o, "name", &first);
   bk_json_string(o, s->name);
+  key(o, "study", &first);
+  char *abs = realpath(s->path, NULL);
+  bk_json_string(o, abs ? abs : s->path);
+  free(abs);
   key(o, "tool", &first);
   bk_json_string(o, "brink " BK_VERSION);
   key(o, "method", &first);

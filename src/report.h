@@ -10,6 +10,7 @@
 #define BK_REPORT_H
 
 #include "buf.h"
+#include "error.h"
 #include "method.h"
 #include "study.h"
 
@@ -18,6 +19,19 @@ extern const char bk_report_caution[];
 
 int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *out);
 int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *out);
+
+/* Appends the self-contained HTML report of run folder `folder` (which
+ * holds report.json, and records.log for studies with a model) for the
+ * loaded study `s` (report_html.c). Returns 0, or a negative code with err
+ * set (no report.json: run the study first). */
+int bk_report_html(const char *folder, const bk_study_t *s, bk_buf_t *out,
+                   bk_error_t *err);
+
+/* The study file that made the report.json in `folder` (its "study" key),
+ * as a new string freed with bk_free. Returns 0, a negative errno when
+ * there is no report.json, BK_ENOTFOUND when it names no study, or
+ * BK_ECORRUPT. */
+int bk_report_study_path(const char *folder, char **path);
 
 /* Appends a JSON string literal (quoted, escaped). */
 int bk_json_string(bk_buf_t *out, const char *s);
