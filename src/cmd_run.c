@@ -225,7 +225,12 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
   if (rc) {
     bk__cli_print_error(&err);
     bk_buf_close(&lp);
-    return rc == BK_EMISMATCH ? BK_EXIT_USAGE : BK_EXIT_RUNTIME;
+    /* Records of another study, damaged records and a folder that cannot
+     * be written are bad input: exit 2, nothing written. */
+    return rc == BK_EMISMATCH || rc == BK_ECORRUPT || rc == -EACCES ||
+                   rc == -EROFS || rc == -EPERM || rc == -ENOTDIR
+               ? BK_EXIT_USAGE
+               : BK_EXIT_RUNTIME;
   }
   size_t dropped = bk_records_dropped(m->records);
   if (dropped)
@@ -315,7 +320,14 @@ int bk__cmd_run(int argc, char **argv) {
     fprintf(stderr, "brink: cannot create the run folder %s: %s\n",
             s->run.folder, bk_strerror(mrc));
     bk_study_free(s);
-    return BK_EXIT_RUNTIME;
+    return mrc == BK_ENOMEM || mrc == -ENOSPC ? BK_EXIT_RUNTIME
+                                              : BK_EXIT_USAGE;
+  }
+  if (access(s->run.folder, W_OK | X_OK) != 0) {
+    fprintf(stderr, "brink: cannot write in the run folder %s: %s\n",
+            s->run.folder, strerror(errno));
+    bk_study_free(s);
+    return BK_EXIT_USAGE;
   }
   progress_t pr;
   memset(&pr, 0, sizeof pr);
