@@ -127,6 +127,15 @@ int bk__result_detail(bk_result_t *r, const char *label, double value);
 /* Allocates dp's arrays for nu and nvars; returns 0 or BK_ENOMEM. */
 int bk__result_design_point(bk_result_t *r, size_t nu, size_t nvars);
 
+/* The FORM design-point search under keys "form/..." (method_form.c), also
+ * the first phase of importance sampling: fills res->dp (converged or not,
+ * with a warning when not), adds to res->evaluations, res->model_errors
+ * and res->est.failures, and sets res->stop_reason. Returns 0, BK_ESTOPPED
+ * or another negative code with err set. */
+int bk__form_search(const bk_study_t *s, bk_evaluator_t *ev,
+                    const bk_method_opts_t *opts, bk_result_t *res,
+                    bk_error_t *err);
+
 /* The other methods, one file each. */
 int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,
                     const bk_method_opts_t *opts, bk_result_t *res,

@@ -239,6 +239,8 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   bk_buf_puts(o, "\n  coefficient of var.  ");
   if (isfinite(e->cov))
     bk_buf_printf(o, "%.3f", e->cov);
+  else if (e->ci_method && strncmp(e->ci_method, "none", 4) == 0)
+    bk_buf_puts(o, "n/a (not a sampling estimate)");
   else
     bk_buf_puts(o, "n/a (no failure seen)");
   bk_buf_printf(o, "\n  %g%% interval         ", 100 * e->ci_level);
