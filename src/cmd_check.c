@@ -1,7 +1,9 @@
 /*
  * `brink check`: validates a study and prints its probabilistic model, the
  * limit state at the medians (or the model command, outputs and a deck
- * rendered at the medians) and the design that will run. Writes nothing.
+ * rendered at the medians) and the design that will run. Writes nothing,
+ * except with --try: the model then runs once at the medians in a scratch
+ * folder, and what it did and what was extracted is shown.
  *
  * SPDX-License-Identifier: MIT
  */
@@ -19,25 +21,236 @@
 #include "buf.h"
 #include "cli.h"
 #include "error.h"
+#include "dispatch.h"
 #include "dist.h"
+#include "exec.h"
+#include "extract.h"
+#include "fault.h"
+#include "records.h"
+#include "stop.h"
 #include "study.h"
 #include "template.h"
 
 static const char check_help[] =
-    "usage: brink check STUDY.yaml\n"
+    "usage: brink check STUDY.yaml [--try]\n"
     "\n"
     "Validates the study file (every error names file:line:col), then prints\n"
     "the variables with their moments, the correlations before and after the\n"
     "Nataf adjustment, the limit state evaluated at the medians, and the\n"
-    "design the method will run. Writes nothing.\n";
+    "design the method will run. Writes nothing.\n"
+    "\n"
+    "  --try   also run the model once, at the medians, in a scratch folder\n"
+    "          (kept, under $TMPDIR or /tmp), and show the rendered deck, the\n"
+    "          command, its exit status, and each output with its value or\n"
+    "          why it was not found. Exit code 1 when the run or an\n"
+    "          extraction fails. The first thing to do when wrapping a new\n"
+    "          program.\n";
+
+static void print_tail(const char *dir, const char *name, int lines) {
+  bk_buf_t p;
+  bk_buf_init(&p);
+  bk_buf_printf(&p, "%s/%s", dir, name);
+  FILE *f = fopen(p.data, "r");
+  bk_buf_close(&p);
+  if (!f)
+    return;
+  char *ring[64] = {0};
+  size_t n = 0;
+  char line[512];
+  while (fgets(line, sizeof line, f)) {
+    line[strcspn(line, "\n")] = '\0';
+    bk_free(ring[n % 64]);
+    ring[n % 64] = bk_strdup(line);
+    n++;
+  }
+  fclose(f);
+  size_t from = n > (size_t)lines ? n - (size_t)lines : 0;
+  if (n)
+    printf("  last lines of %s%s:\n", name, from ? "" : " (all of it)");
+  for (size_t i = from; i < n; i++)
+    printf("  | %s\n", ring[i % 64]);
+  for (size_t i = 0; i < 64; i++)
+    bk_free(ring[i]);
+}
+
+static void print_head(const char *dir, const char *name, int lines) {
+  bk_buf_t p;
+  bk_buf_init(&p);
+  bk_buf_printf(&p, "%s/%s", dir, name);
+  FILE *f = fopen(p.data, "r");
+  bk_buf_close(&p);
+  if (!f)
+    return;
+  char line[512];
+  int n = 0;
+  while (n < lines && fgets(line, sizeof line, f)) {
+    line[strcspn(line, "\n")] = '\0';
+    if (n++ == 0)
+      printf("      %s begins:\n", name);
+    printf("      | %s\n", line);
+  }
+  fclose(f);
+}
+
+/* Runs the model once at `med` in a scratch folder through the same
+ * dispatcher a run uses. Returns an exit code. */
+static int try_model(const bk_study_t *s, const double *med) {
+  const char *tmp = getenv("TMPDIR");
+  bk_buf_t dir;
+  bk_buf_init(&dir);
+  bk_buf_printf(&dir, "%s/brink-try-XXXXXX", tmp && *tmp ? tmp : "/tmp");
+  if (!mkdtemp(dir.data)) {
+    fprintf(stderr, "brink: cannot make a scratch folder %s: %s\n", dir.data,
+            strerror(errno));
+    bk_buf_close(&dir);
+    return BK_EXIT_RUNTIME;
+  }
+  /* The same study, but every folder kept and no retry. */
+  bk_study_t t = *s;
+  t.model.keep = BK_KEEP_ALL;
+  t.model.retries = 0;
+  bk_buf_t lp, wd;
+  bk_buf_init(&lp);
+  bk_buf_init(&wd);
+  bk_buf_printf(&lp, "%s/records.log", dir.data);
+  bk_buf_printf(&wd, "%s/work", dir.data);
+  const char **yn = bk_calloc(s->model.noutputs + 1, sizeof *yn);
+  for (size_t i = 0; i < s->model.noutputs; i++)
+    yn[i] = s->model.outputs[i].name;
+  bk_fingerprint_part_t part = {"study", s->digest_study};
+  bk_records_opts_t ro = {.path = lp.data,
+                          .tool = "brink " BK_VERSION,
+                          .nparts = 1,
+                          .parts = &part,
+                          .nx = s->nvars,
+                          .xnames = (const char *const *)s->var_names,
+                          .ny = s->model.noutputs,
+                          .ynames = yn,
+                          .sync_interval = -1};
+  bk_records_t *rec = NULL;
+  bk_exec_t *ex = NULL;
+  bk_dispatch_t *d = NULL;
+  bk_error_t err;
+  bk_error_clear(&err);
+  int exit_code = BK_EXIT_DONE;
+  double *y = bk_calloc(s->model.noutputs + 1, sizeof *y);
+  double *x = bk_calloc(s->nvars + 1, sizeof *x);
+  memcpy(x, med, s->nvars * sizeof *x);
+  int rc = bk__cli_make_dirs(wd.data);
+  if (rc == 0)
+    rc = bk_records_open(&rec, &ro, &err);
+  if (rc == 0)
+    rc = bk_exec_local_new(&ex, 1);
+  bk_dispatch_opts_t dop = {.study = &t,
+                            .records = rec,
+                            .exec = ex,
+                            .work_dir = wd.data,
+                            .host = "check"};
+  if (rc == 0)
+    rc = bk_dispatch_new(&d, &dop);
+  bk_point_t pt = {.index = 0, .x = x, .y = y, .g = NAN, .fault = 0};
+  if (rc == 0) {
+    bk_evaluator_t ev;
+    bk_dispatch_evaluator(d, &ev);
+    bk_stop_install();
+    printf("\nTrying the model once at the medians\n");
+    fflush(stdout);
+    rc = ev.batch(&ev, "try", &pt, 1, &err);
+  }
+  char run[64];
+  bk_dispatch_folder_name("try/0", run, sizeof run);
+  bk_buf_t rd;
+  bk_buf_init(&rd);
+  bk_buf_printf(&rd, "%s/%s", wd.data, run);
+  if (rc) {
+    if (err.msg[0])
+      bk__cli_print_error(&err);
+    else
+      fprintf(stderr, "brink: cannot try the model: %s\n", bk_strerror(rc));
+    exit_code = rc == BK_ESTOPPED ? BK_EXIT_STOPPED : BK_EXIT_RUNTIME;
+    goto out;
+  }
+  bk_record_t r;
+  int found = bk_records_find(rec, "try/0", &r);
+  printf("  run folder  %s\n", rd.data);
+  for (size_t i = 0; i < s->model.ndecks; i++)
+    printf("  deck        %s/%s (from %s)\n", rd.data, s->model.decks[i].to,
+           s->model.decks[i].template_name);
+  printf("  command     ");
+  for (size_t i = 0; i < s->model.argc; i++)
+    printf("%s%s", i ? " " : "", s->model.argv[i]);
+  printf("\n");
+  int ran = pt.fault == BK_FAULT_NONE || pt.fault >= BK_FAULT_NO_OUTPUT;
+  if (ran)
+    printf("  exit status 0 (%.3g s)\n", found ? r.seconds : NAN);
+  else {
+    const char *note = found && r.note ? r.note : "";
+    const char *cut = strstr(note, "; folder ");
+    printf("  failed      %.*s (%s)\n",
+           cut ? (int)(cut - note) : (int)strlen(note), note,
+           bk_fault_name(pt.fault));
+  }
+  if (ran) {
+    printf("  outputs\n");
+    for (size_t i = 0; i < s->model.noutputs; i++) {
+      const bk_output_t *o = &s->model.outputs[i];
+      bk_buf_t p;
+      bk_buf_init(&p);
+      bk_buf_printf(&p, "%s/%s", rd.data, o->from_stdout ? "stdout" : o->file);
+      double v = NAN;
+      char why[256] = "";
+      int f = bk_extract_file(o->re, p.data, o->match, &v, why, sizeof why);
+      if (f == BK_FAULT_NONE)
+        printf("    %-14s = %.10g   (from %s)\n", o->name, v,
+               o->from_stdout ? "stdout" : o->file);
+      else {
+        printf("    %-14s NOT FOUND: %s (%s); pattern %s\n", o->name,
+               f < 0 ? bk_strerror(f) : bk_fault_name(f), why, o->pattern);
+        exit_code = BK_EXIT_RUNTIME;
+        if (f == BK_FAULT_NO_MATCH)
+          print_head(rd.data, o->from_stdout ? "stdout" : o->file, 8);
+      }
+      bk_buf_close(&p);
+    }
+  }
+  if (pt.fault == BK_FAULT_NONE)
+    printf("  limit state g = %.10g (%s)\n", pt.g,
+           pt.g <= 0 ? "failed at the medians" : "safe at the medians");
+  else {
+    exit_code = BK_EXIT_RUNTIME;
+    if (ran && pt.fault == BK_FAULT_NOT_A_NUMBER)
+      printf("  limit state: %s\n", found && r.note ? r.note : "not a number");
+    print_tail(rd.data, "stderr", 12);
+    if (!ran)
+      print_tail(rd.data, "stdout", 12);
+    printf("\nThe model did not work at the medians. Fix the command, the "
+           "deck or the\npatterns above and try again; the run folder is "
+           "kept for you to look at.\n");
+  }
+out:
+  bk_dispatch_free(d);
+  bk_exec_free(ex);
+  bk_records_close(rec);
+  bk_free(yn);
+  bk_free(x);
+  bk_free(y);
+  bk_buf_close(&rd);
+  bk_buf_close(&lp);
+  bk_buf_close(&wd);
+  bk_buf_close(&dir);
+  return exit_code;
+}
 
 int bk__cmd_check(int argc, char **argv) {
   const char *path = NULL;
+  int try_it = 0;
   for (int i = 0; i < argc; i++) {
     if (bk__cli_is_help(argv[i])) {
       fputs(check_help, stdout);
       return BK_EXIT_DONE;
-    } else if (argv[i][0] == '-')
+    } else if (strcmp(argv[i], "--try") == 0)
+      try_it = 1;
+    else if (argv[i][0] == '-')
       return bk__cli_usage_error("check: unknown option '%s'", argv[i]);
     else if (path)
       return bk__cli_usage_error(
@@ -139,7 +352,13 @@ int bk__cmd_check(int argc, char **argv) {
   if (a->has_target_beta)
     printf("  target reliability index %.2f\n", a->target_beta);
   printf("\nRun folder %s (%d slots)\n", s->run.folder, s->run.slots);
+  int exit_code = BK_EXIT_DONE;
+  if (try_it && s->model.present)
+    exit_code = try_model(s, med);
+  else if (try_it)
+    printf("\nNo model section: the limit state at the medians above is "
+           "what --try would show.\n");
   bk_free(med);
   bk_study_free(s);
-  return BK_EXIT_DONE;
+  return exit_code;
 }

@@ -58,7 +58,7 @@ void bk_svg_format(char *b, size_t n, double v, double step) {
   double a = fabs(v);
   if (v == 0)
     snprintf(b, n, "0");
-  else if (a >= 1e5 || a < 1e-3) {
+  else if (a >= 1e5 || a < 1e-3 || (step == 0 && a < 1)) {
     snprintf(b, n, "%.3g", v);
     /* 1e-04 -> 1e-4 */
     char *e = strchr(b, 'e');
@@ -140,10 +140,16 @@ static size_t log_ticks(double lo, double hi, double *t, size_t cap,
   if (k < 1)
     k = 1;
   *every = k;
+  /* Few decades: label 1, 2 and 5 of each, so the axis still reads. */
+  static const double few[] = {1, 2, 5};
+  size_t nm = b - a <= 2 ? 3 : 1;
   size_t n = 0;
   for (double e = a; e <= b && n < cap; e += k)
-    if (pow(10, e) >= lo * (1 - 1e-9) && pow(10, e) <= hi * (1 + 1e-9))
-      t[n++] = pow(10, e);
+    for (size_t m = 0; m < nm && n < cap; m++) {
+      double v = few[m] * pow(10, e);
+      if (v >= lo * (1 - 1e-9) && v <= hi * (1 + 1e-9))
+        t[n++] = v;
+    }
   return n;
 }
 
