@@ -414,16 +414,19 @@ int bk__form_search(const bk_study_t *s, bk_evaluator_t *ev,
   double g = NAN, g_scale = 1, beta = NAN, gnorm = NAN;
   double merit0 = 0, slope = 0, c = 0, lambda = 1;
   int halvings = 0, have_prev = 0, converged = 0, iterations = 0;
+  int capped = 0;         /* stopped by max_iterations or max_evaluations */
   const char *why = NULL; /* why the search ended without converging */
   char prefix[48];
   memset(cand, 0, nu * sizeof *cand); /* start at the medians, u = 0 */
   for (uint64_t k = 0;; k++) {
     if (iterations >= fo->max_iterations) {
       why = "max_iterations reached";
+      capped = 1;
       break;
     }
     if (res->evaluations + f.nd + 1 > s->analysis.max_evaluations) {
       why = "max_evaluations reached";
+      capped = 1;
       break;
     }
     snprintf(prefix, sizeof prefix, "form/i%llu", (unsigned long long)k);
@@ -536,7 +539,7 @@ int bk__form_search(const bk_study_t *s, bk_evaluator_t *ev,
     dp->pf_form = NAN;
   }
   if (!converged) {
-    if (f.failures == 0) {
+    if (f.failures == 0 && !capped) {
       bk__result_warn(res,
                       "FORM found no failure domain: none of the %llu "
                       "evaluations had g <= 0 (%s). The limit state may "
