@@ -270,6 +270,9 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
     model_run_close(m, &err);
     return BK_EXIT_RUNTIME;
   }
+  /* Models left running by a brink killed with kill -9 on this folder. */
+  if (!s->run.scratch[0])
+    bk_dispatch_reap(m->work_dir);
   if (gethostname(m->host, sizeof m->host) != 0)
     snprintf(m->host, sizeof m->host, "localhost");
   m->host[sizeof m->host - 1] = '\0';

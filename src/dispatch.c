@@ -10,6 +10,7 @@
  */
 #include "dispatch.h"
 
+#include <dirent.h>
 #include <errno.h>
 #include <fcntl.h>
 #include <ftw.h>
@@ -19,6 +20,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
+#include <sys/statvfs.h>
 #include <unistd.h>
 
 #include "alloc.h"
@@ -45,8 +47,8 @@ struct bk_dispatch {
   bk_dispatch_stats_t st;
   char **base_env; /* environ + model.env, without BRINK_* */
   size_t nbase_env;
-  double *vals;    /* x then y, for the limit state */
-  int fatal;       /* a records failure: stop the batch */
+  double *vals; /* x then y, for the limit state */
+  int fatal;    /* a records failure: stop the batch */
   bk_error_t fatal_err;
   const char *prefix;
 };
@@ -73,6 +75,45 @@ int bk_remove_tree(const char *path) {
   if (!S_ISDIR(st.st_mode))
     return unlink(path) == 0 ? 0 : -errno;
   return nftw(path, remove_entry, 32, FTW_DEPTH | FTW_PHYS) == 0 ? 0 : -errno;
+}
+
+int bk_dispatch_reap(const char *work_dir) {
+  size_t n = strlen(work_dir);
+  while (n > 1 && work_dir[n - 1] == '/')
+    n--;
+  DIR *d = opendir("/proc");
+  if (!d)
+    return 0;
+  int killed = 0;
+  pid_t self = getpid();
+  uid_t uid = geteuid();
+  struct dirent *e;
+  while ((e = readdir(d))) {
+    char *end;
+    long pid = strtol(e->d_name, &end, 10);
+    if (*end || pid <= 0 || (pid_t)pid == self)
+      continue;
+    char link[64], cwd[4096];
+    snprintf(link, sizeof link, "/proc/%ld/cwd", pid);
+    struct stat st;
+    if (lstat(link, &st) != 0 || st.st_uid != uid)
+      continue;
+    ssize_t k = readlink(link, cwd, sizeof cwd - 1);
+    if (k <= 0)
+      continue;
+    cwd[k] = '\0';
+    if ((size_t)k <= n || strncmp(cwd, work_dir, n) != 0 || cwd[n] != '/')
+      continue;
+    /* Each model leads its own process group; a child it spawned is in
+     * that group too, or found by its own working folder. */
+    pid_t pg = getpgid((pid_t)pid);
+    if (pg > 1 && pg != getpgrp())
+      kill(-pg, SIGKILL);
+    kill((pid_t)pid, SIGKILL);
+    killed++;
+  }
+  closedir(d);
+  return killed;
 }
 
 static int env_name_eq(const char *a, const char *b) {
@@ -141,8 +182,8 @@ static int write_new_file(const char *dir, const char *name, const char *data,
   bk_buf_printf(&p, "%s/%s", dir, name);
   if (!p.data)
     return BK_ENOMEM;
-  int fd = open(p.data, O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC,
-                0666);
+  int fd =
+      open(p.data, O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0666);
   bk_buf_close(&p);
   if (fd < 0)
     return -errno;
@@ -168,10 +209,10 @@ static int copy_file(const char *src, const char *dir, const char *name) {
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", dir, name);
-  int out = p.data ? open(p.data, O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW |
-                                      O_CLOEXEC,
-                          0666)
-                   : -1;
+  int out =
+      p.data ? open(p.data,
+                    O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0666)
+             : -1;
   bk_buf_close(&p);
   if (out < 0) {
     int e = -errno;
@@ -340,9 +381,21 @@ static void extract_outputs(job_t *j, char *why, size_t whycap) {
   pt->g = bk_expr_eval(s->g, d->vals);
   if (isnan(pt->g)) {
     pt->fault = BK_FAULT_NOT_A_NUMBER;
-    snprintf(why, whycap, "the limit state is not a number for these "
-                          "outputs");
+    snprintf(why, whycap,
+             "the limit state is not a number for these "
+             "outputs");
   }
+}
+
+/* Is the file system of `dir` (nearly) full: under 64 KiB or no inode
+ * left? A model that fails then may have failed for want of space, which
+ * says nothing about the sample. */
+static int disk_full(const char *dir) {
+  struct statvfs sv;
+  if (statvfs(dir, &sv) != 0)
+    return errno == ENOSPC;
+  return (double)sv.f_bavail * (double)sv.f_frsize < 65536.0 ||
+         (sv.f_files > 0 && sv.f_favail == 0);
 }
 
 static void on_done(void *data, const bk_job_result_t *res) {
@@ -363,6 +416,17 @@ static void on_done(void *data, const bk_job_result_t *res) {
     extract_outputs(j, why, sizeof why);
   else
     snprintf(why, sizeof why, "%s", res->why);
+  if (pt->fault != BK_FAULT_NONE && disk_full(j->dir)) {
+    /* Not recorded: after space is freed the run is made again. */
+    d->fatal = BK_ENOSPACE;
+    bk_error_set(&d->fatal_err, BK_ENOSPACE, NULL, 0, 0,
+                 "%s failed (%s) while the file system of %s has no space "
+                 "left; the run is not recorded",
+                 j->key, why, j->dir);
+    bk_stop_set(SIGTERM);
+    j->done = -1;
+    return;
+  }
   if (pt->fault != BK_FAULT_NONE && j->attempts <= s->model.retries &&
       !bk_stop_requested()) {
     if (submit(j) == 0)

@@ -54,4 +54,12 @@ void bk_dispatch_folder_name(const char *key, char *out, size_t cap);
  * links. Returns 0 or a negative errno. */
 int bk_remove_tree(const char *path);
 
+/* Kills (SIGKILL, with their process groups) the processes of this user
+ * whose working folder lies below `work_dir`: models left running by a
+ * brink that was killed without a chance to stop them (kill -9, power
+ * loss of the coordinator only). Call it holding the records lock, before
+ * dispatching. Linux only (reads /proc); elsewhere it does nothing.
+ * Returns the number of processes killed. */
+int bk_dispatch_reap(const char *work_dir);
+
 #endif

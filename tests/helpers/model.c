@@ -52,6 +52,13 @@
  *   flaky [N]         fail with exit status 1 on the first N attempts
  *                     (default 1), counted in the marker file, then run
  *                     normally
+ *   chaos [P]         misbehave for a fraction P (default 0.2) of the
+ *                     samples, chosen by a hash of the variables' values,
+ *                     so the same sample always does the same: of those,
+ *                     40% crash (SIGSEGV), 20% hang for 120 s (without
+ *                     dying with their parent: brink must clean them up)
+ *                     and 40% print garbage; the others run normally
+ *                     after sleeping 0 to 40 ms
  * Input errors exit with status 2.
  *
  * SPDX-License-Identifier: MIT
@@ -63,6 +70,7 @@
 #include <math.h>
 #include <signal.h>
 #include <stdarg.h>
+#include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -374,6 +382,43 @@ static int flaky_should_fail(int n) {
   return count <= n;
 }
 
+/* A hash of the variables' values in [0, 1): the same inputs give the
+ * same number (SplitMix64 finaliser over the bits of each value). */
+static double inputs_hash(void) {
+  uint64_t h = 0x9e3779b97f4a7c15ull;
+  for (int i = 0; i < ninputs; i++) {
+    if (!inputs[i].is_number || is_reserved(inputs[i].name))
+      continue;
+    uint64_t bits;
+    memcpy(&bits, &inputs[i].x, sizeof bits);
+    h ^= bits;
+    h = (h ^ (h >> 30)) * 0xbf58476d1ce4e5b9ull;
+    h = (h ^ (h >> 27)) * 0x94d049bb133111ebull;
+    h ^= h >> 31;
+  }
+  return (double)(h >> 11) * 0x1p-53;
+}
+
+static void chaos(double p) {
+  double u = inputs_hash();
+  if (u < 0.4 * p) {
+    fprintf(stderr, "bk-test-model: chaos: crashing\n");
+    die_of(SIGSEGV);
+  }
+  if (u < 0.6 * p) {
+    fprintf(stderr, "bk-test-model: chaos: hanging\n");
+    fflush(stderr);
+    sleep_seconds(120);
+    exit(0);
+  }
+  if (u < p) {
+    fprintf(stderr, "bk-test-model: chaos: garbage\n");
+    run_normally("chaos", 1, 0);
+  }
+  sleep_seconds(0.04 * (u - p) / (1 - p));
+  run_normally("chaos", 0, 0);
+}
+
 int main(int argc, char **argv) {
   t_start = now();
   parent_pid = getppid();
@@ -429,6 +474,8 @@ int main(int argc, char **argv) {
   } else if (!strcmp(mode, "bigout")) {
     big_output(has_arg && arg > 0 ? arg : 1.0);
     run_normally(mode, 0, 0);
+  } else if (!strcmp(mode, "chaos")) {
+    chaos(has_arg && arg >= 0 && arg < 1 ? arg : 0.2);
   } else if (!strcmp(mode, "flaky")) {
     int n = has_arg ? (int)arg : 1;
     if (flaky_should_fail(n)) {
@@ -440,6 +487,6 @@ int main(int argc, char **argv) {
   die(2,
       "unknown mode '%s' (ok, exit N, crash, abort, hang, "
       "hang-ignore-term, garbage, partial, orphan, slow S, bigout N, "
-      "flaky N)",
+      "flaky N, chaos P)",
       mode);
 }
