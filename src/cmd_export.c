@@ -25,7 +25,8 @@ static const char export_help[] =
     "usage: brink export FOLDER|STUDY.yaml (--csv | --json-lines) [-o FILE]\n"
     "\n"
     "Writes one row per recorded evaluation: key, the variables, the model\n"
-    "outputs, g, failed (1 when g <= 0), status (ok or the model error\n"
+    "outputs, g (named limit_state when a variable or an output is called\n"
+    "g), failed (1 when g <= 0), status (ok or the model error\n"
     "kind), attempts, seconds, host and note (the reason of a model error\n"
     "and the run folder kept). Missing values are empty cells in CSV and\n"
     "null in JSON lines. Goes to stdout unless -o FILE is given. Safe to use\n"
@@ -41,6 +42,7 @@ typedef struct {
   size_t nx, ny;
   const char *const *xn;
   const char *const *yn;
+  const char *gname; /* "g", or "limit_state" when a column is named g */
   bk_buf_t line;
 } export_t;
 
@@ -83,7 +85,9 @@ static int on_record(void *data, const bk_record_t *r) {
       bk_buf_puts(b, ": ");
       bk_json_number(b, i < r->ny ? r->y[i] : NAN);
     }
-    bk_buf_puts(b, ", \"g\": ");
+    bk_buf_puts(b, ", ");
+    bk_json_string(b, e->gname);
+    bk_buf_puts(b, ": ");
     bk_json_number(b, r->g);
     bk_buf_printf(b, ", \"failed\": %s, \"status\": ",
                   r->fault ? "null"
@@ -205,6 +209,10 @@ int bk__cmd_export(int argc, char **argv) {
   memset(&e, 0, sizeof e);
   e.json = json;
   bk_records_columns(rec, &e.nx, &e.xn, &e.ny, &e.yn);
+  e.gname = "g";
+  for (size_t i = 0; i < e.nx + e.ny; i++)
+    if (strcmp(i < e.nx ? e.xn[i] : e.yn[i - e.nx], "g") == 0)
+      e.gname = "limit_state";
   e.f = out ? fopen(out, "w") : stdout;
   int exit_code = BK_EXIT_DONE;
   if (!e.f) {
@@ -223,7 +231,8 @@ int bk__cmd_export(int argc, char **argv) {
       bk_buf_putc(&e.line, ',');
       csv_text(&e.line, e.yn[i]);
     }
-    bk_buf_puts(&e.line, ",g,failed,status,attempts,seconds,host,note\n");
+    bk_buf_printf(&e.line, ",%s,failed,status,attempts,seconds,host,note\n",
+                  e.gname);
     fwrite(e.line.data, 1, e.line.len, e.f);
   }
   rc = bk_records_scan(rec, on_record, &e);

@@ -533,6 +533,11 @@ static void chart_histogram(bk_buf_t *o, const samples_t *s, const char *what) {
     size_t k = (size_t)floor((s->g[i] - a) / w);
     if (k >= nb)
       k = nb - 1;
+    /* The edges as drawn decide, not the rounding of the division. */
+    while (k > 0 && s->g[i] < a + (double)k * w)
+      k--;
+    while (k + 1 < nb && s->g[i] >= a + (double)(k + 1) * w)
+      k++;
     /* g == 0 exactly is a failure: keep it left of the line. */
     if (s->g[i] <= 0 && a + k * w >= 0 && k > 0)
       k--;
@@ -554,7 +559,7 @@ static void chart_histogram(bk_buf_t *o, const samples_t *s, const char *what) {
               "evaluations per bin (log scale)");
   char attrs[160];
   for (size_t k = 0; k < nb; k++) {
-    double xa = a + k * w, xb = xa + w;
+    double xa = a + (double)k * w, xb = a + (double)(k + 1) * w;
     snprintf(attrs, sizeof attrs,
              "data-lo=\"%.17g\" data-hi=\"%.17g\" data-count=\"%zu\"", xa, xb,
              cnt[k]);

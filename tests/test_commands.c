@@ -1,0 +1,363 @@
+/*
+ * Integration tests of the everyday commands: report (--json, --html),
+ * export (--csv, --json-lines), status (while a run is in progress),
+ * check --try (a model that works, one that fails, a pattern that does not
+ * match) and init. The outputs are read back with independent parsers
+ * (Python's json, csv and xml.etree, in tests/helpers/check_report.py) and
+ * compared with the records; the HTML report is rendered by a headless
+ * Chromium when one is installed.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include <criterion/criterion.h>
+#include <math.h>
+#include <signal.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include "records.h"
+
+static char dir[256];
+
+static void setup(void) {
+  snprintf(dir, sizeof dir, "/tmp/bk-test-commands-XXXXXX");
+  cr_assert(mkdtemp(dir));
+}
+
+static void teardown(void) {
+  char cmd[600];
+  snprintf(cmd, sizeof cmd, "rm -rf '%s'", dir);
+  cr_assert_eq(system(cmd), 0);
+}
+
+TestSuite(commands, .init = setup, .fini = teardown, .timeout = 300);
+
+static const char *env(const char *name) {
+  const char *e = getenv(name);
+  cr_assert(e, "%s must be set", name);
+  return e;
+}
+
+static void write_file(const char *name, const char *fmt, ...) {
+  char p[600];
+  snprintf(p, sizeof p, "%s/%s", dir, name);
+  FILE *f = fopen(p, "w");
+  cr_assert(f);
+  va_list ap;
+  va_start(ap, fmt);
+  vfprintf(f, fmt, ap);
+  va_end(ap);
+  fclose(f);
+}
+
+/* The whole file in a static buffer (NULL when absent). */
+static char *read_file(const char *name) {
+  static char buf[1 << 20];
+  char p[600];
+  snprintf(p, sizeof p, "%s/%s", dir, name);
+  FILE *f = fopen(p, "r");
+  if (!f)
+    return NULL;
+  size_t n = fread(buf, 1, sizeof buf - 1, f);
+  buf[n] = '\0';
+  fclose(f);
+  return buf;
+}
+
+static int sh(const char *fmt, ...) {
+  char cmd[4096];
+  int n = snprintf(cmd, sizeof cmd, "cd '%s' && ", dir);
+  va_list ap;
+  va_start(ap, fmt);
+  vsnprintf(cmd + n, sizeof cmd - (size_t)n, fmt, ap);
+  va_end(ap);
+  int st = system(cmd);
+  cr_assert(WIFEXITED(st));
+  return WEXITSTATUS(st);
+}
+
+static int brink(const char *args) {
+  /* Scratch folders of check --try go below the test folder. */
+  return sh("TMPDIR=\"$PWD\" '%s' %s >out.txt 2>err.txt </dev/null",
+            env("BRINK_EXE"), args);
+}
+
+/* Two standard normal inputs through the test model: g = 1.5 - (a+b)/sqrt 2
+ * (Pf = Phi(-1.5) = 0.0668, Cornell 1969), with `mode` (e.g. chaos 0.15:
+ * a deterministic share of the runs crash, hang or print garbage). */
+static void write_model_study(const char *mode, int samples,
+                              const char *extra) {
+  write_file("deck.txt", "# evaluation {{ _key }}\n"
+                         "x1 = {{ a : %%.17g }}\n"
+                         "x2 = {{ b : %%.17g }}\n"
+                         "beta = 1.5\n");
+  write_file("study.yaml",
+             "name: linear\n"
+             "seed: 5\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "  b: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  files: [{template: deck.txt, to: in.txt}]\n"
+             "  command: ['%s', in.txt]\n"
+             "  env: {BK_MODEL_MODE: '%s'}\n"
+             "  timeout: 1\n"
+             "  retries: 0\n"
+             "  max_error_fraction: 0.6\n"
+             "  outputs:\n"
+             "    g: {file: out.txt, pattern: 'result: g = (\\S+)'}\n"
+             "    total: {stdout: true, pattern: 'result: sum = (\\S+)'}\n"
+             "  keep: errors\n"
+             "%s"
+             "limit_state: g\n"
+             "analysis: {method: random, samples: %d}\n"
+             "run: {folder: out/linear, slots: 2}\n",
+             env("BRINK_TEST_MODEL"), mode, extra, samples);
+}
+
+static const char *checker(void) {
+  static char p[600];
+  snprintf(p, sizeof p, "%s/tests/helpers/check_report.py",
+           env("BRINK_SOURCE_ROOT"));
+  return p;
+}
+
+static int have_python(void) {
+  return access("/usr/bin/python3", X_OK) == 0;
+}
+
+Test(commands, json_csv_and_html_agree_with_the_records) {
+  write_model_study("chaos 0.15", 90, "");
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear --json"), 0);
+  cr_assert(strstr(read_file("out.txt"), "\"model_errors\""));
+  cr_assert_eq(brink("export out/linear --csv -o e.csv"), 0, "%s",
+               read_file("err.txt"));
+  cr_assert_eq(brink("export study.yaml --json-lines -o e.jsonl"), 0);
+  cr_assert_eq(brink("report out/linear --html r.html"), 0, "%s",
+               read_file("err.txt"));
+
+  /* The CSV against the records, value by value (read through the records
+   * module, an independent path from export's). */
+  char lp[600];
+  snprintf(lp, sizeof lp, "%s/out/linear/records.log", dir);
+  bk_records_opts_t ro = {.path = lp, .read_only = 1, .any_study = 1};
+  bk_records_t *rec;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_records_open(&rec, &ro, &err), 0);
+  char *csv = read_file("e.csv");
+  char *line = strchr(csv, '\n');
+  cr_assert(line);
+  cr_assert(strncmp(csv, "key,a,b,g,total,limit_state,failed,status", 41) == 0,
+            "header: %.60s", csv);
+  size_t rows = 0, errors = 0;
+  for (line++; *line; rows++) {
+    char key[64];
+    double a, b;
+    cr_assert_eq(sscanf(line, "%63[^,],%lf,%lf", key, &a, &b), 3);
+    bk_record_t r;
+    cr_assert(bk_records_find(rec, key, &r), "%s not recorded", key);
+    cr_assert_eq(a, r.x[0]);
+    cr_assert_eq(b, r.x[1]);
+    if (r.fault)
+      errors++;
+    char *nl = strchr(line, '\n');
+    cr_assert(nl);
+    line = nl + 1;
+  }
+  cr_assert_eq(rows, bk_records_count(rec));
+  cr_assert_gt(errors, 0, "the chaos model should have produced errors");
+  bk_records_close(rec);
+
+  if (!have_python())
+    cr_skip_test("no /usr/bin/python3 for the independent parsers");
+  cr_assert_eq(sh("/usr/bin/python3 '%s' out/linear e.csv e.jsonl r.html "
+                  ">chk.txt 2>&1",
+                  checker()),
+               0, "%s", read_file("chk.txt"));
+}
+
+Test(commands, html_of_an_in_process_study_uses_the_design_again) {
+  write_file("s.yaml", "name: shelf\n"
+                       "seed: 99\n"
+                       "variables:\n"
+                       "  load: {type: gumbel, mean: 2.0, cov: 0.25}\n"
+                       "  cap:  {type: lognormal, mean: 4.0, cov: 0.1}\n"
+                       "  k: 1.0\n"
+                       "correlations: [[load, cap, 0.2]]\n"
+                       "limit_state: cap - k*load\n"
+                       "analysis: {method: lhs, samples: 40000, replicates: 4,"
+                       " target_beta: 3.8}\n"
+                       "run: {folder: out/shelf}\n");
+  cr_assert_eq(brink("run s.yaml -q"), 0);
+  cr_assert_eq(brink("report out/shelf --html r.html"), 0, "%s",
+               read_file("err.txt"));
+  char *h = read_file("r.html");
+  cr_assert(strstr(h, "recomputed from the seed"));
+  cr_assert(strstr(h, "target reliability index 3.80"));
+  cr_assert(strstr(h, "Nataf"));
+  /* No records: export says why. */
+  cr_assert_eq(brink("export s.yaml --csv"), 2);
+  cr_assert(strstr(read_file("err.txt"), "not recorded"));
+  if (!have_python())
+    cr_skip_test("no /usr/bin/python3 for the independent parsers");
+  cr_assert_eq(sh("/usr/bin/python3 '%s' out/shelf - - r.html inproc "
+                  ">chk.txt 2>&1",
+                  checker()),
+               0, "%s", read_file("chk.txt"));
+}
+
+Test(commands, chromium_renders_the_html_report) {
+  if (access("/usr/bin/chromium", X_OK) != 0)
+    cr_skip_test("no /usr/bin/chromium");
+  write_model_study("ok", 60, "");
+  cr_assert_eq(brink("run study.yaml -q"), 0);
+  cr_assert_eq(brink("report study.yaml --html r.html"), 0);
+  int rc = sh("mkdir -p profile && timeout 120 /usr/bin/chromium --headless "
+              "--no-sandbox --disable-gpu --disable-quic --no-first-run "
+              "--disable-background-networking --disable-component-update "
+              "--disable-sync --user-data-dir=\"$PWD/profile\" "
+              "--screenshot=\"$PWD/r.png\" --window-size=1200,3000 "
+              "\"file://$PWD/r.html\" >chromium.txt 2>&1");
+  cr_assert_eq(rc, 0, "chromium: %s", read_file("chromium.txt"));
+  char p[600];
+  snprintf(p, sizeof p, "%s/r.png", dir);
+  FILE *f = fopen(p, "rb");
+  cr_assert(f, "no screenshot");
+  unsigned char sig[8];
+  cr_assert_eq(fread(sig, 1, 8, f), 8);
+  fseek(f, 0, SEEK_END);
+  long size = ftell(f);
+  fclose(f);
+  cr_assert(memcmp(sig, "\x89PNG\r\n\x1a\n", 8) == 0);
+  cr_assert_gt(size, 20000, "an empty page? %ld bytes", size);
+}
+
+Test(commands, status_while_a_run_is_in_progress) {
+  write_model_study("slow 0.25", 24, "");
+  pid_t pid = fork();
+  cr_assert_geq(pid, 0);
+  if (pid == 0) {
+    char cmd[2048];
+    snprintf(cmd, sizeof cmd,
+             "cd '%s' && exec '%s' run study.yaml -q >bg.txt 2>&1 </dev/null",
+             dir, env("BRINK_EXE"));
+    execl("/bin/sh", "sh", "-c", cmd, (char *)NULL);
+    _exit(127);
+  }
+  /* Wait (bounded by the test's timeout, not by a clock) for the first
+   * records, then ask. */
+  int seen = 0;
+  for (int i = 0; i < 2000 && !seen; i++) {
+    char *l = read_file("out/linear/records.log");
+    if (l) {
+      int lines = 0;
+      for (char *c = strstr(l, "\nmc/"); c; c = strstr(c + 1, "\nmc/"))
+        lines++;
+      seen = lines >= 2;
+    }
+    if (!seen)
+      usleep(20000);
+  }
+  cr_assert(seen, "the run wrote no records");
+  cr_assert_eq(brink("status out/linear"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  int running = strstr(out, "running (brink pid") != NULL;
+  int st;
+  waitpid(pid, &st, 0);
+  cr_assert(WIFEXITED(st) && WEXITSTATUS(st) == 0);
+  /* The run may have finished between the records and the question. */
+  if (running) {
+    cr_assert(strstr(out, "of 24 planned"), "%s", out);
+    cr_assert(strstr(out, "failures"), "%s", out);
+    cr_assert(strstr(out, "time to go"), "%s", out);
+  }
+  cr_assert_eq(brink("status study.yaml"), 0);
+  out = read_file("out.txt");
+  cr_assert(strstr(out, "finished"), "%s", out);
+  cr_assert(strstr(out, "24 of 24 planned"), "%s", out);
+  cr_assert(strstr(out, "model errors   0"), "%s", out);
+}
+
+Test(commands, check_try_with_a_model_that_works) {
+  write_model_study("ok", 10, "");
+  cr_assert_eq(brink("check study.yaml --try"), 0, "%s%s", read_file("out.txt"),
+               read_file("err.txt"));
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, "/in.txt (from deck.txt)"), "%s", out);
+  cr_assert(strstr(out, "exit status 0"), "%s", out);
+  /* At the medians a = b = 0, so g = 1.5 and the sum is 0. */
+  cr_assert(strstr(out, "g              = 1.5"), "%s", out);
+  cr_assert(strstr(out, "total          = 0"), "%s", out);
+  cr_assert(strstr(out, "safe at the medians"), "%s", out);
+  /* Nothing written beside the study. */
+  struct stat sb;
+  char p[600];
+  snprintf(p, sizeof p, "%s/out", dir);
+  cr_assert_neq(stat(p, &sb), 0);
+}
+
+Test(commands, check_try_with_a_model_that_fails) {
+  write_model_study("exit 7", 10, "");
+  cr_assert_eq(brink("check study.yaml --try"), 1);
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, "exit status 7 (exit-code)"), "%s", out);
+  cr_assert(strstr(out, "exiting with status 7"), "stderr shown: %s", out);
+  cr_assert(strstr(out, "did not work"), "%s", out);
+}
+
+Test(commands, check_try_with_a_pattern_that_does_not_match) {
+  write_model_study("ok", 10, "");
+  char *s = read_file("study.yaml");
+  char *at = strstr(s, "result: sum");
+  cr_assert(at);
+  memcpy(at, "result: SUM", 11);
+  write_file("study.yaml", "%s", s);
+  cr_assert_eq(brink("check study.yaml --try"), 1);
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, "total          NOT FOUND: no-match"), "%s", out);
+  cr_assert(strstr(out, "stdout begins:"), "%s", out);
+  /* The other output was still read. */
+  cr_assert(strstr(out, "g              = 1.5"), "%s", out);
+}
+
+Test(commands, init_writes_starter_studies_that_check) {
+  cr_assert_eq(brink("init a"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("out.txt"), "a/study.yaml"));
+  cr_assert_eq(brink("check a/study.yaml"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("a/study.yaml"), "name: a\n"));
+  /* Never overwrites. */
+  cr_assert_eq(brink("init a --script"), 2);
+  cr_assert(strstr(read_file("err.txt"), "never overwrites"));
+  cr_assert_eq(brink("init s --script"), 0);
+  cr_assert_eq(brink("check s/study.yaml --try"), 0, "%s",
+               read_file("out.txt"));
+  cr_assert_eq(brink("init f --fe"), 0);
+  cr_assert_eq(brink("check f/study.yaml"), 0, "%s", read_file("err.txt"));
+  if (access("/usr/bin/ccx", X_OK) == 0)
+    cr_assert_eq(brink("check f/study.yaml --try"), 0, "%s",
+                 read_file("out.txt"));
+  cr_assert_eq(brink("init x --nonsense"), 2);
+}
+
+Test(commands, every_command_has_help) {
+  const char *cmds[] = {"run",  "check", "report", "status", "export",
+                        "init", "plan",  "submit", "merge"};
+  for (size_t i = 0; i < sizeof cmds / sizeof cmds[0]; i++) {
+    char a[64];
+    snprintf(a, sizeof a, "%s --help", cmds[i]);
+    cr_assert_eq(brink(a), 0, "%s", cmds[i]);
+    cr_assert(strstr(read_file("out.txt"), "usage: brink"), "%s", cmds[i]);
+  }
+  cr_assert_eq(brink("report"), 2);
+  cr_assert(strstr(read_file("err.txt"), "e.g. brink report"));
+  cr_assert_eq(brink("status nowhere"), 2);
+  cr_assert(strstr(read_file("err.txt"), "not a run folder"));
+  cr_assert_eq(brink("export nowhere --csv"), 2);
+}
