@@ -331,7 +331,12 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
     bk_study_free(s);
     return mrc == BK_ENOMEM || mrc == -ENOSPC ? BK_EXIT_RUNTIME : BK_EXIT_USAGE;
   }
-  if (access(s->run.folder, W_OK | X_OK) != 0) {
+  struct stat fst;
+  if (stat(s->run.folder, &fst) == 0 && !S_ISDIR(fst.st_mode))
+    errno = ENOTDIR;
+  else if (access(s->run.folder, W_OK | X_OK) == 0)
+    errno = 0;
+  if (errno) {
     fprintf(stderr, "brink: cannot write in the run folder %s: %s\n",
             s->run.folder, strerror(errno));
     bk_study_free(s);
