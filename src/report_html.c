@@ -934,10 +934,14 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
   bk_buf_reset(&v);
   bk_buf_printf(&v, "%.0f", jnum(j, "model_errors"));
   if (s->from_records && s->nerr) {
-    bk_buf_puts(&v, ":");
+    const char *sep = " (";
     for (int k = 1; k < BK_FAULT__COUNT; k++)
-      if (s->errs_by_kind[k])
-        bk_buf_printf(&v, " %zu %s", s->errs_by_kind[k], bk_fault_name(k));
+      if (s->errs_by_kind[k]) {
+        bk_buf_printf(&v, "%s%zu %s", sep, s->errs_by_kind[k],
+                      bk_fault_name(k));
+        sep = ", ";
+      }
+    bk_buf_puts(&v, "); see the table below");
   }
   row(o, "model errors", v.data);
   if (jnum(j, "excluded") > 0) {
