@@ -21,14 +21,16 @@
 #include "error.h"
 #include "dispatch.h"
 #include "exec.h"
+#include "exec_mpi.h"
 #include "method.h"
 #include "records.h"
 #include "report.h"
+#include "shard.h"
 #include "stop.h"
 #include "study.h"
 
 static const char run_help[] =
-    "usage: brink run STUDY.yaml [--quiet]\n"
+    "usage: brink run STUDY.yaml [--quiet] [--mpi | --shard I/N]\n"
     "\n"
     "Runs the study's method and writes report.txt and report.json into the\n"
     "run folder (run.folder, default runs/NAME beside the study file), then\n"
@@ -37,7 +39,13 @@ static const char run_help[] =
     "Ctrl-C (or SIGTERM, SIGUSR1) stops cleanly with exit code 3; running the\n"
     "same command again resumes and ends with the same numbers.\n"
     "\n"
-    "  -q, --quiet   no progress display and no report on stdout\n";
+    "  -q, --quiet    no progress display and no report on stdout\n"
+    "  --mpi          under mpirun or srun: rank 0 coordinates and keeps the\n"
+    "                 records, the other ranks run run.slots models each\n"
+    "  --shard I/N    evaluate shard I of N (0 <= I < N) of a random, lhs or\n"
+    "                 sobol study into records-shard-I-of-N.log, for job\n"
+    "                 arrays; `brink merge` then makes the report\n"
+    "See docs/cluster.md.\n";
 
 /* ---- progress ------------------------------------------------------- */
 
@@ -159,6 +167,7 @@ typedef struct {
   bk_records_t *records;
   bk_exec_t *exec;
   bk_dispatch_t *dispatch;
+  bk_mpi_coord_t *coord;
   char *work_dir;
   char host[256];
 } model_run_t;
@@ -167,6 +176,7 @@ static int model_run_close(model_run_t *m, bk_error_t *err) {
   int rc = 0;
   bk_dispatch_free(m->dispatch);
   bk_exec_free(m->exec);
+  bk_mpi_coord_free(m->coord);
   if (m->records && (rc = bk_records_close(m->records)) != 0)
     bk_error_set(err, rc, NULL, 0, 0, "cannot close the records: %s",
                  bk_strerror(rc));
@@ -175,53 +185,34 @@ static int model_run_close(model_run_t *m, bk_error_t *err) {
   return rc;
 }
 
-/* Opens the records (resuming), the executor and the dispatcher. Returns 0
- * or an exit code, having printed why. */
+/* How this process takes part in the run. */
+typedef struct {
+  int mpi;          /* rank 0 of an MPI run with workers */
+  bk_shard_t shard; /* count 0 = not sharded */
+} run_mode_t;
+
+/* Opens the records (resuming), then the executor and the dispatcher, or
+ * in the MPI mode the coordinator. Returns 0 or an exit code, having
+ * printed why. */
 static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
-                          int quiet) {
+                          int quiet, const run_mode_t *mode) {
   bk_error_t err;
   bk_error_clear(&err);
-  size_t nparts = 3 + s->model.ndecks;
-  bk_fingerprint_part_t *parts = bk_calloc(nparts, sizeof *parts);
-  char **names = bk_calloc(nparts, sizeof *names);
-  if (!parts || !names) {
-    bk_free(parts);
-    bk_free(names);
+  bk_study_ident_t id;
+  if (bk_study_ident_init(&id, s)) {
     fprintf(stderr, "brink: out of memory\n");
     return BK_EXIT_RUNTIME;
   }
-  parts[0] = (bk_fingerprint_part_t){"study", s->digest_study};
-  parts[1] = (bk_fingerprint_part_t){"model", s->digest_model};
-  parts[2] = (bk_fingerprint_part_t){"tool", "brink-" BK_VERSION};
-  for (size_t i = 0; i < s->model.ndecks; i++) {
-    bk_buf_t b;
-    bk_buf_init(&b);
-    bk_buf_printf(&b, "template %s", s->model.decks[i].template_name);
-    names[3 + i] = b.data;
-    parts[3 + i] = (bk_fingerprint_part_t){b.data, s->model.decks[i].digest};
-  }
-  const char **ynames = bk_calloc(s->model.noutputs + 1, sizeof *ynames);
-  for (size_t i = 0; ynames && i < s->model.noutputs; i++)
-    ynames[i] = s->model.outputs[i].name;
+  char logname[96] = "records.log";
+  if (mode->shard.count)
+    bk_shard_log_name(&mode->shard, logname, sizeof logname);
   bk_buf_t lp;
   bk_buf_init(&lp);
-  bk_buf_printf(&lp, "%s/records.log", s->run.folder);
-  bk_records_opts_t ro = {
-      .path = lp.data,
-      .tool = "brink " BK_VERSION,
-      .nparts = nparts,
-      .parts = parts,
-      .nx = s->nvars,
-      .xnames = (const char *const *)s->var_names,
-      .ny = s->model.noutputs,
-      .ynames = ynames,
-  };
+  bk_buf_printf(&lp, "%s/%s", s->run.folder, logname);
+  bk_records_opts_t ro;
+  bk_study_ident_opts(&id, s, lp.data, &ro);
   int rc = bk_records_open(&m->records, &ro, &err);
-  for (size_t i = 3; i < nparts; i++)
-    bk_free(names[i]);
-  bk_free(names);
-  bk_free(parts);
-  bk_free(ynames);
+  bk_study_ident_close(&id);
   if (rc) {
     bk__cli_print_error(&err);
     bk_buf_close(&lp);
@@ -245,6 +236,21 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
             "%s\n",
             count, lp.data);
   bk_buf_close(&lp);
+  if (gethostname(m->host, sizeof m->host) != 0)
+    snprintf(m->host, sizeof m->host, "localhost");
+  m->host[sizeof m->host - 1] = '\0';
+  if (mode->mpi) {
+    /* The workers run the models; the coordinator only records. */
+    bk_mpi_coord_opts_t co = {s, m->records, on_tick, pr};
+    rc = bk_mpi_coord_new(&m->coord, &co, &err);
+    if (rc) {
+      if (rc != BK_ESTOPPED)
+        bk__cli_print_error(&err);
+      model_run_close(m, &err);
+      return rc == BK_ESTOPPED ? BK_EXIT_STOPPED : BK_EXIT_RUNTIME;
+    }
+    return 0;
+  }
   /* Run folders are named by absolute paths, so that _folder and
    * BRINK_FOLDER mean the same from inside the model's working folder. */
   char *abs_folder = realpath(s->run.folder, NULL);
@@ -292,30 +298,30 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
   return 0;
 }
 
-int bk__cmd_run(int argc, char **argv) {
-  const char *path = NULL;
-  int quiet = 0;
-  for (int i = 0; i < argc; i++) {
-    if (bk__cli_is_help(argv[i])) {
-      fputs(run_help, stdout);
-      return BK_EXIT_DONE;
-    } else if (strcmp(argv[i], "-q") == 0 || strcmp(argv[i], "--quiet") == 0)
-      quiet = 1;
-    else if (argv[i][0] == '-')
-      return bk__cli_usage_error("run: unknown option '%s'", argv[i]);
-    else if (path)
-      return bk__cli_usage_error(
-          "run: one study file at a time ('%s' is extra)", argv[i]);
-    else
-      path = argv[i];
-  }
-  if (!path)
-    return bk__cli_usage_error("run: %s", "give a study file, e.g. brink run "
-                                          "study.yaml");
+/* Runs the study in this process: locally, as one shard, or as the
+ * coordinator of an MPI run. Returns the exit code. */
+static int run_study(const char *path, int quiet, const run_mode_t *mode) {
   bk_study_t *s;
   int rc = bk__cli_load_study(path, &s);
   if (rc)
     return rc;
+  if (mode->shard.count && !bk_shard_method_allowed(s->analysis.method)) {
+    fprintf(stderr,
+            "brink: --shard works with the sampling methods (random, lhs, "
+            "sobol) only: %s chooses each batch from the responses to the "
+            "earlier ones, so its keys cannot be split in advance. Run it "
+            "with --mpi to use several nodes\n",
+            bk_method_name(s->analysis.method));
+    bk_study_free(s);
+    return BK_EXIT_USAGE;
+  }
+  if (mode->shard.count && !s->model.present) {
+    fprintf(stderr, "brink: --shard needs a study with a model section "
+                    "(without one, a study runs in process and keeps no "
+                    "records to merge)\n");
+    bk_study_free(s);
+    return BK_EXIT_USAGE;
+  }
   bk_error_t err;
   bk_error_clear(&err);
   int mrc = bk__cli_make_dirs(s->run.folder);
@@ -323,8 +329,7 @@ int bk__cmd_run(int argc, char **argv) {
     fprintf(stderr, "brink: cannot create the run folder %s: %s\n",
             s->run.folder, bk_strerror(mrc));
     bk_study_free(s);
-    return mrc == BK_ENOMEM || mrc == -ENOSPC ? BK_EXIT_RUNTIME
-                                              : BK_EXIT_USAGE;
+    return mrc == BK_ENOMEM || mrc == -ENOSPC ? BK_EXIT_RUNTIME : BK_EXIT_USAGE;
   }
   struct stat fst;
   if (stat(s->run.folder, &fst) == 0 && !S_ISDIR(fst.st_mode))
@@ -343,6 +348,9 @@ int bk__cmd_run(int argc, char **argv) {
   pr.quiet = quiet;
   pr.start = now_seconds();
   pr.planned = planned_evaluations(s);
+  if (mode->shard.count)
+    pr.planned = (pr.planned + mode->shard.count - 1 - mode->shard.index) /
+                 mode->shard.count;
   pr.pf = NAN;
   pr.cov = NAN;
   bk_method_opts_t opts = {on_progress, &pr};
@@ -350,19 +358,36 @@ int bk__cmd_run(int argc, char **argv) {
   model_run_t mr;
   memset(&mr, 0, sizeof mr);
   if (s->model.present) {
-    rc = model_run_open(s, &mr, &pr, quiet);
+    rc = model_run_open(s, &mr, &pr, quiet, mode);
     if (rc) {
       bk_study_free(s);
       return rc;
     }
-    bk_dispatch_evaluator(mr.dispatch, &ev);
+    if (mr.coord)
+      bk_mpi_coord_evaluator(mr.coord, &ev);
+    else
+      bk_dispatch_evaluator(mr.dispatch, &ev);
   } else {
     bk_evaluator_inprocess(&ev, s);
+  }
+  /* A shard evaluates every planned sample of its keys: the stopping rule
+   * needs all shards' responses, so merge applies it. Its own estimate
+   * (other keys taken as safe) means nothing and is not reported. */
+  bk_study_t shard_study = *s;
+  bk_shard_eval_t se = {mode->shard, &ev, 0};
+  bk_evaluator_t shard_ev;
+  const bk_study_t *ms = s;
+  if (mode->shard.count) {
+    shard_study.analysis.target_cov = 0;
+    ms = &shard_study;
+    bk_shard_evaluator(&se, &shard_ev);
+    pr.quiet = 1;
   }
   bk_stop_install();
   bk_result_t res;
   double t0 = now_seconds();
-  rc = bk_method_run(s, &ev, &opts, &res, &err);
+  rc =
+      bk_method_run(ms, mode->shard.count ? &shard_ev : &ev, &opts, &res, &err);
   res.seconds = now_seconds() - t0;
   if (pr.shown && pr.tty)
     fputc('\n', stderr);
@@ -371,12 +396,15 @@ int bk__cmd_run(int argc, char **argv) {
   int crc = model_run_close(&mr, &err);
   if (rc == 0 && crc)
     rc = crc;
+  char logname[96] = "records.log";
+  if (mode->shard.count)
+    bk_shard_log_name(&mode->shard, logname, sizeof logname);
   if (rc == BK_ESTOPPED) {
     if (s->model.present)
       fprintf(stderr,
-              "brink: stopped; %llu evaluations are recorded in %s/records.log."
-              " Run `brink run %s` again to resume\n",
-              (unsigned long long)recorded, s->run.folder, path);
+              "brink: stopped; %llu evaluations are recorded in %s/%s."
+              " Run the same command again to resume\n",
+              (unsigned long long)recorded, s->run.folder, logname);
     else
       fprintf(stderr,
               "brink: stopped after %llu evaluations; run `brink run %s` "
@@ -393,6 +421,13 @@ int bk__cmd_run(int argc, char **argv) {
   } else if (rc) {
     bk__cli_print_error(&err);
     exit_code = BK_EXIT_RUNTIME;
+  } else if (mode->shard.count) {
+    if (!quiet)
+      printf("brink: shard %u/%u done: %llu evaluations recorded in %s/%s.\n"
+             "When all %u shards are done, run `brink merge %s` for the "
+             "report.\n",
+             mode->shard.index, mode->shard.count, (unsigned long long)recorded,
+             s->run.folder, logname, mode->shard.count, path);
   } else {
     bk_buf_t text, json;
     bk_buf_init(&text);
@@ -414,4 +449,176 @@ int bk__cmd_run(int argc, char **argv) {
   bk_result_close(&res);
   bk_study_free(s);
   return exit_code;
+}
+
+/* A worker rank of an MPI run: loads the study, prepares its executor and
+ * dispatcher, and evaluates what the coordinator sends. Whatever goes
+ * wrong is reported to the coordinator rather than printed here. */
+static int run_worker(const char *path, int rank) {
+  char host[256];
+  if (gethostname(host, sizeof host) != 0)
+    snprintf(host, sizeof host, "localhost");
+  host[sizeof host - 1] = '\0';
+  bk_error_t err;
+  bk_error_clear(&err);
+  bk_study_t *s = NULL;
+  char failure[1600] = "";
+  bk_buf_t wd, kd, lp;
+  bk_buf_init(&wd);
+  bk_buf_init(&kd);
+  bk_buf_init(&lp);
+  bk_records_t *rec = NULL;
+  bk_exec_t *ex = NULL;
+  bk_dispatch_t *d = NULL;
+  int rc = bk_study_load(path, &s, &err);
+  if (rc) {
+    snprintf(failure, sizeof failure, "cannot load %s: %s%s%s", path,
+             err.path[0] ? err.path : "", err.path[0] ? ": " : "", err.msg);
+    goto greet;
+  }
+  if (!s->model.present)
+    goto greet;
+  char *abs_folder = realpath(s->run.folder, NULL);
+  const char *folder = abs_folder ? abs_folder : s->run.folder;
+  if (s->run.scratch[0]) {
+    bk_buf_printf(&wd, "%s/brink-%s-r%d-%ld", s->run.scratch, s->name, rank,
+                  (long)getpid());
+    bk_buf_printf(&kd, "%s/work", folder);
+    bk_buf_printf(&lp, "%s/.worker-records.log", wd.data);
+  } else {
+    bk_buf_printf(&wd, "%s/work", folder);
+    const char *tmp = getenv("TMPDIR");
+    bk_buf_printf(&lp, "%s/brink-worker-%s-%ld.log", tmp && *tmp ? tmp : "/tmp",
+                  host, (long)getpid());
+  }
+  free(abs_folder);
+  if ((rc = bk__cli_make_dirs(wd.data)) != 0 ||
+      (kd.data && (rc = bk__cli_make_dirs(kd.data)) != 0)) {
+    snprintf(failure, sizeof failure, "cannot create %s: %s",
+             kd.data && access(wd.data, W_OK) == 0 ? kd.data : wd.data,
+             bk_strerror(rc));
+    goto greet;
+  }
+  bk_study_ident_t id;
+  if (bk_study_ident_init(&id, s)) {
+    snprintf(failure, sizeof failure, "out of memory");
+    goto greet;
+  }
+  bk_records_opts_t ro;
+  bk_study_ident_opts(&id, s, lp.data, &ro);
+  ro.sync_interval = 1e9;
+  rc = bk_records_open(&rec, &ro, &err);
+  bk_study_ident_close(&id);
+  if (rc) {
+    snprintf(failure, sizeof failure, "cannot open %s: %s", lp.data, err.msg);
+    goto greet;
+  }
+  if ((rc = bk_exec_local_new(&ex, s->run.slots)) != 0) {
+    snprintf(failure, sizeof failure, "cannot start the executor: %s",
+             bk_strerror(rc));
+    goto greet;
+  }
+  bk_dispatch_opts_t dop = {
+      .study = s,
+      .records = rec,
+      .exec = ex,
+      .work_dir = wd.data,
+      .host = host,
+  };
+  if (bk_dispatch_new(&d, &dop)) {
+    snprintf(failure, sizeof failure, "out of memory");
+    goto greet;
+  }
+greet:;
+  bk_evaluator_t local;
+  if (d)
+    bk_dispatch_evaluator(d, &local);
+  bk_mpi_worker_opts_t wo = {s, &local, rec, wd.data, kd.data, host};
+  bk_stop_install();
+  rc = bk_mpi_worker_run(d ? &wo : NULL, failure[0] ? failure : NULL);
+  bk_dispatch_free(d);
+  bk_exec_free(ex);
+  bk_records_close(rec);
+  if (lp.data) {
+    unlink(lp.data);
+    bk_buf_t lk;
+    bk_buf_init(&lk);
+    bk_buf_printf(&lk, "%s.lock", lp.data);
+    if (lk.data)
+      unlink(lk.data);
+    bk_buf_close(&lk);
+  }
+  /* The scratch folder goes when nothing was left in it. */
+  if (kd.data && wd.data)
+    rmdir(wd.data);
+  bk_buf_close(&wd);
+  bk_buf_close(&kd);
+  bk_buf_close(&lp);
+  bk_study_free(s);
+  return rc ? BK_EXIT_RUNTIME : BK_EXIT_DONE;
+}
+
+int bk__cmd_run(int argc, char **argv) {
+  const char *path = NULL;
+  int quiet = 0;
+  run_mode_t mode;
+  memset(&mode, 0, sizeof mode);
+  int want_mpi = 0;
+  for (int i = 0; i < argc; i++) {
+    if (bk__cli_is_help(argv[i])) {
+      fputs(run_help, stdout);
+      return BK_EXIT_DONE;
+    } else if (strcmp(argv[i], "-q") == 0 || strcmp(argv[i], "--quiet") == 0)
+      quiet = 1;
+    else if (strcmp(argv[i], "--mpi") == 0)
+      want_mpi = 1;
+    else if (strcmp(argv[i], "--shard") == 0 ||
+             strncmp(argv[i], "--shard=", 8) == 0) {
+      const char *v = argv[i][7] == '=' ? argv[i] + 8 : NULL;
+      if (!v && i + 1 < argc)
+        v = argv[++i];
+      char why[200];
+      if (bk_shard_parse(v, &mode.shard, why, sizeof why))
+        return bk__cli_usage_error("run: %s", why);
+    } else if (argv[i][0] == '-')
+      return bk__cli_usage_error("run: unknown option '%s'", argv[i]);
+    else if (path)
+      return bk__cli_usage_error(
+          "run: one study file at a time ('%s' is extra)", argv[i]);
+    else
+      path = argv[i];
+  }
+  if (!path)
+    return bk__cli_usage_error("run: %s", "give a study file, e.g. brink run "
+                                          "study.yaml");
+  if (want_mpi && mode.shard.count)
+    return bk__cli_usage_error("run: %s",
+                               "--mpi and --shard do not combine: use MPI "
+                               "ranks or array tasks, not both");
+  if (!want_mpi)
+    return run_study(path, quiet, &mode);
+  if (!bk_mpi_available()) {
+    fprintf(stderr, "brink: this brink was built without MPI (meson did not "
+                    "find it); install OpenMPI's development files and "
+                    "rebuild, or use --shard with a job array\n");
+    return BK_EXIT_USAGE;
+  }
+  int rank = 0, size = 1;
+  if (bk_mpi_init(NULL, NULL, &rank, &size)) {
+    fprintf(stderr, "brink: cannot start MPI\n");
+    return BK_EXIT_RUNTIME;
+  }
+  int code;
+  if (rank > 0) {
+    code = run_worker(path, rank);
+  } else {
+    /* With a single rank there are no workers: rank 0 runs the models. */
+    mode.mpi = size > 1;
+    if (size == 1 && !quiet)
+      fprintf(stderr, "brink: one MPI rank: running the models on it\n");
+    code = run_study(path, quiet, &mode);
+    bk_mpi_quit_workers();
+  }
+  bk_mpi_finalize();
+  return code;
 }
