@@ -8,6 +8,7 @@
 
 #include <math.h>
 #include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
 
 void bk_svg_escape(bk_buf_t *o, const char *s) {
@@ -56,19 +57,25 @@ size_t bk_svg_ticks(double lo, double hi, int target, double *t, size_t cap) {
 
 void bk_svg_format(char *b, size_t n, double v, double step) {
   double a = fabs(v);
-  if (v == 0)
+  if (v == 0) {
     snprintf(b, n, "0");
-  else if (a >= 1e5 || a < 1e-3 || (step == 0 && a < 1)) {
-    snprintf(b, n, "%.3g", v);
-    /* 1e-04 -> 1e-4 */
-    char *e = strchr(b, 'e');
-    if (e) {
-      char *d = e + 2;
-      while (*d == '0' && d[1])
-        memmove(d, d + 1, strlen(d));
-      if (e[1] == '+')
-        memmove(e + 1, e + 2, strlen(e + 1));
-    }
+  } else if (a >= 1e5 || a < 1e-3) {
+    /* 1.00e-04 -> 1e-4, 2.50e+05 -> 2.5e5 */
+    char t[40];
+    snprintf(t, sizeof t, "%.2e", v);
+    char *e = strchr(t, 'e');
+    char mant[40];
+    size_t m = (size_t)(e - t);
+    memcpy(mant, t, m);
+    mant[m] = '\0';
+    while (m > 0 && mant[m - 1] == '0')
+      mant[--m] = '\0';
+    if (m > 0 && mant[m - 1] == '.')
+      mant[--m] = '\0';
+    int ex = atoi(e + 1);
+    snprintf(b, n, "%se%d", mant, ex);
+  } else if (step == 0) {
+    snprintf(b, n, "%g", v);
   } else {
     int dec = step > 0 && step < 1 ? (int)ceil(-log10(step) - 1e-9) : 0;
     if (dec > 6)
