@@ -340,6 +340,26 @@ int bk__cmd_check(int argc, char **argv) {
       printf("  note: Sobol points are best balanced when each replicate is "
              "a power of two (e.g. %llu)\n",
              (unsigned long long)(1ull << (int)floor(log2((double)per))));
+  } else if (a->method == BK_METHOD_FORM || a->method == BK_METHOD_IMPORTANCE) {
+    const bk_form_opts_t *fo = &a->form;
+    size_t nu = bk_transform_nu(s->transform);
+    if (a->method == BK_METHOD_IMPORTANCE && a->importance.has_center)
+      printf("  importance sampling centred at the given "
+             "analysis.importance.center\n");
+    else
+      printf("  FORM (improved HL-RF): %s differences, step %g in u, "
+             "tolerance %g,\n  at most %d iterations of %zu evaluations "
+             "each%s\n",
+             fo->central ? "central" : "forward", fo->step, fo->tolerance,
+             fo->max_iterations, (fo->central ? 2 * nu : nu) + 1,
+             fo->sorm && a->method == BK_METHOD_FORM
+                 ? ", then a SORM curvature batch"
+                 : "");
+    if (a->method == BK_METHOD_IMPORTANCE)
+      printf("  then importance sampling in batches of %llu, up to %llu "
+             "evaluations in all\n",
+             (unsigned long long)a->samples,
+             (unsigned long long)a->max_evaluations);
   } else {
     printf("  up to %llu evaluations\n",
            (unsigned long long)(a->samples && a->samples < a->max_evaluations
