@@ -230,8 +230,42 @@ typedef struct {
   size_t nerr, caperr;
   size_t errs_by_kind[BK_FAULT__COUNT];
   int from_records;
-  size_t limit; /* in process: how many points were recomputed */
+  size_t limit; /* in process: how many points were kept */
+  /* Over every evaluation seen (all records; in process, the first
+   * STREAM of the design): sums for the influence of the inputs, and the
+   * first FAILCAP failures for the scatter. */
+  uint64_t nall, nfailall;
+  double *sum, *sumsq, *fsum;
+  double *fx;
+  size_t nfx;
 } samples_t;
+
+#define FAILCAP 3000
+#define SUBSAMPLE 20000
+#define STREAM (1u << 22)
+
+static int stats_init(samples_t *s) {
+  s->sum = bk_calloc(s->nx + 1, sizeof *s->sum);
+  s->sumsq = bk_calloc(s->nx + 1, sizeof *s->sumsq);
+  s->fsum = bk_calloc(s->nx + 1, sizeof *s->fsum);
+  s->fx = bk_calloc(FAILCAP * s->nx + 1, sizeof *s->fx);
+  return s->sum && s->sumsq && s->fsum && s->fx ? 0 : BK_ENOMEM;
+}
+
+static void stats_add(samples_t *s, const double *x, double g) {
+  s->nall++;
+  for (size_t i = 0; i < s->nx; i++) {
+    s->sum[i] += x[i];
+    s->sumsq[i] += x[i] * x[i];
+  }
+  if (g <= 0) {
+    s->nfailall++;
+    for (size_t i = 0; i < s->nx; i++)
+      s->fsum[i] += x[i];
+    if (s->nfx < FAILCAP)
+      memcpy(s->fx + s->nfx++ * s->nx, x, s->nx * sizeof *x);
+  }
+}
 
 static void samples_close(samples_t *s) {
   bk_free(s->x);
@@ -242,6 +276,10 @@ static void samples_close(samples_t *s) {
     bk_free(s->err[i].note);
   }
   bk_free(s->err);
+  bk_free(s->sum);
+  bk_free(s->sumsq);
+  bk_free(s->fsum);
+  bk_free(s->fx);
   memset(s, 0, sizeof *s);
 }
 
@@ -293,6 +331,7 @@ static int on_record(void *data, const bk_record_t *r) {
   }
   if (r->nx != s->nx)
     return 0;
+  stats_add(s, r->x, r->g);
   return samples_push(s, r->x, r->g, r->seconds);
 }
 
@@ -305,22 +344,28 @@ typedef struct {
 static int capture_batch(bk_evaluator_t *ev, const char *prefix,
                          bk_point_t *pts, size_t n, bk_error_t *err) {
   capture_t *c = ev->data;
-  if (c->s->n >= c->limit)
+  if (c->s->nall >= STREAM)
     return BK_ESTOPPED;
   int rc = c->inner.batch(&c->inner, prefix, pts, n, err);
   if (rc)
     return rc;
-  for (size_t i = 0; i < n && c->s->n < c->limit; i++)
-    if ((rc = samples_push(c->s, pts[i].x, pts[i].g, NAN)) != 0)
+  for (size_t i = 0; i < n; i++) {
+    if (c->s->n < c->limit &&
+        (rc = samples_push(c->s, pts[i].x, pts[i].g, NAN)) != 0)
       return rc;
+    stats_add(c->s, pts[i].x, pts[i].g);
+  }
   return 0;
 }
 
 #define SUBSAMPLE 20000
+#define STREAM    (1u << 22)
 
 static int load_samples(const char *folder, const bk_study_t *st,
                         samples_t *s) {
   s->nx = st->nvars;
+  if (stats_init(s))
+    return BK_ENOMEM;
   if (st->model.present) {
     bk_buf_t lp;
     bk_buf_init(&lp);
@@ -372,7 +417,7 @@ static const char css[] =
     "font-size:13px}\n"
     ".ok{color:#1f6f3a}.bad{color:#a3251b}.warn{color:#8a5a00}\n"
     "table{border-collapse:collapse;margin:6px 0 10px}"
-    "td,th{padding:3px 12px 3px 0;text-align:left;vertical-align:top}\n"
+    "td,th{padding:3px 18px 3px 0;text-align:left;vertical-align:top}\n"
     "th{color:#56616e;font-weight:normal;border-bottom:1px solid #c9d1da}\n"
     "td.n{text-align:right;font-variant-numeric:tabular-nums}\n"
     "code{font-family:'DejaVu Sans Mono',monospace;font-size:13px;"
@@ -596,21 +641,11 @@ static size_t influence(const bk_study_t *st, const samples_t *s,
     double v = NAN;
     if (alpha2) {
       v = jnum(alpha2, st->vars[i].name);
-    } else if (s->nfail > 0 && s->nfail < s->nok) {
-      double m = 0, mf = 0, ss = 0;
-      for (size_t k = 0; k < s->n; k++) {
-        double x = s->x[k * s->nx + i];
-        m += x;
-        if (s->g[k] <= 0)
-          mf += x;
-      }
-      m /= (double)s->n;
-      mf /= (double)s->nfail;
-      for (size_t k = 0; k < s->n; k++) {
-        double d = s->x[k * s->nx + i] - m;
-        ss += d * d;
-      }
-      double sd = sqrt(ss / (double)(s->n - 1));
+    } else if (s->nfailall > 0 && s->nfailall < s->nall) {
+      double n = (double)s->nall;
+      double m = s->sum[i] / n, mf = s->fsum[i] / (double)s->nfailall;
+      double var = (s->sumsq[i] - n * m * m) / (n - 1);
+      double sd = var > 0 ? sqrt(var) : 0;
       v = sd > 0 ? (mf - m) / sd : 0;
     }
     rk[n].var = i;
@@ -688,10 +723,10 @@ static void chart_influence(bk_buf_t *o, const bk_study_t *st, const rank_t *rk,
                   "%zu, in standard deviations of that input. A long bar "
                   "means failures need unusual values of that input; the "
                   "sign tells which side.%s</p>\n",
-                  s->nfail, s->nok,
-                  s->nfail < 20 ? " With fewer than 20 failures this ranking "
-                                  "is rough."
-                                : "");
+                  (size_t)s->nfailall, (size_t)s->nall,
+                  s->nfailall < 20 ? " With fewer than 20 failures this "
+                                     "ranking is rough."
+                                   : "");
 }
 
 static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
@@ -701,8 +736,10 @@ static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
   size_t a = rk[0].var, b = rk[1].var;
   bk_buf_puts(o, "<h3>The two most influential inputs</h3>\n");
   double x0 = INFINITY, x1 = -INFINITY, y0 = INFINITY, y1 = -INFINITY;
-  for (size_t k = 0; k < s->n; k++) {
-    double x = s->x[k * s->nx + a], y = s->x[k * s->nx + b];
+  for (size_t k = 0; k < s->n + s->nfx; k++) {
+    const double *row =
+        k < s->n ? s->x + k * s->nx : s->fx + (k - s->n) * s->nx;
+    double x = row[a], y = row[b];
     x0 = fmin(x0, x);
     x1 = fmax(x1, x);
     y0 = fmin(y0, y);
@@ -726,17 +763,18 @@ static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
       bk_svg_dot(&p, s->x[k * s->nx + a], s->x[k * s->nx + b], 2, "safe");
       drawn_safe++;
     }
-  for (size_t k = 0; k < s->n && drawn_fail < 3000; k++)
-    if (s->g[k] <= 0) {
-      bk_svg_dot(&p, s->x[k * s->nx + a], s->x[k * s->nx + b], 2.6, "fail");
-      drawn_fail++;
-    }
+  for (size_t k = 0; k < s->nfx; k++) {
+    bk_svg_dot(&p, s->fx[k * s->nx + a], s->fx[k * s->nx + b], 2.6, "fail");
+    drawn_fail++;
+  }
   bk_svg_end(&p);
   bk_buf_printf(o,
                 "<p class=\"note\">Red: failed (g &#8804; 0), %zu shown of "
-                "%zu; blue: safe, %zu shown of %zu. Values in the units of "
-                "the study file.</p>\n",
-                drawn_fail, s->nfail, drawn_safe, nsafe);
+                "the %llu found in %llu evaluations; blue: safe, %zu shown of "
+                "the %zu among the first %zu. Values in the units of the "
+                "study file.</p>\n",
+                drawn_fail, (unsigned long long)s->nfailall,
+                (unsigned long long)s->nall, drawn_safe, nsafe, s->n);
 }
 
 static void chart_times(bk_buf_t *o, const samples_t *s) {
