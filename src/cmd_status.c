@@ -96,7 +96,9 @@ static bk_study_t *find_study(const char *folder) {
         continue;
       bk_buf_t f;
       bk_buf_init(&f);
-      bk_buf_printf(&f, "%s/%s", dir.data, e->d_name);
+      char *real = realpath(dir.data, NULL);
+      bk_buf_printf(&f, "%s/%s", real ? real : dir.data, e->d_name);
+      free(real);
       bk_error_clear(&err);
       if (bk_study_load(f.data, &s, &err) == 0) {
         char *got = realpath(s->run.folder, NULL);
@@ -236,8 +238,8 @@ int bk__cmd_status(int argc, char **argv) {
            "report %s`)\n",
            folder);
   else
-    printf("  state          stopped: no brink is running on this folder; "
-           "`brink run STUDY.yaml` resumes it\n");
+    printf("  state          stopped; `brink run %s` resumes it\n",
+           s ? s->path : "STUDY.yaml");
 
   if (s && !s->model.present) {
     printf("  evaluations    in process: this study keeps no records, so its "
@@ -278,8 +280,7 @@ int bk__cmd_status(int argc, char **argv) {
                    s->analysis.method == BK_METHOD_SOBOL;
     printf("  failures       %llu (g <= 0)", (unsigned long long)t->failed);
     if (sampling && t->ok)
-      printf(", running estimate Pf = %.3e (failed / usable runs so far)",
-             (double)t->failed / (double)t->ok);
+      printf("; running estimate Pf = %.3e", (double)t->failed / (double)t->ok);
     printf("\n");
     uint64_t nerr = t->n - t->ok;
     printf("  model errors   %llu", (unsigned long long)nerr);
@@ -309,9 +310,17 @@ int bk__cmd_status(int argc, char **argv) {
       double rate = (double)slots / mean;
       printf("  run time       %.3g s per model run (mean of the last %zu)\n",
              mean, m);
-      if (s)
-        printf("  rate           about %.3g runs/min with %d slots\n",
-               60 * rate, slots);
+      if (s) {
+        char rb[48];
+        if (rate >= 1)
+          snprintf(rb, sizeof rb, "%.*f runs/s", rate < 10 ? 1 : 0, rate);
+        else if (rate * 60 >= 1)
+          snprintf(rb, sizeof rb, "%.1f runs/min", rate * 60);
+        else
+          snprintf(rb, sizeof rb, "%.2g runs/h", rate * 3600);
+        printf("  rate           about %s with %d slot%s\n", rb, slots,
+               slots == 1 ? "" : "s");
+      }
       if (plan > t->n && held == 1) {
         char eta[32];
         duration(eta, sizeof eta, (double)(plan - t->n) / rate);
