@@ -30,6 +30,11 @@ cd {{STUDYDIR}} || exit 1
 exec >>{{FOLDER}}/pbs-mpi.out 2>&1
 echo "brink: job ${PBS_JOBID} on $(hostname), start $(date -u +%FT%TZ)," \
   "round $round"
+# A resubmitted job runs after the previous one has ended, perhaps on a
+# node that died: the lock that run left behind is stale.
+if [ "$round" -gt 0 ]; then
+  rm -f "{{FOLDER}}/records.log.lock"
+fi
 pid=
 trap '[ -n "$pid" ] && kill -USR1 "$pid" 2>/dev/null' USR1 TERM
 (sleep {{STOP_AFTER}} && kill -USR1 $$) &

@@ -34,6 +34,11 @@ study={{STUDY}}
 shard="${SLURM_ARRAY_TASK_ID}/{{TASKS}}"
 echo "brink: shard $shard, job ${SLURM_JOB_ID} on $(hostname)," \
   "start $(date -u +%FT%TZ), restart ${SLURM_RESTART_COUNT:-0}"
+# A requeued job runs after its previous run has ended, perhaps on a node
+# that died: the lock that run left behind is stale.
+if [ "${SLURM_RESTART_COUNT:-0}" -gt 0 ]; then
+  rm -f "{{FOLDER}}/records-shard-${SLURM_ARRAY_TASK_ID}-of-{{TASKS}}.log.lock"
+fi
 pid=
 trap '[ -n "$pid" ] && kill -USR1 "$pid" 2>/dev/null' USR1 TERM
 "$brink" run --shard "$shard" --quiet "$study" &

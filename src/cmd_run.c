@@ -478,6 +478,8 @@ static int run_worker(const char *path, int rank) {
   }
   if (!s->model.present)
     goto greet;
+  /* Rank 0 may not have made the run folder yet. */
+  bk__cli_make_dirs(s->run.folder);
   char *abs_folder = realpath(s->run.folder, NULL);
   const char *folder = abs_folder ? abs_folder : s->run.folder;
   if (s->run.scratch[0]) {

@@ -48,6 +48,20 @@ enum { ST_DONE = 0, ST_STOPPED = 1, ST_FAILED = 2 };
 
 /* Microseconds an idle rank sleeps between polls. */
 #define POLL_US 300
+/* Seconds a stopping coordinator waits for the workers' last results (the
+ * model grace from SIGTERM to SIGKILL is 5 s). A worker still silent then
+ * is taken as lost (its rank or node died): MPI is left without the
+ * finalizing handshake, which could wait for it forever. */
+#define STOP_WAIT 12.0
+
+/* Set when a worker did not answer a stop: skip the goodbye. */
+static int lost_worker;
+
+static double now_s(void) {
+  struct timespec ts;
+  clock_gettime(CLOCK_MONOTONIC, &ts);
+  return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
+}
 
 static void sleep_us(long us) {
   struct timespec ts = {us / 1000000, (us % 1000000) * 1000};
@@ -70,7 +84,8 @@ int bk_mpi_init(int *argc, char ***argv, int *rank, int *size) {
 }
 
 void bk_mpi_finalize(void) {
-  MPI_Finalize();
+  if (!lost_worker)
+    MPI_Finalize();
 }
 
 /* ---- packing ----------------------------------------------------------- */
@@ -242,6 +257,8 @@ const bk_dispatch_stats_t *bk_mpi_coord_stats(const bk_mpi_coord_t *c) {
 }
 
 void bk_mpi_quit_workers(void) {
+  if (lost_worker)
+    return;
   int size;
   MPI_Comm_size(MPI_COMM_WORLD, &size);
   for (int r = 1; r < size; r++)
@@ -398,9 +415,15 @@ static int coord_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
       per = even > 0 ? even : 1;
   }
   int busy = 0, stopping = 0, failed = 0;
+  double stop_at = 0;
   for (;;) {
-    if (!stopping && !failed && (bk_stop_requested() || rc < 0)) {
+    if (stopping && now_s() - stop_at > STOP_WAIT) {
+      lost_worker = 1;
+      break;
+    }
+    if (!stopping && (bk_stop_requested() || rc < 0 || failed)) {
       stopping = 1;
+      stop_at = now_s();
       for (int i = 0; i < c->nworkers; i++)
         if (c->w[i].busy && !c->w[i].stop_sent) {
           MPI_Send("", 0, MPI_BYTE, i + 1, TAG_STOP, MPI_COMM_WORLD);

@@ -34,7 +34,8 @@ int bk_mpi_available(void);
 /* Initialises MPI (thread level serialized); *rank and *size of the world.
  * Returns 0 or BK_EINVAL when MPI is not available. */
 int bk_mpi_init(int *argc, char ***argv, int *rank, int *size);
-/* Finalizes MPI. */
+/* Finalizes MPI, unless a worker did not answer a stop (its rank is
+ * taken as lost; the launcher ends the job). */
 void bk_mpi_finalize(void);
 
 /* ---- coordinator (rank 0) ---------------------------------------------- */
