@@ -346,6 +346,24 @@ Test(badinput, torn_last_line_is_dropped_and_reported) {
   cr_assert_eq(n1, n0);
 }
 
+/* A link planted where a run folder goes (work/mc-0 -> ../../outside) is
+ * removed, not followed: nothing is written outside the run folder. */
+Test(badinput, run_folders_do_not_follow_symbolic_links) {
+  write_study(NULL, NULL);
+  char cmd[800];
+  snprintf(cmd, sizeof cmd,
+           "cd '%s' && mkdir -p outside out/work && echo keep > outside/f && "
+           "ln -s ../../outside out/work/mc-0 && ln -s ../../outside/f "
+           "out/work/mc-1",
+           dir);
+  cr_assert_eq(system(cmd), 0);
+  int rc = brink("run s.yaml --quiet");
+  cr_assert_eq(rc, 0, "exit %d: %s", rc, read_file("err.txt"));
+  snprintf(cmd, sizeof cmd, "cd '%s' && test \"$(ls outside)\" = f", dir);
+  cr_assert_eq(system(cmd), 0, "something was written into outside/");
+  cr_assert_str_eq(read_file("outside/f"), "keep\n");
+}
+
 /* ---- fuzz regressions and seeds -------------------------------------- */
 
 static int replay_folder(const char *path,
