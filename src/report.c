@@ -150,6 +150,16 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
       bk_buf_puts(o, ": ");
       bk_json_number(o, r->dp.x[i]);
     }
+    /* u of the random variables (constants take no u coordinate). */
+    bk_buf_puts(o, "}, \"u\": {");
+    for (size_t i = 0, k = 0; i < s->nvars; i++) {
+      if (s->vars[i].dist.kind == BK_DIST_CONSTANT)
+        continue;
+      bk_buf_puts(o, k ? ", " : "");
+      bk_json_string(o, s->vars[i].name);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->dp.u[k++]);
+    }
     bk_buf_puts(o, "}, \"alpha2\": {");
     for (size_t i = 0; i < s->nvars; i++) {
       bk_buf_puts(o, i ? ", " : "");
@@ -282,10 +292,16 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
       bk_buf_puts(o, "   Pf SORM (Breitung) ");
       num(o, r->dp.pf_sorm);
     }
-    bk_buf_printf(o, "\n    %-16s %14s %10s\n", "variable", "value", "alpha^2");
-    for (size_t i = 0; i < s->nvars; i++)
-      bk_buf_printf(o, "    %-16s %14.6g %10.4f\n", s->vars[i].name, r->dp.x[i],
-                    r->dp.alpha2[i]);
+    bk_buf_printf(o, "\n    %-16s %14s %10s %10s\n", "variable", "value", "u",
+                  "alpha^2");
+    for (size_t i = 0, k = 0; i < s->nvars; i++) {
+      bk_buf_printf(o, "    %-16s %14.6g ", s->vars[i].name, r->dp.x[i]);
+      if (s->vars[i].dist.kind == BK_DIST_CONSTANT)
+        bk_buf_printf(o, "%10s", "-");
+      else
+        bk_buf_printf(o, "%10.4f", r->dp.u[k++]);
+      bk_buf_printf(o, " %10.4f\n", r->dp.alpha2[i]);
+    }
   }
   for (size_t i = 0; i < r->ndetails; i++)
     bk_buf_printf(o, "  %-20s %.6g\n", r->details[i].label,
