@@ -240,9 +240,9 @@ typedef struct {
   size_t nfx;
 } samples_t;
 
-#define FAILCAP 3000
+#define FAILCAP   3000
 #define SUBSAMPLE 20000
-#define STREAM (1u << 22)
+#define STREAM    (1u << 22)
 
 static int stats_init(samples_t *s) {
   s->sum = bk_calloc(s->nx + 1, sizeof *s->sum);
@@ -505,7 +505,10 @@ static void chart_convergence(bk_buf_t *o, const jv_t *hist, double ci_level) {
     xmax = fmax(xmax, x[m]);
     m++;
   }
-  if (m == 0 || !(ymax > 0)) {
+  if (m == 1) {
+    bk_buf_puts(o, "<p class=\"note\">The method made a single estimate, so "
+                   "there is no convergence to draw.</p>\n");
+  } else if (m == 0 || !(ymax > 0)) {
     bk_buf_puts(o, "<p class=\"note\">No estimate with a failure yet, so "
                    "there is nothing to draw on a log scale.</p>\n");
   } else {
