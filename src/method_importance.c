@@ -203,7 +203,11 @@ int bk__method_importance(const bk_study_t *s, bk_evaluator_t *ev,
     }
     if (opts && opts->progress)
       opts->progress(opts->progress_data, res, a->max_evaluations);
-    if (t.n >= MIN_FOR_ERROR_LIMIT &&
+    /* The limit applies after MIN_FOR_ERROR_LIMIT evaluations, and
+     * whatever the count once the run ends (as in sampling). */
+    int last = res->evaluations >= a->max_evaluations ||
+               (a->target_cov > 0 && res->est.cov <= a->target_cov);
+    if ((t.n >= MIN_FOR_ERROR_LIMIT || last) &&
         (double)t.errors / (double)t.n > s->model.max_error_fraction &&
         (s->model.present || t.errors == t.n)) {
       rc = bk_error_set(err, BK_EMODEL, NULL, 0, 0,
