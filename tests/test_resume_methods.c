@@ -4,7 +4,8 @@
  * a run killed with SIGKILL at random moments and resumed ends with the
  * same records, key for key, and the same numbers as an uninterrupted run
  * (DESIGN.md section 4, "Evaluation key"). One Test() per method; the
- * helpers at the top are shared.
+ * helpers at the top are shared. Also the command-line side of FORM's
+ * non-convergence (exit 0, the report written).
  *
  * SPDX-License-Identifier: MIT
  */
@@ -227,4 +228,24 @@ Test(resume_methods, importance_resumes_after_kill_9_with_identical_records) {
   cr_assert(strstr(plan, "\"pf_from\": \"pilot report.json\""), "%s", plan);
   cr_assert(strstr(plan, "\"seconds_from\": \"pilot records.log\""), "%s",
             plan);
+}
+
+/* FORM that stops on its iteration cap: exit 0, the report written, and
+ * the non-convergence in the text and in the JSON (docs/methods.md). */
+Test(resume_methods, form_not_converging_exits_0_with_the_report) {
+  write_file("nc.yaml", "name: nc\n"
+                        "variables:\n"
+                        "  r: {type: lognormal, mean: 3, cov: 0.3}\n"
+                        "  s: {type: gumbel, mean: 1.2, cov: 0.4}\n"
+                        "limit_state: r - s\n"
+                        "analysis: {method: form, form: {max_iterations: 2, "
+                        "tolerance: 1e-9}}\n"
+                        "run: {folder: nc}\n");
+  cr_assert_eq(brink("run nc.yaml"), 0, "%s", read_file("err.txt"));
+  char *text = read_file("nc/report.txt");
+  cr_assert(strstr(text, "NOT converged after 2 iterations"), "%s", text);
+  cr_assert(strstr(text, "WARNING: FORM did NOT converge"), "%s", text);
+  char *json = read_file("nc/report.json");
+  cr_assert(strstr(json, "\"converged\": false"), "%s", json);
+  cr_assert(strstr(json, "\"warnings\": [\"FORM did NOT converge"), "%s", json);
 }
