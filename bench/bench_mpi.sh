@@ -47,13 +47,13 @@ echo "machine: $(nproc) cores, $(uname -r), OpenMPI $(mpirun --version | head -1
 printf '%-8s %6s %10s %8s %8s %8s\n' model ranks evals seconds speedup efficiency
 for spec in "0.05 120" "1 24"; do
   read -r s n <<<"$spec"
-  study loc "slow $s" "$n"
-  t0=$(now); "$brink" run "$tmp/loc.yaml" --quiet; t1=$(now)
+  study "loc$s" "slow $s" "$n"
+  t0=$(now); "$brink" run "$tmp/loc$s.yaml" --quiet; t1=$(now)
   tl=$(echo "$t1 - $t0" | bc -l)
   printf '%-8s %6s %10s %8.2f %8s %8s\n' "${s}s" local "$n" "$tl" 1.00 1.00
   for r in 1 2 3; do
-    study "m$r" "slow $s" "$n"
-    t0=$(now); mpirun -n "$r" "$brink" run --mpi --quiet "$tmp/m$r.yaml" 2>/dev/null; t1=$(now)
+    study "m$r-$s" "slow $s" "$n"
+    t0=$(now); mpirun -n "$r" "$brink" run --mpi --quiet "$tmp/m$r-$s.yaml" 2>/dev/null; t1=$(now)
     tm=$(echo "$t1 - $t0" | bc -l)
     w=$((r > 1 ? r - 1 : 1))
     printf '%-8s %6s %10s %8.2f %8.2f %8.2f\n' "${s}s" "$r" "$n" "$tm" \
@@ -69,5 +69,5 @@ cpu0() { # folder samples -> rank 0 CPU seconds
 }
 small=$(cpu0 c10 10)
 big=$(cpu0 c2000 2000)
-echo "coordinator CPU per evaluation: $(echo "($big - $small) * 1e6 / 1990" | bc -l | xargs printf '%.0f') us" \
+echo "coordinator CPU per evaluation: $(echo "($big - $small) * 1000000 / 1990" | bc -l | xargs printf '%.0f') us" \
   "(rank 0: $big s for 2000, $small s for 10)"

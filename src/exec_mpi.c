@@ -46,8 +46,10 @@
 enum { TAG_HELLO = 11, TAG_WORK, TAG_RESULT, TAG_STOP, TAG_QUIT };
 enum { ST_DONE = 0, ST_STOPPED = 1, ST_FAILED = 2 };
 
-/* Microseconds an idle rank sleeps between polls. */
-#define POLL_US 300
+/* Microseconds an idle rank sleeps between polls: short right after a
+ * message, doubling while nothing comes, up to POLL_MAX_US. */
+#define POLL_US     50
+#define POLL_MAX_US 1000
 /* Seconds a stopping coordinator waits for the workers' last results (the
  * model grace from SIGTERM to SIGKILL is 5 s). A worker still silent then
  * is taken as lost (its rank or node died): MPI is left without the
@@ -416,6 +418,7 @@ static int coord_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
   }
   int busy = 0, stopping = 0, failed = 0;
   double stop_at = 0;
+  long idle_us = POLL_US;
   for (;;) {
     if (stopping && now_s() - stop_at > STOP_WAIT) {
       lost_worker = 1;
@@ -444,9 +447,11 @@ static int coord_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
     MPI_Status mst;
     MPI_Iprobe(MPI_ANY_SOURCE, TAG_RESULT, MPI_COMM_WORLD, &flag, &mst);
     if (!flag) {
-      sleep_us(POLL_US);
+      sleep_us(idle_us);
+      idle_us = idle_us * 2 < POLL_MAX_US ? idle_us * 2 : POLL_MAX_US;
       continue;
     }
+    idle_us = POLL_US;
     bk_error_t e2;
     bk_error_clear(&e2);
     int st = take_result(c, prefix, pts, &mst, &e2);
@@ -693,14 +698,17 @@ static void work_chunk(const bk_mpi_worker_opts_t *o, const char *m, int len) {
 
 int bk_mpi_worker_run(const bk_mpi_worker_opts_t *opts, const char *failure) {
   send_hello(opts ? opts->host : "?", failure);
+  long idle_us = POLL_US;
   for (;;) {
     int flag;
     MPI_Status st;
     MPI_Iprobe(0, MPI_ANY_TAG, MPI_COMM_WORLD, &flag, &st);
     if (!flag) {
-      sleep_us(POLL_US);
+      sleep_us(idle_us);
+      idle_us = idle_us * 2 < POLL_MAX_US ? idle_us * 2 : POLL_MAX_US;
       continue;
     }
+    idle_us = POLL_US;
     int len;
     char *m = recv_probed(&st, &len);
     if (st.MPI_TAG == TAG_QUIT) {
