@@ -9,8 +9,9 @@
  * with g at or below it are the elite set, weighted by phi(u) / h_t(u)
  * (the likelihood ratio towards the optimal density of that threshold),
  * and the next density is the mixture of analysis.cross_entropy.components
- * Gaussians fitted to them by weighted EM. Adaptation stops when the
- * threshold reaches 0 or after max_steps steps.
+ * Gaussians fitted to them by weighted EM, each covariance blended with
+ * the previous density's (smoothed updating, see ALPHA). Adaptation stops
+ * when the threshold reaches 0 or after max_steps steps.
  *
  * Estimation. The final density samples batches of analysis.samples
  * points, keys "ce/final/<i>", i counting on across batches; the estimate

@@ -118,7 +118,9 @@ static int evaluate(ss_t *m, const char *prefix, const double *us,
   return check_error_limit(m, 0);
 }
 
-/* Sorting order: by g, then by position (deterministic on ties). */
+/* Sorting order: by g, then by position (deterministic on ties). qsort
+ * has no context argument in C11, so the g array is passed through a file
+ * variable: one subset run at a time per process. */
 static const double *sort_g;
 static int cmp_order(const void *a, const void *b) {
   size_t i = *(const size_t *)a, j = *(const size_t *)b;
