@@ -218,6 +218,10 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
     bk_buf_close(&lp);
     /* Records of another study, damaged records and a folder that cannot
      * be written are bad input: exit 2, nothing written. */
+    if (rc == -ENOSPC || rc == -EDQUOT || rc == BK_ENOSPACE) {
+      fprintf(stderr, "brink: free space and run the same command again\n");
+      return BK_EXIT_STOPPED;
+    }
     return rc == BK_EMISMATCH || rc == BK_ECORRUPT || rc == -EACCES ||
                    rc == -EROFS || rc == -EPERM || rc == -ENOTDIR
                ? BK_EXIT_USAGE

@@ -229,6 +229,28 @@ Test(faults, disk_full_while_writing_records) {
   cr_assert_str_eq(canonical_records("fs/out"), want);
 }
 
+/* No room even for the records' header and lock: exit 3 as well. */
+Test(faults, disk_full_before_the_records_exist) {
+  write_deck(0);
+  if (!mount_small_fs(256))
+    cr_skip_test("cannot mount a tmpfs here (needs root)");
+  char run[700];
+  snprintf(run, sizeof run, "folder: fs/out, slots: 2, scratch: '%s'", dir);
+  write_study("full.yaml", "ok", 20, "", run);
+  char p[600];
+  snprintf(p, sizeof p, "%s/fs/out", dir);
+  cr_assert_eq(mkdir(p, 0755), 0);
+  fill_fs(0);
+  int rc = brink("run full.yaml");
+  char *err = read_file("err.txt");
+  cr_assert_eq(rc, 3, "exit %d: %s", rc, err);
+  cr_assert(strstr(err, "No space left on device"), "%s", err);
+  free_fs();
+  rc = brink("run full.yaml --quiet");
+  cr_assert_eq(rc, 0, "exit %d: %s", rc, read_file("err.txt"));
+  cr_assert_eq(count_lines(canonical_records("fs/out")), 20);
+}
+
 /* Run folders on a file system with no room for the decks: exit 3 naming
  * the deck; the resume after freeing space ends with the same records. */
 Test(faults, disk_full_while_rendering_decks) {
