@@ -1162,9 +1162,16 @@ static int load_analysis(loader_t *L, yaml_node_t *an) {
   switch (a->method) {
   case BK_METHOD_IMPORTANCE:
   case BK_METHOD_CROSS_ENTROPY:
-    /* samples: evaluations per batch; stop on target_cov. */
-    if (!a->samples)
+    /* samples: evaluations per batch; stop on target_cov. Cross-entropy
+     * fits a density of nu dimensions from each batch and needs about 100
+     * points per variable to do so reliably (measured on a sum of 20
+     * exponentials, bench/bench_rare). */
+    if (!a->samples) {
+      size_t nu = bk_transform_nu(L->s->transform);
       a->samples = 500;
+      if (a->method == BK_METHOD_CROSS_ENTROPY && 100 * nu > a->samples)
+        a->samples = 100 * nu;
+    }
     if (!(a->target_cov > 0))
       a->target_cov = 0.1;
     if (!a->max_evaluations)
