@@ -12,8 +12,9 @@
  * target_cov is checked only after whole batches of analysis.samples
  * evaluations, so a resumed run stops at the same point. Warnings when the
  * weights degenerate (small effective sample size among the failing
- * samples, one sample carrying most of the estimate) and when FORM and
- * sampling disagree.
+ * samples, one sample carrying most of the estimate), when FORM and
+ * sampling disagree, and when a failing sample lies nearer the origin than
+ * the centre (so another design point exists).
  *
  * SPDX-License-Identifier: MIT
  */
@@ -114,10 +115,11 @@ int bk__method_importance(const bk_study_t *s, bk_evaluator_t *ev,
   double *z = bk_calloc(nu, sizeof *z);
   double *u = bk_calloc(nu, sizeof *u);
   double *w = bk_calloc(batch, sizeof *w);
+  double *r2 = bk_calloc(batch, sizeof *r2); /* |u|^2 of each point */
   bk_point_t *pts = bk_calloc(batch, sizeof *pts);
   double *xs = bk_calloc(batch * (s->nvars ? s->nvars : 1), sizeof *xs);
   double *ys = ny ? bk_calloc(batch * ny, sizeof *ys) : NULL;
-  if (!center || !z || !u || !w || !pts || !xs || (ny && !ys)) {
+  if (!center || !z || !u || !w || !r2 || !pts || !xs || (ny && !ys)) {
     rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
     goto out;
   }
@@ -141,6 +143,11 @@ int bk__method_importance(const bk_study_t *s, bk_evaluator_t *ev,
   for (size_t d = 0; d < nu; d++)
     cc += center[d] * center[d];
   uint64_t form_evals = res->evaluations;
+  /* The failing sample nearest the origin: a design point is the failure
+   * point nearest the origin, so a failing sample clearly nearer than the
+   * centre proves that the centre is not the design point. */
+  double near_r2 = INFINITY;
+  uint64_t near_key = 0;
   uint64_t form_errors = res->model_errors;
   uint64_t stream = bk_rng_stream("is");
   is_sums_t t;
@@ -157,10 +164,12 @@ int bk__method_importance(const bk_study_t *s, bk_evaluator_t *ev,
       p->y = ny ? ys + i * ny : NULL;
       bk_rng_u01_fill(s->seed, stream, p->index, 0, (uint32_t)nu, z);
       double zc = 0;
+      r2[i] = 0;
       for (size_t d = 0; d < nu; d++) {
         z[d] = bk_norm_icdf(z[d]);
         u[d] = center[d] + z[d];
         zc += z[d] * center[d];
+        r2[i] += u[d] * u[d];
       }
       w[i] = exp(-zc - 0.5 * cc);
       bk_transform_u_to_x(s->transform, u, p->x);
@@ -190,6 +199,10 @@ int bk__method_importance(const bk_study_t *s, bk_evaluator_t *ev,
       } else if (p->g <= 0) {
         t.hits++;
         t.s1_ok += w[i];
+        if (r2[i] < near_r2) {
+          near_r2 = r2[i];
+          near_key = p->index;
+        }
         add_value(&t, w[i]);
       } else {
         add_value(&t, 0);
@@ -251,6 +264,15 @@ int bk__method_importance(const bk_study_t *s, bk_evaluator_t *ev,
                     "design points)",
                     ess, (unsigned long long)t.hits, 100 * t.vmax / t.s1);
   }
+  double rc_ = sqrt(cc), rn = sqrt(near_r2);
+  if (t.hits > 0 && rn < rc_ - fmax(0.05, 0.01 * rc_))
+    bk__result_warn(res,
+                    "a failing sample (is/%llu) lies at distance %.3f from "
+                    "the origin in u-space, nearer than the centre (%.3f): "
+                    "the centre is not the design point, or there is a "
+                    "second design point; consider cross-entropy or subset "
+                    "simulation",
+                    (unsigned long long)near_key, rn, rc_);
   if (res->dp.present && isfinite(res->dp.pf_form) && t.hits > 0) {
     double pf = res->est.pf, pff = res->dp.pf_form;
     double se = pf * res->est.cov;
@@ -268,6 +290,7 @@ out:
   bk_free(z);
   bk_free(u);
   bk_free(w);
+  bk_free(r2);
   bk_free(pts);
   bk_free(xs);
   bk_free(ys);

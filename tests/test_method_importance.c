@@ -270,3 +270,24 @@ Test(method_importance, runs_are_reproducible) {
   bk_result_close(&b);
   bk_study_free(s);
 }
+
+/* g = 3 - b - 0.5 a^2 with the centre given at (0, 3), a saddle of the
+ * distance on the surface: failing samples at a = 1.5, b = 1.9 lie at
+ * distance 2.4, nearer than the centre, which proves that the centre is
+ * not the design point (the design point is the nearest failure point,
+ * Hasofer & Lind 1974). */
+Test(method_importance, a_failing_sample_nearer_than_the_centre_is_reported) {
+  bk_study_t *s = study_from("seed: 2\n"
+                             "variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3 - b - 0.5*a^2\n"
+                             "analysis: {method: importance, importance: "
+                             "{center: {a: 0, b: 3}}}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_expect(has_warning(&r, "nearer than the centre"), "%s",
+            r.nwarnings ? r.warnings[0] : "(none)");
+  bk_result_close(&r);
+  bk_study_free(s);
+}
