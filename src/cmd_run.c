@@ -216,8 +216,9 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
   if (rc) {
     bk__cli_print_error(&err);
     bk_buf_close(&lp);
-    /* Records of another study, damaged records and a folder that cannot
-     * be written are bad input: exit 2, nothing written. */
+    /* No space is resumable (exit 3). Records of another study, damaged
+     * records and a folder that cannot be written are bad input: exit 2,
+     * nothing written. */
     if (rc == -ENOSPC || rc == -EDQUOT || rc == BK_ENOSPACE) {
       fprintf(stderr, "brink: free space and run the same command again\n");
       return BK_EXIT_STOPPED;
