@@ -291,3 +291,27 @@ Test(method_importance, a_failing_sample_nearer_than_the_centre_is_reported) {
   bk_result_close(&r);
   bk_study_free(s);
 }
+
+/* Two failure modes, b > 4 and (a + b)/sqrt(2) > 3: FORM from the medians
+ * follows the first (beta 4) and misses the nearer second (distance 3).
+ * Sampling around (0, 4) reaches the second mode, and the result warns
+ * that a failing sample lies nearer than the centre and that FORM and
+ * sampling disagree (Pf about Phi(-3) + Phi(-4) = 1.38e-3 against FORM's
+ * Phi(-4) = 3.2e-5, Abramowitz & Stegun Table 26.1). */
+Test(method_importance, a_second_design_point_is_reported) {
+  bk_study_t *s =
+      study_from("seed: 4\n"
+                 "variables:\n"
+                 "  a: {type: normal, mean: 0, sd: 1}\n"
+                 "  b: {type: normal, mean: 0, sd: 1}\n"
+                 "limit_state: min(4 - b, 10*(3 - (a + b)/sqrt(2)))\n"
+                 "analysis: {method: importance, max_evaluations: "
+                 "5000}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_expect(fabs(r.dp.beta - 4) < 1e-6);
+  cr_expect(has_warning(&r, "nearer than the centre"));
+  cr_expect(has_warning(&r, "FORM and importance sampling disagree"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
