@@ -15,6 +15,9 @@ for p in munged slurmctld slurmd sinfo; do
     { echo "start-slurm: $p is not installed" >&2; exit 1; }
 done
 PATH=/usr/sbin:$PATH
+# Tests running side by side may call this at the same moment.
+exec 9>/run/brink-start-slurm.lock
+flock 9
 
 node_up() {
   sinfo -h -o %T 2>/dev/null | grep -Eqx 'idle|mixed|allocated|completing'
