@@ -90,7 +90,7 @@ static int brink(const char *args) {
 /* Two standard normal inputs through the test model: g = 1.5 - (a+b)/sqrt 2
  * (Pf = Phi(-1.5) = 0.0668, Cornell 1969), with `mode` (e.g. chaos 0.15:
  * a deterministic share of the runs crash, hang or print garbage). */
-static void write_model_study(const char *mode, int samples,
+static void write_model_study(const char *mode, const char *analysis,
                               const char *extra) {
   write_file("deck.txt", "# evaluation {{ _key }}\n"
                          "x1 = {{ a : %%.17g }}\n"
@@ -115,9 +115,9 @@ static void write_model_study(const char *mode, int samples,
              "  keep: errors\n"
              "%s"
              "limit_state: g\n"
-             "analysis: {method: random, samples: %d}\n"
+             "analysis: {%s}\n"
              "run: {folder: out/linear, slots: 2}\n",
-             env("BRINK_TEST_MODEL"), mode, extra, samples);
+             env("BRINK_TEST_MODEL"), mode, extra, analysis);
 }
 
 static const char *checker(void) {
@@ -132,7 +132,8 @@ static int have_python(void) {
 }
 
 Test(commands, json_csv_and_html_agree_with_the_records) {
-  write_model_study("chaos 0.15", 90, "");
+  write_model_study("chaos 0.15", "method: lhs, samples: 90, replicates: 3",
+                    "");
   cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
   cr_assert_eq(brink("report out/linear --json"), 0);
   cr_assert(strstr(read_file("out.txt"), "\"model_errors\""));
@@ -216,7 +217,7 @@ Test(commands, html_of_an_in_process_study_uses_the_design_again) {
 Test(commands, chromium_renders_the_html_report) {
   if (access("/usr/bin/chromium", X_OK) != 0)
     cr_skip_test("no /usr/bin/chromium");
-  write_model_study("ok", 60, "");
+  write_model_study("ok", "method: random, samples: 60", "");
   cr_assert_eq(brink("run study.yaml -q"), 0);
   cr_assert_eq(brink("report study.yaml --html r.html"), 0);
   int rc = sh("mkdir -p profile && timeout 120 /usr/bin/chromium --headless "
@@ -240,7 +241,7 @@ Test(commands, chromium_renders_the_html_report) {
 }
 
 Test(commands, status_while_a_run_is_in_progress) {
-  write_model_study("slow 0.25", 24, "");
+  write_model_study("slow 0.25", "method: random, samples: 24", "");
   pid_t pid = fork();
   cr_assert_geq(pid, 0);
   if (pid == 0) {
@@ -286,7 +287,7 @@ Test(commands, status_while_a_run_is_in_progress) {
 }
 
 Test(commands, check_try_with_a_model_that_works) {
-  write_model_study("ok", 10, "");
+  write_model_study("ok", "method: random, samples: 10", "");
   cr_assert_eq(brink("check study.yaml --try"), 0, "%s%s", read_file("out.txt"),
                read_file("err.txt"));
   char *out = read_file("out.txt");
@@ -304,7 +305,7 @@ Test(commands, check_try_with_a_model_that_works) {
 }
 
 Test(commands, check_try_with_a_model_that_fails) {
-  write_model_study("exit 7", 10, "");
+  write_model_study("exit 7", "method: random, samples: 10", "");
   cr_assert_eq(brink("check study.yaml --try"), 1);
   char *out = read_file("out.txt");
   cr_assert(strstr(out, "exit status 7 (exit-code)"), "%s", out);
@@ -313,7 +314,7 @@ Test(commands, check_try_with_a_model_that_fails) {
 }
 
 Test(commands, check_try_with_a_pattern_that_does_not_match) {
-  write_model_study("ok", 10, "");
+  write_model_study("ok", "method: random, samples: 10", "");
   char *s = read_file("study.yaml");
   char *at = strstr(s, "result: sum");
   cr_assert(at);

@@ -142,13 +142,6 @@ Test(report, json_has_the_fixed_keys_and_the_study_path) {
   bk_study_free(s);
 }
 
-static size_t count(const char *h, const char *needle) {
-  size_t n = 0;
-  for (const char *p = strstr(h, needle); p; p = strstr(p + 1, needle))
-    n++;
-  return n;
-}
-
 Test(report, html_charts_carry_the_numbers_of_the_run) {
   bk_study_t *s = load(study);
   bk_result_t r;
@@ -166,15 +159,16 @@ Test(report, html_charts_carry_the_numbers_of_the_run) {
   bk_error_clear(&err);
   cr_assert_eq(bk_report_html(dir, s, &html, &err), 0, "%s", err.msg);
   const char *h = html.data;
-  cr_assert(strstr(h, "data-chart=\"convergence\""));
+  /* One batch of 30000 in process: a single estimate, no curve. */
+  cr_assert_eq(r.nhistory, 1);
+  cr_assert_null(strstr(h, "data-chart=\"convergence\""));
+  cr_assert(strstr(h, "single estimate"));
   cr_assert(strstr(h, "data-chart=\"g-histogram\""));
   cr_assert(strstr(h, "data-chart=\"influence\""));
   cr_assert(strstr(h, "data-chart=\"scatter\""));
   /* In process: no records, so no run times and no error table. */
   cr_assert_null(strstr(h, "data-chart=\"run-times\""));
   cr_assert_null(strstr(h, "data-table=\"model-errors\""));
-  /* One convergence point per history entry. */
-  cr_assert_eq(count(h, "data-pf="), r.nhistory);
   /* The histogram holds the first 20000 evaluations of the design; its
    * failure bins hold exactly the failures among them. */
   size_t total = 0, fails = 0;
@@ -230,5 +224,46 @@ Test(report, html_without_a_result_says_what_to_do) {
   cr_assert_neq(bk_report_html(dir, s, &html, &err), 0);
   cr_assert(strstr(err.msg, "brink run"), "%s", err.msg);
   bk_buf_close(&html);
+  bk_study_free(s);
+}
+
+Test(report, convergence_has_one_point_per_stopping_check) {
+  bk_study_t *s = load("name: rs\n"
+                       "seed: 3\n"
+                       "variables:\n"
+                       "  R: {type: normal, mean: 5, sd: 1}\n"
+                       "  S: {type: normal, mean: 2, sd: 1}\n"
+                       "limit_state: R - S\n"
+                       "analysis: {method: lhs, samples: 8000, replicates: 4}\n"
+                       "run: {folder: out}\n");
+  bk_result_t r;
+  run_study(s, &r);
+  cr_assert_geq(r.nhistory, 2);
+  bk_buf_t json, html;
+  bk_buf_init(&json);
+  bk_buf_init(&html);
+  bk_report_json(s, &r, &json);
+  char p[400];
+  snprintf(p, sizeof p, "%s/report.json", dir);
+  FILE *f = fopen(p, "w");
+  fputs(json.data, f);
+  fclose(f);
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_report_html(dir, s, &html, &err), 0, "%s", err.msg);
+  cr_assert(strstr(html.data, "data-chart=\"convergence\""));
+  size_t i = 0;
+  for (const char *q = strstr(html.data, "data-n="); q;
+       q = strstr(q + 1, "data-n="), i++) {
+    double n, pf;
+    cr_assert_eq(sscanf(q, "data-n=\"%lf\" data-pf=\"%lf\"", &n, &pf), 2);
+    cr_assert_lt(i, r.nhistory);
+    cr_assert_eq(n, (double)r.history[i].n);
+    cr_assert_eq(pf, r.history[i].pf);
+  }
+  cr_assert_eq(i, r.nhistory);
+  bk_buf_close(&json);
+  bk_buf_close(&html);
+  bk_result_close(&r);
   bk_study_free(s);
 }
