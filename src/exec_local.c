@@ -2,15 +2,18 @@
  * The local executor: runs model processes on this machine with libuv, at
  * most `slots` at a time (see exec.h for the contract).
  *
- * Every model runs in its own session and process group (setsid through
- * UV_PROCESS_DETACHED), so a signal sent to the group reaches the whole tree
- * a wrapper script may spawn. After the group leader exits, however it
- * exits, the group gets SIGKILL, so no child it left behind outlives the
- * run. Timeouts send SIGTERM to the group and SIGKILL after the grace; a
- * stop request (stop.h) does the same to every running group and drops the
- * queue. Every accepted job's callback runs exactly once, always from inside
- * the event loop: never from bk_exec_submit itself, which would surprise a
- * caller holding locks or iterating a list.
+ * Every model runs in its own session and process group (POSIX_SPAWN_SETSID),
+ * so a signal sent to the group reaches the whole tree a wrapper script may
+ * spawn. Processes start with posix_spawn, which glibc implements with
+ * clone(CLONE_VM | CLONE_VFORK): no page tables are copied, which is what a
+ * fork costs a large parent. They are reaped from a SIGCHLD watcher, by pid,
+ * so children that other parts of the program start are left alone. After the
+ * group leader exits, however it exits, the group gets SIGKILL, so no child it
+ * left behind outlives the run. Timeouts send SIGTERM to the group and SIGKILL
+ * after the grace; a stop request (stop.h) does the same to every running group
+ * and drops the queue. Every accepted job's callback runs exactly once, always
+ * from inside the event loop: never from bk_exec_submit itself, which would
+ * surprise a caller holding locks or iterating a list.
  *
  * SPDX-License-Identifier: MIT
  */
@@ -25,12 +28,16 @@
 #include <errno.h>
 #include <fcntl.h>
 #include <signal.h>
+#include <spawn.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <string.h>
+#include <sys/wait.h>
 #include <unistd.h>
 
 #include <uv.h>
+
+extern char **environ;
 
 /* How often the loop looks at the stop flag. A signal handler cannot touch
  * the loop safely, so the flag is polled; 50 ms is quick for a person and
@@ -47,10 +54,11 @@ typedef enum {
 } timer_phase_t;
 
 /* One submitted job. It lives from bk_exec_submit until its callback has run
- * and its libuv handles are closed (cb_done && nopen == 0), and is in at most
- * one of the executor's lists at a time: queued, running or deferred. */
+ * and its timer, if it has one, is closed (cb_done && nopen == 0), and is in
+ * at most one of the executor's lists at a time: queued, running or
+ * deferred. */
 typedef struct job {
-  /* Copies of the submitted bk_job_t, owned by the job. */
+  /* Copies of the submitted bk_job_t, in the same allocation as the job. */
   char *key;
   char *dir;
   char **argv;
@@ -66,9 +74,9 @@ typedef struct job {
   struct bk_exec *ex;
   struct job *prev;
   struct job *next;
-  uv_process_t proc;
   uv_timer_t timer;
   pid_t pid;       /* also the process group id */
+  int has_timer;   /* timer initialised (it is closed when the run ends) */
   int nopen;       /* libuv handles not yet closed */
   int cb_done;     /* the callback has run */
   int timed_out;   /* SIGTERM sent because of the timeout */
@@ -89,8 +97,15 @@ struct bk_exec {
 
   /* Private. */
   uv_loop_t loop;
-  uv_timer_t poll;   /* watches the stop flag during bk_exec_wait */
-  uv_idle_t idle;    /* active while deferred callbacks are pending */
+  uv_timer_t poll;        /* watches the stop flag during bk_exec_wait */
+  uv_idle_t idle;         /* active while deferred callbacks are pending */
+  uv_signal_t chld;       /* SIGCHLD: reap; referenced while processes run */
+  posix_spawnattr_t attr; /* setsid, default signals, empty mask */
+  int null_fd;            /* /dev/null, for stdin and unnamed outputs */
+  /* The last PATH lookup: program name, PATH value, path found. */
+  char *path_prog;
+  char *path_var;
+  char *path_found;
   job_list_t queued; /* submitted, not started */
   job_list_t running;
   job_list_t deferred; /* finished without a process; callback pending */
@@ -128,37 +143,76 @@ static job_t *list_pop(job_list_t *l) {
   return j;
 }
 
-static void free_strv(char **v) {
-  if (!v)
-    return;
-  for (char **p = v; *p; p++)
-    bk_free(*p);
-  bk_free(v);
-}
-
-/* A deep copy of a NULL-ended string vector, or NULL when out of memory. */
-static char **copy_strv(char *const *v) {
+static size_t strv_len(char *const *v) {
   size_t n = 0;
   while (v[n])
     n++;
-  char **c = bk_calloc(n + 1, sizeof *c);
-  if (!c)
-    return NULL;
-  for (size_t i = 0; i < n; i++)
-    if (!(c[i] = bk_strdup(v[i]))) {
-      free_strv(c);
-      return NULL;
-    }
+  return n;
+}
+
+static size_t strv_bytes(char *const *v) {
+  size_t b = 0;
+  for (size_t i = 0; v[i]; i++)
+    b += strlen(v[i]) + 1;
+  return b;
+}
+
+/* Copies s to *at and advances *at. */
+static char *pack_str(char **at, const char *s) {
+  size_t n = strlen(s) + 1;
+  char *c = memcpy(*at, s, n);
+  *at += n;
   return c;
 }
 
-static void job_free(job_t *j) {
-  bk_free(j->key);
-  bk_free(j->dir);
-  free_strv(j->argv);
-  free_strv(j->env);
-  bk_free(j->stdout_name);
-  bk_free(j->stderr_name);
+/* Copies the strings of a NULL-ended vector into *at, filling slots. */
+static void pack_strv(char **slots, char **at, char *const *v) {
+  size_t i = 0;
+  for (; v[i]; i++)
+    slots[i] = pack_str(at, v[i]);
+  slots[i] = NULL;
+}
+
+/* A job with copies of every string of the submitted one, in one
+ * allocation: the job, the argv and env pointer arrays, then the strings.
+ * Returns NULL when out of memory. */
+static struct job *job_alloc(const bk_job_t *job) {
+  size_t argc = strv_len(job->argv);
+  size_t envc = job->env ? strv_len(job->env) : 0;
+  size_t nptr = argc + 1 + (job->env ? envc + 1 : 0);
+  size_t bytes = strlen(job->dir) + 1 + strv_bytes(job->argv);
+  if (job->env)
+    bytes += strv_bytes(job->env);
+  if (job->key)
+    bytes += strlen(job->key) + 1;
+  if (job->stdout_name)
+    bytes += strlen(job->stdout_name) + 1;
+  if (job->stderr_name)
+    bytes += strlen(job->stderr_name) + 1;
+  size_t head = sizeof(struct job) + nptr * sizeof(char *);
+  struct job *j = bk_malloc(head + bytes);
+  if (!j)
+    return NULL;
+  memset(j, 0, sizeof *j);
+  char **ptrs = (char **)(void *)(j + 1);
+  char *at = (char *)j + head;
+  j->argv = ptrs;
+  pack_strv(j->argv, &at, job->argv);
+  if (job->env) {
+    j->env = ptrs + argc + 1;
+    pack_strv(j->env, &at, job->env);
+  }
+  j->dir = pack_str(&at, job->dir);
+  if (job->key)
+    j->key = pack_str(&at, job->key);
+  if (job->stdout_name)
+    j->stdout_name = pack_str(&at, job->stdout_name);
+  if (job->stderr_name)
+    j->stderr_name = pack_str(&at, job->stderr_name);
+  return j;
+}
+
+static void job_free(struct job *j) {
   bk_free(j);
 }
 
@@ -226,11 +280,22 @@ static void defer(bk_exec_t *ex, job_t *j, int fault) {
  * that already happened. */
 static void on_job_timer(uv_timer_t *t);
 
+/* Gives the job its timer, unless it has one. */
+static void job_timer_init(job_t *j) {
+  if (j->has_timer)
+    return;
+  uv_timer_init(&j->ex->loop, &j->timer);
+  j->timer.data = j;
+  j->has_timer = 1;
+  j->nopen++;
+}
+
 static void job_terminate(job_t *j) {
   if (j->phase != TIMER_TIMEOUT)
     return;
   kill(-j->pid, SIGTERM);
   j->phase = TIMER_GRACE;
+  job_timer_init(j);
   uv_timer_stop(&j->timer);
   uv_timer_start(&j->timer, on_job_timer, to_ms(grace_of(j)), 0);
 }
@@ -274,8 +339,22 @@ static void classify(job_t *j, int64_t status, int sig) {
   }
 }
 
-static void on_job_exit(uv_process_t *proc, int64_t status, int sig) {
-  job_t *j = proc->data;
+/* The loop must live while processes run, and only then: the SIGCHLD
+ * watcher is referenced while there are any. */
+static void running_add(bk_exec_t *ex, job_t *j) {
+  list_push(&ex->running, j);
+  if (ex->nrunning++ == 0)
+    uv_ref((uv_handle_t *)&ex->chld);
+}
+
+static void running_remove(bk_exec_t *ex, job_t *j) {
+  list_remove(&ex->running, j);
+  if (--ex->nrunning == 0)
+    uv_unref((uv_handle_t *)&ex->chld);
+}
+
+/* The job's process was reaped with wait status `ws`. */
+static void job_exited(job_t *j, int ws) {
   bk_exec_t *ex = j->ex;
 
   /* The leader is gone but its process group may not be: kill whatever it
@@ -284,14 +363,17 @@ static void on_job_exit(uv_process_t *proc, int64_t status, int sig) {
   bk_stop_unregister_pgid(j->pid);
 
   j->res.seconds = (double)(uv_hrtime() - j->t0) / 1e9;
-  classify(j, status, sig);
+  if (WIFSIGNALED(ws))
+    classify(j, 0, WTERMSIG(ws));
+  else
+    classify(j, WIFEXITED(ws) ? WEXITSTATUS(ws) : 0, 0);
 
-  uv_timer_stop(&j->timer);
   j->phase = TIMER_IDLE;
-  uv_close((uv_handle_t *)&j->proc, on_handle_closed);
-  uv_close((uv_handle_t *)&j->timer, on_handle_closed);
-  list_remove(&ex->running, j);
-  ex->nrunning--;
+  if (j->has_timer) {
+    uv_timer_stop(&j->timer);
+    uv_close((uv_handle_t *)&j->timer, on_handle_closed);
+  }
+  running_remove(ex, j);
 
   /* Start the next job before the callback, so a slow callback does not
    * leave a slot idle. */
@@ -299,32 +381,198 @@ static void on_job_exit(uv_process_t *proc, int64_t status, int sig) {
   job_finish(j);
 }
 
-/* Opens dir/name for the child's stdout or stderr. Returns the descriptor or
- * a negative libuv code. */
-static int open_output(const char *dir, const char *name) {
+static job_t *running_find(bk_exec_t *ex, pid_t pid) {
+  for (job_t *j = ex->running.head; j; j = j->next)
+    if (j->pid == pid)
+      return j;
+  return NULL;
+}
+
+/* Asks every running job's process whether it has ended. */
+static void reap_each(bk_exec_t *ex) {
+  job_t *next;
+  for (job_t *j = ex->running.head; j; j = next) {
+    next = j->next;
+    int ws;
+    pid_t r;
+    do
+      r = waitpid(j->pid, &ws, WNOHANG);
+    while (r < 0 && errno == EINTR);
+    if (r == j->pid)
+      job_exited(j, ws);
+  }
+}
+
+/* Reaps the ended processes of running jobs. A peek at any ended child
+ * finds ours in one call each; a child this executor did not start (its
+ * owner reaps it) sends us asking each of ours instead. */
+static void on_chld(uv_signal_t *h, int signum) {
+  (void)signum;
+  bk_exec_t *ex = h->data;
+  while (ex->running.head) {
+    siginfo_t si;
+    si.si_pid = 0;
+    if (waitid(P_ALL, 0, &si, WEXITED | WNOHANG | WNOWAIT) != 0) {
+      if (errno == EINTR)
+        continue;
+      break;
+    }
+    if (si.si_pid == 0)
+      break;
+    job_t *j = running_find(ex, si.si_pid);
+    int ws;
+    if (!j || waitpid(j->pid, &ws, WNOHANG) != j->pid) {
+      reap_each(ex);
+      break;
+    }
+    job_exited(j, ws);
+  }
+}
+
+/* Opens dir/name for the child's stdout or stderr (the shared /dev/null
+ * when there is no name). Returns a descriptor >= 3, so the child's dup2
+ * onto 0, 1 and 2 cannot overwrite it, or a negative libuv code. */
+static int open_output(bk_exec_t *ex, const char *dir, const char *name) {
   char path[4096];
   if (!name)
-    return open("/dev/null", O_WRONLY | O_CLOEXEC);
+    return ex->null_fd;
   int n = snprintf(path, sizeof path, "%s/%s", dir, name);
   if (n < 0 || (size_t)n >= sizeof path)
     return UV_ENAMETOOLONG;
   int fd =
       open(path, O_CREAT | O_TRUNC | O_WRONLY | O_CLOEXEC | O_NOFOLLOW, 0644);
-  return fd < 0 ? -errno : fd;
+  if (fd < 0)
+    return -errno;
+  if (fd < 3) {
+    int hi = fcntl(fd, F_DUPFD_CLOEXEC, 3);
+    int e = errno;
+    close(fd);
+    if (hi < 0)
+      return -e;
+    fd = hi;
+  }
+  return fd;
 }
 
+static void close_output(bk_exec_t *ex, int fd) {
+  if (fd >= 0 && fd != ex->null_fd)
+    close(fd);
+}
+
+/* err: a positive errno value. */
 static void spawn_failed(job_t *j, int err) {
   const char *prog = j->argv[0];
   const char *hint =
       strchr(prog, '/') ? "is the path right?" : "is it installed and on PATH?";
-  if (err == UV_ENOENT)
+  if (err == ENOENT)
     snprintf(j->res.why, sizeof j->res.why,
              "%s: no such file or directory (%s)", prog, hint);
-  else if (err == UV_EACCES)
+  else if (err == EACCES)
     snprintf(j->res.why, sizeof j->res.why,
              "%s: permission denied (is it executable?)", prog);
   else
-    snprintf(j->res.why, sizeof j->res.why, "%s: %s", prog, uv_strerror(err));
+    snprintf(j->res.why, sizeof j->res.why, "%s: %s", prog, uv_strerror(-err));
+}
+
+/* The value of PATH in env, or the default execvp uses. */
+static const char *path_of(char *const *env) {
+  for (char *const *e = env; e && *e; e++)
+    if (strncmp(*e, "PATH=", 5) == 0)
+      return *e + 5;
+  return "/bin:/usr/bin";
+}
+
+/* posix_spawn as execve would see it: the file at `path`, with the
+ * /bin/sh fallback execvp makes for an executable without a #! line.
+ * Returns 0 or a positive errno value. */
+static int spawn_file(bk_exec_t *ex, job_t *j, const char *path,
+                      const posix_spawn_file_actions_t *fa) {
+  char *const *env = j->env ? j->env : environ;
+  int rc = posix_spawn(&j->pid, path, fa, &ex->attr, j->argv, env);
+  if (rc != ENOEXEC)
+    return rc;
+  size_t argc = strv_len(j->argv);
+  char **sh = bk_calloc(argc + 2, sizeof *sh);
+  if (!sh)
+    return ENOMEM;
+  sh[0] = "/bin/sh";
+  sh[1] = (char *)path;
+  for (size_t i = 1; i < argc; i++)
+    sh[i + 1] = j->argv[i];
+  rc = posix_spawn(&j->pid, "/bin/sh", fa, &ex->attr, sh, env);
+  bk_free(sh);
+  return rc;
+}
+
+/* Remembers a PATH lookup that holds for every job (PATH has only absolute
+ * folders), so the next job with the same program and PATH spawns at once. */
+static void remember_path(bk_exec_t *ex, const char *prog, const char *pv,
+                          const char *found) {
+  bk_free(ex->path_prog);
+  bk_free(ex->path_var);
+  bk_free(ex->path_found);
+  ex->path_prog = bk_strdup(prog);
+  ex->path_var = bk_strdup(pv);
+  ex->path_found = bk_strdup(found);
+  if (!ex->path_prog || !ex->path_var || !ex->path_found) {
+    bk_free(ex->path_prog);
+    bk_free(ex->path_var);
+    bk_free(ex->path_found);
+    ex->path_prog = ex->path_var = ex->path_found = NULL;
+  }
+}
+
+/* Spawns argv[0], looked up like execvp on the PATH of the job's
+ * environment when it has no '/': each folder in turn, EACCES remembered
+ * and the search going on, ENOENT and ENOTDIR skipped. A relative folder
+ * is relative to the run folder, as it would be for the child. Returns 0
+ * or a positive errno value. */
+static int spawn_job(bk_exec_t *ex, job_t *j,
+                     const posix_spawn_file_actions_t *fa) {
+  const char *prog = j->argv[0];
+  if (strchr(prog, '/'))
+    return spawn_file(ex, j, prog, fa);
+  if (!*prog)
+    return ENOENT;
+  const char *pv = path_of(j->env ? j->env : environ);
+  if (ex->path_prog && strcmp(ex->path_prog, prog) == 0 &&
+      strcmp(ex->path_var, pv) == 0) {
+    int rc = spawn_file(ex, j, ex->path_found, fa);
+    if (rc != ENOENT && rc != EACCES && rc != ENOTDIR)
+      return rc;
+  }
+  size_t plen = strlen(prog);
+  /* A lookup holds for every job when no folder depends on the cwd. */
+  int all_absolute = *pv == '/';
+  for (const char *c = strchr(pv, ':'); c && all_absolute;
+       c = strchr(c + 1, ':'))
+    if (c[1] != '/')
+      all_absolute = 0;
+  int err = ENOENT;
+  for (const char *p = pv;; p++) {
+    const char *colon = strchr(p, ':');
+    size_t dlen = colon ? (size_t)(colon - p) : strlen(p);
+    char *cand = bk_malloc(dlen + plen + 3);
+    if (!cand)
+      return ENOMEM;
+    if (dlen == 0)
+      snprintf(cand, dlen + plen + 3, "./%s", prog);
+    else
+      snprintf(cand, dlen + plen + 3, "%.*s/%s", (int)dlen, p, prog);
+    int rc = spawn_file(ex, j, cand, fa);
+    if (rc == 0 && all_absolute)
+      remember_path(ex, prog, pv, cand);
+    bk_free(cand);
+    if (rc == 0)
+      return 0;
+    if (rc == EACCES)
+      err = EACCES;
+    else if (rc != ENOENT && rc != ENOTDIR)
+      return rc;
+    if (!colon)
+      return err;
+    p = colon;
+  }
 }
 
 /* Starts one job, or defers it with BK_FAULT_SPAWN when its process cannot
@@ -333,69 +581,53 @@ static void job_start(bk_exec_t *ex, job_t *j) {
   int fd_out = -1;
   int fd_err = -1;
 
-  fd_out = open_output(j->dir, j->stdout_name);
+  fd_out = open_output(ex, j->dir, j->stdout_name);
   if (fd_out < 0) {
     snprintf(j->res.why, sizeof j->res.why, "cannot open %s/%s: %s", j->dir,
              j->stdout_name, uv_strerror(fd_out));
     goto fail;
   }
-  fd_err = open_output(j->dir, j->stderr_name);
+  fd_err = open_output(ex, j->dir, j->stderr_name);
   if (fd_err < 0) {
     snprintf(j->res.why, sizeof j->res.why, "cannot open %s/%s: %s", j->dir,
              j->stderr_name, uv_strerror(fd_err));
     goto fail;
   }
 
-  uv_stdio_container_t stdio[3];
-  stdio[0].flags = UV_IGNORE; /* libuv connects it to /dev/null */
-  stdio[1].flags = UV_INHERIT_FD;
-  stdio[1].data.fd = fd_out;
-  stdio[2].flags = UV_INHERIT_FD;
-  stdio[2].data.fd = fd_err;
-
-  uv_process_options_t opt;
-  memset(&opt, 0, sizeof opt);
-  opt.exit_cb = on_job_exit;
-  opt.file = j->argv[0];
-  opt.args = j->argv;
-  opt.env = j->env;
-  opt.cwd = j->dir;
-  opt.flags = UV_PROCESS_DETACHED; /* setsid: own session and group */
-  opt.stdio_count = 3;
-  opt.stdio = stdio;
-
-  j->proc.data = j;
+  posix_spawn_file_actions_t fa;
+  int rc = posix_spawn_file_actions_init(&fa);
+  if (rc == 0)
+    rc = posix_spawn_file_actions_addchdir_np(&fa, j->dir);
+  if (rc == 0)
+    rc = posix_spawn_file_actions_adddup2(&fa, ex->null_fd, 0);
+  if (rc == 0)
+    rc = posix_spawn_file_actions_adddup2(&fa, fd_out, 1);
+  if (rc == 0)
+    rc = posix_spawn_file_actions_adddup2(&fa, fd_err, 2);
   j->t0 = uv_hrtime();
-  int rc = uv_spawn(&ex->loop, &j->proc, &opt);
-  close(fd_out);
-  close(fd_err);
+  if (rc == 0)
+    rc = spawn_job(ex, j, &fa);
+  posix_spawn_file_actions_destroy(&fa);
+  close_output(ex, fd_out);
+  close_output(ex, fd_err);
   fd_out = fd_err = -1;
-  /* The handle is initialised even when the spawn fails, and must be
-   * closed either way. */
-  j->nopen++;
-  if (rc < 0) {
-    uv_close((uv_handle_t *)&j->proc, on_handle_closed);
+  if (rc != 0) {
     spawn_failed(j, rc);
     goto fail;
   }
 
-  j->pid = j->proc.pid;
   bk_stop_register_pgid(j->pid);
-  uv_timer_init(&ex->loop, &j->timer);
-  j->timer.data = j;
-  j->nopen++;
   j->phase = TIMER_TIMEOUT;
-  if (j->timeout > 0)
+  if (j->timeout > 0) {
+    job_timer_init(j);
     uv_timer_start(&j->timer, on_job_timer, to_ms(j->timeout), 0);
-  list_push(&ex->running, j);
-  ex->nrunning++;
+  }
+  running_add(ex, j);
   return;
 
 fail:
-  if (fd_out >= 0)
-    close(fd_out);
-  if (fd_err >= 0)
-    close(fd_err);
+  close_output(ex, fd_out);
+  close_output(ex, fd_err);
   j->res.seconds = 0;
   defer(ex, j, BK_FAULT_SPAWN);
 }
@@ -446,8 +678,38 @@ int bk_exec_local_new(bk_exec_t **out, int slots) {
   bk_exec_t *ex = bk_calloc(1, sizeof *ex);
   if (!ex)
     return BK_ENOMEM;
+  ex->null_fd = open("/dev/null", O_RDWR | O_CLOEXEC);
+  if (ex->null_fd >= 0 && ex->null_fd < 3) {
+    int hi = fcntl(ex->null_fd, F_DUPFD_CLOEXEC, 3);
+    close(ex->null_fd);
+    ex->null_fd = hi;
+  }
+  if (ex->null_fd < 0) {
+    bk_free(ex);
+    return BK_EIO;
+  }
+  /* The child gets a session of its own, every signal at its default
+   * action and none blocked, as libuv's spawn gave it. */
+  sigset_t all, none;
+  sigemptyset(&all);
+  for (int s = 1; s < 32; s++)
+    if (s != SIGKILL && s != SIGSTOP)
+      sigaddset(&all, s);
+  sigemptyset(&none);
+  if (posix_spawnattr_init(&ex->attr) != 0) {
+    close(ex->null_fd);
+    bk_free(ex);
+    return BK_ENOMEM;
+  }
+  posix_spawnattr_setflags(&ex->attr, POSIX_SPAWN_SETSID |
+                                          POSIX_SPAWN_SETSIGDEF |
+                                          POSIX_SPAWN_SETSIGMASK);
+  posix_spawnattr_setsigdefault(&ex->attr, &all);
+  posix_spawnattr_setsigmask(&ex->attr, &none);
   int rc = uv_loop_init(&ex->loop);
   if (rc < 0) {
+    posix_spawnattr_destroy(&ex->attr);
+    close(ex->null_fd);
     bk_free(ex);
     return rc == UV_ENOMEM ? BK_ENOMEM : BK_EIO;
   }
@@ -468,6 +730,11 @@ void bk_exec_free(bk_exec_t *ex) {
   int rc = uv_loop_close(&ex->loop);
   assert(rc == 0);
   (void)rc;
+  posix_spawnattr_destroy(&ex->attr);
+  close(ex->null_fd);
+  bk_free(ex->path_prog);
+  bk_free(ex->path_var);
+  bk_free(ex->path_found);
   bk_free(ex);
 }
 
@@ -482,7 +749,7 @@ int bk_exec_submit(bk_exec_t *ex, const bk_job_t *job, bk_exec_cb cb,
   if (bk_stop_requested() || ex->stopping)
     return BK_ESTOPPED;
 
-  job_t *j = bk_calloc(1, sizeof *j);
+  job_t *j = job_alloc(job);
   if (!j)
     return BK_ENOMEM;
   j->ex = ex;
@@ -490,25 +757,11 @@ int bk_exec_submit(bk_exec_t *ex, const bk_job_t *job, bk_exec_cb cb,
   j->data = data;
   j->timeout = job->timeout;
   j->grace = job->grace;
-  if (!(j->dir = bk_strdup(job->dir)) || !(j->argv = copy_strv(job->argv)))
-    goto nomem;
-  if (job->key && !(j->key = bk_strdup(job->key)))
-    goto nomem;
-  if (job->env && !(j->env = copy_strv(job->env)))
-    goto nomem;
-  if (job->stdout_name && !(j->stdout_name = bk_strdup(job->stdout_name)))
-    goto nomem;
-  if (job->stderr_name && !(j->stderr_name = bk_strdup(job->stderr_name)))
-    goto nomem;
 
   list_push(&ex->queued, j);
   if (ex->in_wait)
     fill_slots(ex);
   return 0;
-
-nomem:
-  job_free(j);
-  return BK_ENOMEM;
 }
 
 int bk_exec_wait(bk_exec_t *ex) {
@@ -519,6 +772,12 @@ int bk_exec_wait(bk_exec_t *ex) {
 
   uv_idle_init(&ex->loop, &ex->idle);
   ex->idle.data = ex;
+  /* Processes are reaped on SIGCHLD; the watcher keeps the loop alive only
+   * while some run (running_add, running_remove). */
+  uv_signal_init(&ex->loop, &ex->chld);
+  ex->chld.data = ex;
+  uv_signal_start(&ex->chld, on_chld, SIGCHLD);
+  uv_unref((uv_handle_t *)&ex->chld);
   uv_timer_init(&ex->loop, &ex->poll);
   ex->poll.data = ex;
   uv_timer_start(&ex->poll, on_poll, POLL_MS, POLL_MS);
@@ -535,6 +794,7 @@ int bk_exec_wait(bk_exec_t *ex) {
   uv_run(&ex->loop, UV_RUN_DEFAULT);
   assert(!ex->queued.head && !ex->running.head && !ex->deferred.head);
 
+  uv_close((uv_handle_t *)&ex->chld, NULL);
   uv_close((uv_handle_t *)&ex->poll, NULL);
   uv_close((uv_handle_t *)&ex->idle, NULL);
   uv_run(&ex->loop, UV_RUN_DEFAULT);
