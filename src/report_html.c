@@ -1134,8 +1134,15 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   esc(o, bk_report_caution);
   bk_buf_puts(o, "</div>\n<h2>Charts</h2>\n");
   chart_convergence(o, jget(&j, "history"), jnum(&j, "ci_level"));
-  char what[160];
-  if (s.from_records)
+  char what[200];
+  bk_method_kind_t mk = st->analysis.method;
+  int sampling =
+      mk == BK_METHOD_RANDOM || mk == BK_METHOD_LHS || mk == BK_METHOD_SOBOL;
+  if (s.from_records && !sampling)
+    snprintf(what, sizeof what,
+             "All recorded evaluations; the method chooses where to "
+             "evaluate, so this is not the distribution of g");
+  else if (s.from_records)
     snprintf(what, sizeof what, "All recorded evaluations");
   else if (s.limit)
     snprintf(what, sizeof what,

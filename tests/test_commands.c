@@ -220,7 +220,8 @@ Test(commands, chromium_renders_the_html_report) {
   write_model_study("ok", "method: random, samples: 60", "");
   cr_assert_eq(brink("run study.yaml -q"), 0);
   cr_assert_eq(brink("report study.yaml --html r.html"), 0);
-  int rc = sh("mkdir -p profile && timeout 120 /usr/bin/chromium --headless "
+  int rc = sh("mkdir -p profile && HOME=\"$PWD\" timeout 120 /usr/bin/chromium "
+              "--headless "
               "--no-sandbox --disable-gpu --disable-quic --no-first-run "
               "--disable-background-networking --disable-component-update "
               "--disable-sync --user-data-dir=\"$PWD/profile\" "
