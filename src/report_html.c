@@ -947,19 +947,25 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
   }
   bk_buf_puts(o, "</div>\n<table>\n");
   bk_buf_reset(&v);
-  sci(&v, jat(ci, 0));
-  bk_buf_puts(&v, " to ");
-  sci(&v, jat(ci, 1));
   char lab[128];
+  const char *cim = jstr(j, "ci_method");
   snprintf(lab, sizeof lab, "%g%% interval of Pf", 100 * level);
-  bk_buf_printf(&v, " (%s)", jstr(j, "ci_method"));
-  row(o, lab, v.data);
-  bk_buf_reset(&v);
-  fix3(&v, jat(bci, 0));
-  bk_buf_puts(&v, " to ");
-  fix3(&v, jat(bci, 1));
-  snprintf(lab, sizeof lab, "%g%% interval of \xce\xb2", 100 * level);
-  row(o, lab, v.data);
+  if (strncmp(cim, "none", 4) == 0 || !cim[0]) {
+    bk_buf_puts(&v, cim[0] ? cim : "none");
+    row(o, lab, v.data);
+  } else {
+    sci(&v, jat(ci, 0));
+    bk_buf_puts(&v, " to ");
+    sci(&v, jat(ci, 1));
+    bk_buf_printf(&v, " (%s)", cim);
+    row(o, lab, v.data);
+    bk_buf_reset(&v);
+    fix3(&v, jat(bci, 0));
+    bk_buf_puts(&v, " to ");
+    fix3(&v, jat(bci, 1));
+    snprintf(lab, sizeof lab, "%g%% interval of \xce\xb2", 100 * level);
+    row(o, lab, v.data);
+  }
   bk_buf_reset(&v);
   bk_buf_printf(&v, "%.0f", jnum(j, "evaluations"));
   row(o, "evaluations", v.data);
@@ -1065,6 +1071,23 @@ static void errors_section(bk_buf_t *o, const samples_t *s) {
                   shown, s->nerr);
 }
 
+/* The method in words, for the heading. */
+static const char *method_words(const char *m) {
+  static const char *const t[][2] = {
+      {"random", "crude Monte Carlo sampling"},
+      {"lhs", "Latin hypercube sampling"},
+      {"sobol", "scrambled Sobol sampling"},
+      {"form", "first-order reliability method (FORM)"},
+      {"importance", "importance sampling"},
+      {"cross-entropy", "cross-entropy importance sampling"},
+      {"subset", "subset simulation"},
+  };
+  for (size_t i = 0; i < sizeof t / sizeof t[0]; i++)
+    if (strcmp(m, t[i][0]) == 0)
+      return t[i][1];
+  return m;
+}
+
 int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
                    bk_error_t *err) {
   bk_buf_t text;
@@ -1120,9 +1143,8 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   char date[32];
   strftime(date, sizeof date, "%Y-%m-%d %H:%M UTC", gmtime(&now));
   bk_buf_puts(o, "</h1>\n<p class=\"sub\">");
-  esc(o, jstr(&j, "method"));
-  bk_buf_printf(o, " sampling, seed %llu &#183; made by ",
-                (unsigned long long)st->seed);
+  esc(o, method_words(jstr(&j, "method")));
+  bk_buf_printf(o, ", seed %llu &#183; made by ", (unsigned long long)st->seed);
   esc(o, jstr(&j, "tool"));
   bk_buf_printf(o, " on %s</p>\n", date);
   if (changed)
