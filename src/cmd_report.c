@@ -49,8 +49,9 @@ static int write_html(const char *folder, const char *study_path,
                   ? "brink: %s/report.json does not name its study file; "
                     "give the study instead: brink report STUDY.yaml --html "
                     "FILE\n"
-                  : "brink: no finished result in %s; run `brink run "
-                    "STUDY.yaml` first\n",
+                  : "brink: no finished result in %s. If a run is going or "
+                    "was stopped, `brink status` shows where it stands; "
+                    "`brink run STUDY.yaml` finishes it\n",
               folder);
       return BK_EXIT_USAGE;
     }
@@ -148,9 +149,10 @@ int bk__cmd_report(int argc, char **argv) {
   FILE *f = fopen(p.data, "r");
   if (!f) {
     fprintf(stderr,
-            "brink: no finished result in %s (%s); run `brink run "
-            "STUDY.yaml` first\n",
-            folder, strerror(errno));
+            "brink: no finished result in %s (%s). If a run is going or "
+            "was stopped, `brink status %s` shows where it stands; `brink "
+            "run STUDY.yaml` finishes it\n",
+            folder, strerror(errno), folder);
     bk_buf_close(&p);
     bk_free(folder);
     return BK_EXIT_USAGE;
