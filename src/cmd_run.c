@@ -511,6 +511,11 @@ static int run_worker(const char *path, int rank) {
              bk_strerror(rc));
     goto greet;
   }
+  /* Models left on this node by a rank of an earlier run that died; no
+   * worker of this run has started one yet (work is sent only after every
+   * worker has greeted the coordinator). */
+  if (!kd.data)
+    bk_dispatch_reap(wd.data);
   bk_study_ident_t id;
   if (bk_study_ident_init(&id, s)) {
     snprintf(failure, sizeof failure, "out of memory");
