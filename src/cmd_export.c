@@ -24,7 +24,8 @@
 static const char export_help[] =
     "usage: brink export FOLDER|STUDY.yaml (--csv | --json-lines) [-o FILE]\n"
     "\n"
-    "Writes one row per recorded evaluation: key, the variables, the model\n"
+    "Writes one row per recorded evaluation, in the order the runs\n"
+    "finished: key, the variables, the model\n"
     "outputs, g (named limit_state when a variable or an output is called\n"
     "g), failed (1 when g <= 0), status (ok or the model error\n"
     "kind), attempts, seconds, host and note (the reason of a model error\n"
