@@ -366,7 +366,7 @@ Test(run_model, torn_last_line_is_dropped_with_a_warning) {
 }
 
 Test(run_model, second_brink_on_the_same_folder_is_refused) {
-  write_study("s.yaml", "lock", "random", 40, "slow 0.2", "");
+  write_study("s.yaml", "lock", "random", 40, "slow 3", "");
   pid_t pid = brink_background("run s.yaml --quiet");
   for (int i = 0; i < 250 && !exists("lock/records.log.lock"); i++)
     usleep(20000);
