@@ -15,9 +15,10 @@ for p in munged slurmctld slurmd sinfo; do
     { echo "start-slurm: $p is not installed" >&2; exit 1; }
 done
 PATH=/usr/sbin:$PATH
-# Tests running side by side may call this at the same moment.
-exec 9>/run/brink-start-slurm.lock
-flock 9
+# Tests running side by side may call this at the same moment. The
+# daemons must not inherit the lock (9>&- below), or they would hold it.
+exec 9>/run/brink-start-slurm-v2.lock
+flock -w 300 9 || { echo "start-slurm: lock busy for 300 s" >&2; exit 1; }
 
 node_up() {
   sinfo -h -o %T 2>/dev/null | grep -Eqx 'idle|mixed|allocated|completing'
@@ -66,12 +67,12 @@ if [ ! -f "$conf" ] || ! grep -q "brink's tests/cluster/start-slurm.sh" "$conf";
 fi
 install -d /var/spool/slurmctld /var/spool/slurmd /var/log/slurm
 install -d -o munge -g munge -m 0755 /run/munge
-[ -s /etc/munge/munge.key ] || mungekey -c
+[ -s /etc/munge/munge.key ] || mungekey -c 9>&-
 if ! alive /run/munge/munged.pid; then
-  runuser -u munge -- /usr/sbin/munged
+  runuser -u munge -- /usr/sbin/munged 9>&-
 fi
-alive /run/slurmctld.pid || slurmctld
-alive /run/slurmd.pid || slurmd -N localhost
+alive /run/slurmctld.pid || slurmctld 9>&-
+alive /run/slurmd.pid || slurmd -N localhost 9>&-
 i=0
 until node_up; do
   i=$((i + 1))
