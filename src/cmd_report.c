@@ -4,6 +4,7 @@
  *
  * SPDX-License-Identifier: MIT
  */
+#include <dirent.h>
 #include <errno.h>
 #include <fcntl.h>
 #include <math.h>
@@ -97,6 +98,19 @@ static int is_regular_file(const char *p) {
   return stat(p, &st) == 0 && S_ISREG(st.st_mode);
 }
 
+/* Does `folder` hold shard logs (records-shard-I-of-N.log)? */
+static int has_shard_logs(const char *folder) {
+  DIR *d = opendir(folder);
+  if (!d)
+    return 0;
+  int found = 0;
+  struct dirent *e;
+  while (!found && (e = readdir(d)))
+    found = strncmp(e->d_name, "records-shard-", 14) == 0;
+  closedir(d);
+  return found;
+}
+
 int bk__cmd_report(int argc, char **argv) {
   const char *target = NULL;
   int json = 0;
@@ -147,6 +161,15 @@ int bk__cmd_report(int argc, char **argv) {
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", folder, json ? "report.json" : "report.txt");
   FILE *f = fopen(p.data, "r");
+  if (!f && has_shard_logs(folder)) {
+    fprintf(stderr,
+            "brink: %s holds the records of shards but no report yet; "
+            "combine them with `brink merge STUDY.yaml`\n",
+            folder);
+    bk_buf_close(&p);
+    bk_free(folder);
+    return BK_EXIT_USAGE;
+  }
   if (!f) {
     fprintf(stderr,
             "brink: no finished result in %s (%s). If a run is going or "
