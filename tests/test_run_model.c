@@ -23,97 +23,10 @@
 
 #include "special.h"
 
-static char dir[256];
+#include "helpers/itest.h"
 
-static void setup(void) {
-  snprintf(dir, sizeof dir, "/tmp/bk-test-runmodel-XXXXXX");
-  cr_assert(mkdtemp(dir));
-}
-
-/* Texts returned by read_file, freed at teardown. */
-static char *owned[1024];
-static int nowned;
-
-static void teardown(void) {
-  for (int i = 0; i < nowned; i++)
-    free(owned[i]);
-  nowned = 0;
-  char cmd[600];
-  snprintf(cmd, sizeof cmd, "rm -rf '%s'", dir);
-  cr_assert_eq(system(cmd), 0);
-}
-
-TestSuite(run_model, .init = setup, .fini = teardown, .timeout = 300);
-
-static const char *env(const char *name) {
-  const char *v = getenv(name);
-  cr_assert(v, "%s must be set", name);
-  return v;
-}
-
-static void write_file(const char *name, const char *fmt, ...) {
-  char p[600];
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  FILE *f = fopen(p, "w");
-  cr_assert(f, "%s", p);
-  va_list ap;
-  va_start(ap, fmt);
-  vfprintf(f, fmt, ap);
-  va_end(ap);
-  fclose(f);
-}
-
-static char *read_file(const char *name) {
-  char p[600];
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  FILE *f = fopen(p, "r");
-  if (!f)
-    return NULL;
-  size_t cap = 1 << 20, n = 0;
-  char *buf = malloc(cap);
-  size_t r;
-  while ((r = fread(buf + n, 1, cap - n - 1, f)) > 0) {
-    n += r;
-    if (n + 1 >= cap)
-      buf = realloc(buf, cap *= 2);
-  }
-  buf[n] = '\0';
-  fclose(f);
-  if (nowned < 1024)
-    owned[nowned++] = buf;
-  return buf;
-}
-
-static int exists(const char *name) {
-  char p[600];
-  struct stat st;
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  return stat(p, &st) == 0;
-}
-
-static int brink(const char *args) {
-  char cmd[2048];
-  snprintf(cmd, sizeof cmd,
-           "cd '%s' && '%s' %s >out.txt 2>err.txt </dev/null", dir,
-           env("BRINK_EXE"), args);
-  int st = system(cmd);
-  cr_assert(WIFEXITED(st));
-  return WEXITSTATUS(st);
-}
-
-static pid_t brink_background(const char *args) {
-  char cmd[2048];
-  snprintf(cmd, sizeof cmd,
-           "cd '%s' && exec '%s' %s >>bg-out.txt 2>>bg-err.txt </dev/null",
-           dir, env("BRINK_EXE"), args);
-  pid_t pid = fork();
-  cr_assert_geq(pid, 0);
-  if (pid == 0) {
-    execl("/bin/sh", "sh", "-c", cmd, (char *)NULL);
-    _exit(127);
-  }
-  return pid;
-}
+TestSuite(run_model, .init = itest_setup, .fini = itest_teardown,
+          .timeout = 300);
 
 /* A study of two standard normal inputs: g = beta - (a + b)/sqrt(2), so
  * Pf = Phi(-beta) exactly (Cornell 1969, linear limit state in normals). */
@@ -144,32 +57,6 @@ static void write_study(const char *name, const char *folder,
              folder, env("BRINK_TEST_MODEL"), mode, extra_model, method,
              samples, strcmp(method, "random") ? ", replicates: 4" : "",
              folder);
-}
-
-/* (Texts from read_file belong to the fixture; do not free them.) */
-
-/* The records of a log as comparable text: every line without '#', with
- * the columns that do not depend on timing or place (seconds, host, note,
- * checksum) removed, sorted by key. */
-static char *canonical_records(const char *folder) {
-  char cmd[1024];
-  snprintf(cmd, sizeof cmd,
-           "cd '%s' && grep -v '^#' %s/records.log | tail -n +2 | "
-           "awk -F'\\t' '{ s = $1 \"\\t\" $2 \"\\t\" $3; "
-           "for (i = 6; i <= NF - 2; i++) s = s \"\\t\" $i; print s }' | "
-           "LC_ALL=C sort > %s.canon",
-           dir, folder, folder);
-  cr_assert_eq(system(cmd), 0);
-  char name[300];
-  snprintf(name, sizeof name, "%s.canon", folder);
-  return read_file(name);
-}
-
-static int count_lines(const char *s) {
-  int n = 0;
-  for (; *s; s++)
-    n += *s == '\n';
-  return n;
 }
 
 Test(run_model, wraps_the_model_and_estimates_the_exact_pf) {
@@ -213,10 +100,8 @@ Test(run_model, every_fault_kind_is_classified) {
     const char *status;
     const char *extra;
   } cases[] = {
-      {"exit 3", "exit-code", ""},
-      {"crash", "signal", ""},
-      {"garbage", "not-a-number", ""},
-      {"partial", "no-match", ""},
+      {"exit 3", "exit-code", ""},           {"crash", "signal", ""},
+      {"garbage", "not-a-number", ""},       {"partial", "no-match", ""},
       {"hang", "timeout", "  retries: 0\n"},
   };
   for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
@@ -244,8 +129,8 @@ Test(run_model, every_fault_kind_is_classified) {
     snprintf(want, sizeof want, "\t%s\t", cases[i].status);
     cr_assert(strstr(text, want), "%s: no '%s' in\n%s", cases[i].mode,
               cases[i].status, text);
-    cr_assert(strstr(read_file("err.txt"), "model runs failed"),
-              "%s", read_file("err.txt"));
+    cr_assert(strstr(read_file("err.txt"), "model runs failed"), "%s",
+              read_file("err.txt"));
   }
 }
 
@@ -255,8 +140,8 @@ Test(run_model, missing_program_and_missing_output_file) {
   char *at = strstr(t, env("BRINK_TEST_MODEL"));
   cr_assert(at);
   char *fixed = malloc(strlen(t) + 64);
-  snprintf(fixed, strlen(t) + 64, "%.*s/nonexistent/solver%s",
-           (int)(at - t), t, at + strlen(env("BRINK_TEST_MODEL")));
+  snprintf(fixed, strlen(t) + 64, "%.*s/nonexistent/solver%s", (int)(at - t), t,
+           at + strlen(env("BRINK_TEST_MODEL")));
   write_file("s.yaml", "%s", fixed);
   /* Known before the run: exit 2, the location, nothing written. */
   cr_assert_eq(brink("run s.yaml"), 2);
@@ -359,8 +244,8 @@ Test(run_model, torn_last_line_is_dropped_with_a_warning) {
   snprintf(p, sizeof p, "%s/torn/records.log", dir);
   cr_assert_eq(truncate(p, (off_t)cut), 0);
   cr_assert_eq(brink("run s.yaml"), 0, "%s", read_file("err.txt"));
-  cr_assert(strstr(read_file("err.txt"), "dropped a torn last line"),
-            "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("err.txt"), "dropped a torn last line"), "%s",
+            read_file("err.txt"));
   char *got = canonical_records("torn");
   cr_assert_str_eq(got, want);
 }
@@ -372,8 +257,7 @@ Test(run_model, second_brink_on_the_same_folder_is_refused) {
     usleep(20000);
   cr_assert(exists("lock/records.log.lock"));
   cr_assert_eq(brink("run s.yaml"), 1);
-  cr_assert(strstr(read_file("err.txt"), "in use"), "%s",
-            read_file("err.txt"));
+  cr_assert(strstr(read_file("err.txt"), "in use"), "%s", read_file("err.txt"));
   kill(pid, SIGINT);
   int st;
   waitpid(pid, &st, 0);
