@@ -38,80 +38,16 @@
 #include "../fuzz/fuzz_records.c"
 #undef BK_FUZZ_ENTRY
 
-static char dir[256];
-static char *owned[256];
-static int nowned;
-
-static void setup(void) {
-  snprintf(dir, sizeof dir, "/tmp/bk-test-badinput-XXXXXX");
-  cr_assert(mkdtemp(dir));
-}
+#include "helpers/itest.h"
 
 static void teardown(void) {
-  for (int i = 0; i < nowned; i++)
-    free(owned[i]);
-  nowned = 0;
   char cmd[600];
-  snprintf(cmd, sizeof cmd, "umount '%s/ro' 2>/dev/null; rm -rf '%s'", dir,
-           dir);
-  cr_assert_eq(system(cmd), 0);
+  snprintf(cmd, sizeof cmd, "umount '%s/ro' 2>/dev/null", dir);
+  cr_assert(system(cmd) >= 0);
+  itest_teardown();
 }
 
-TestSuite(badinput, .init = setup, .fini = teardown, .timeout = 120);
-
-static const char *env(const char *name) {
-  const char *v = getenv(name);
-  cr_assert(v, "%s must be set", name);
-  return v;
-}
-
-static void write_file(const char *name, const char *fmt, ...) {
-  char p[600];
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  FILE *f = fopen(p, "w");
-  cr_assert(f, "%s", p);
-  va_list ap;
-  va_start(ap, fmt);
-  vfprintf(f, fmt, ap);
-  va_end(ap);
-  fclose(f);
-}
-
-static char *read_file(const char *name) {
-  char p[600];
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  FILE *f = fopen(p, "r");
-  if (!f)
-    return NULL;
-  size_t cap = 1 << 16, n = 0, r;
-  char *buf = malloc(cap);
-  while ((r = fread(buf + n, 1, cap - n - 1, f)) > 0) {
-    n += r;
-    if (n + 1 >= cap)
-      buf = realloc(buf, cap *= 2);
-  }
-  buf[n] = '\0';
-  fclose(f);
-  if (nowned < 256)
-    owned[nowned++] = buf;
-  return buf;
-}
-
-static int exists(const char *name) {
-  char p[600];
-  struct stat st;
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  return lstat(p, &st) == 0;
-}
-
-static int brink(const char *args) {
-  char cmd[2048];
-  snprintf(cmd, sizeof cmd, "cd '%s' && '%s' %s >out.txt 2>err.txt </dev/null",
-           dir, env("BRINK_EXE"), args);
-  int st = system(cmd);
-  cr_assert(WIFEXITED(st));
-  return WEXITSTATUS(st);
-}
+TestSuite(badinput, .init = itest_setup, .fini = teardown, .timeout = 120);
 
 /* A good study of two normal inputs through the test model, with `subst`
  * replacing the text `from` (when given) to spoil it. */

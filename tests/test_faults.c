@@ -27,87 +27,16 @@
 #include <time.h>
 #include <unistd.h>
 
-static char dir[256];
-static char *owned[256];
-static int nowned;
-
-static void setup(void) {
-  snprintf(dir, sizeof dir, "/tmp/bk-test-faults-XXXXXX");
-  cr_assert(mkdtemp(dir));
-}
+#include "helpers/itest.h"
 
 static void teardown(void) {
-  for (int i = 0; i < nowned; i++)
-    free(owned[i]);
-  nowned = 0;
   char cmd[600];
-  snprintf(cmd, sizeof cmd, "umount '%s/fs' 2>/dev/null; rm -rf '%s'", dir,
-           dir);
-  cr_assert_eq(system(cmd), 0);
+  snprintf(cmd, sizeof cmd, "umount '%s/fs' 2>/dev/null", dir);
+  cr_assert(system(cmd) >= 0);
+  itest_teardown();
 }
 
-TestSuite(faults, .init = setup, .fini = teardown, .timeout = 300);
-
-static const char *env(const char *name) {
-  const char *v = getenv(name);
-  cr_assert(v, "%s must be set", name);
-  return v;
-}
-
-static void write_file(const char *name, const char *fmt, ...) {
-  char p[600];
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  FILE *f = fopen(p, "w");
-  cr_assert(f, "%s", p);
-  va_list ap;
-  va_start(ap, fmt);
-  vfprintf(f, fmt, ap);
-  va_end(ap);
-  fclose(f);
-}
-
-static char *read_file(const char *name) {
-  char p[600];
-  snprintf(p, sizeof p, "%s/%s", dir, name);
-  FILE *f = fopen(p, "r");
-  if (!f)
-    return NULL;
-  size_t cap = 1 << 16, n = 0, r;
-  char *buf = malloc(cap);
-  while ((r = fread(buf + n, 1, cap - n - 1, f)) > 0) {
-    n += r;
-    if (n + 1 >= cap)
-      buf = realloc(buf, cap *= 2);
-  }
-  buf[n] = '\0';
-  fclose(f);
-  if (nowned < 256)
-    owned[nowned++] = buf;
-  return buf;
-}
-
-static int brink(const char *args) {
-  char cmd[2048];
-  snprintf(cmd, sizeof cmd, "cd '%s' && '%s' %s >out.txt 2>err.txt </dev/null",
-           dir, env("BRINK_EXE"), args);
-  int st = system(cmd);
-  cr_assert(WIFEXITED(st));
-  return WEXITSTATUS(st);
-}
-
-static pid_t brink_background(const char *args) {
-  char cmd[2048];
-  snprintf(cmd, sizeof cmd,
-           "cd '%s' && exec '%s' %s >>bg-out.txt 2>>bg-err.txt </dev/null", dir,
-           env("BRINK_EXE"), args);
-  pid_t pid = fork();
-  cr_assert_geq(pid, 0);
-  if (pid == 0) {
-    execl("/bin/sh", "sh", "-c", cmd, (char *)NULL);
-    _exit(127);
-  }
-  return pid;
-}
+TestSuite(faults, .init = itest_setup, .fini = teardown, .timeout = 300);
 
 /* A study of two standard normal inputs through the test model in `mode`;
  * `extra_model` and `run` are added to the model and run sections. */
@@ -129,28 +58,6 @@ static void write_study(const char *name, const char *mode, int samples,
              "analysis: {method: random, samples: %d}\n"
              "run: {%s}\n",
              env("BRINK_TEST_MODEL"), mode, extra_model, samples, run);
-}
-
-/* The records of a log as comparable text: the columns that do not depend
- * on timing or place (seconds, host, note, checksum) removed, sorted by
- * key. */
-static char *canonical_records(const char *folder) {
-  char cmd[1024];
-  snprintf(cmd, sizeof cmd,
-           "cd '%s' && grep -v '^#' %s/records.log | tail -n +2 | "
-           "awk -F'\\t' '{ s = $1 \"\\t\" $2 \"\\t\" $3; "
-           "for (i = 6; i <= NF - 2; i++) s = s \"\\t\" $i; print s }' | "
-           "LC_ALL=C sort > canon.txt",
-           dir, folder);
-  cr_assert_eq(system(cmd), 0);
-  return read_file("canon.txt");
-}
-
-static int count_lines(const char *s) {
-  int n = 0;
-  for (; *s; s++)
-    n += *s == '\n';
-  return n;
 }
 
 /* Mounts a tmpfs of `kib` KiB at dir/fs; 0 when that is not allowed. */

@@ -113,16 +113,21 @@ static inline pid_t brink_background(const char *args) {
  * the columns that do not depend on timing or place (seconds, host, note,
  * checksum) removed, sorted by key. */
 static inline char *canonical_records(const char *folder) {
+  /* The text is kept in the test folder itself (FOLDER with '/' made '_'),
+   * not below FOLDER, which may be on a file system a test filled up. */
+  char name[300];
+  snprintf(name, sizeof name, "%s.canon", folder);
+  for (char *c = name; *c; c++)
+    if (*c == '/')
+      *c = '_';
   char cmd[1024];
   snprintf(cmd, sizeof cmd,
            "cd '%s' && grep -v '^#' %s/records.log | tail -n +2 | "
            "awk -F'\\t' '{ s = $1 \"\\t\" $2 \"\\t\" $3; "
            "for (i = 6; i <= NF - 2; i++) s = s \"\\t\" $i; print s }' | "
-           "LC_ALL=C sort > %s.canon",
-           dir, folder, folder);
+           "LC_ALL=C sort > %s",
+           dir, folder, name);
   cr_assert_eq(system(cmd), 0);
-  char name[300];
-  snprintf(name, sizeof name, "%s.canon", folder);
   return read_file(name);
 }
 
