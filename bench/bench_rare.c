@@ -27,8 +27,8 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "method.h"
-#include "study.h"
+#include "methods/method.h"
+#include "study/study.h"
 
 static char path[512];
 

@@ -11,8 +11,8 @@
 #include <string.h>
 #include <time.h>
 
-#include "method.h"
-#include "study.h"
+#include "methods/method.h"
+#include "study/study.h"
 
 static long peak_kb(void) {
   FILE *f = fopen("/proc/self/status", "r");

@@ -10,7 +10,7 @@
 #include <stdint.h>
 #include <string.h>
 
-#include "expr.h"
+#include "study/expr.h"
 
 #ifndef BK_FUZZ_ENTRY
 #define BK_FUZZ_ENTRY LLVMFuzzerTestOneInput

@@ -18,8 +18,8 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "extract.h"
-#include "fault.h"
+#include "study/extract.h"
+#include "base/fault.h"
 
 #ifndef BK_FUZZ_ENTRY
 #define BK_FUZZ_ENTRY LLVMFuzzerTestOneInput

@@ -17,8 +17,8 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
-#include "error.h"
-#include "records.h"
+#include "base/error.h"
+#include "eval/records.h"
 
 #ifndef BK_FUZZ_ENTRY
 #define BK_FUZZ_ENTRY LLVMFuzzerTestOneInput

@@ -14,8 +14,8 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
-#include "error.h"
-#include "study.h"
+#include "base/error.h"
+#include "study/study.h"
 
 #ifndef BK_FUZZ_ENTRY
 #define BK_FUZZ_ENTRY LLVMFuzzerTestOneInput

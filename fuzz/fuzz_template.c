@@ -10,9 +10,9 @@
 #include <stdint.h>
 #include <string.h>
 
-#include "buf.h"
-#include "error.h"
-#include "template.h"
+#include "base/buf.h"
+#include "base/error.h"
+#include "study/template.h"
 
 #ifndef BK_FUZZ_ENTRY
 #define BK_FUZZ_ENTRY LLVMFuzzerTestOneInput

@@ -11,9 +11,9 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "error.h"
-#include "fault.h"
-#include "records.h"
+#include "base/error.h"
+#include "base/fault.h"
+#include "eval/records.h"
 
 #define BK_FUZZ_ENTRY fuzz_records_one
 #include "fuzz_records.c"

@@ -20,7 +20,7 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
-#include "records.h"
+#include "eval/records.h"
 
 static char dir[256];
 

@@ -14,9 +14,9 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "dist.h"
-#include "error.h"
-#include "special.h"
+#include "numerics/dist.h"
+#include "base/error.h"
+#include "numerics/special.h"
 
 #define BIT(p) (1u << (p))
 

@@ -10,9 +10,9 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "estimate.h"
-#include "rng.h"
-#include "special.h"
+#include "numerics/estimate.h"
+#include "numerics/rng.h"
+#include "numerics/special.h"
 
 static FILE *open_fixture(const char *name) {
   const char *dir = getenv("BRINK_FIXTURES");

@@ -7,10 +7,10 @@
  *
  * SPDX-License-Identifier: MIT
  */
-#include "error.h"
-#include "exec.h"
-#include "fault.h"
-#include "stop.h"
+#include "base/error.h"
+#include "eval/exec.h"
+#include "base/fault.h"
+#include "base/stop.h"
 
 #include <criterion/criterion.h>
 

@@ -15,9 +15,9 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "alloc.h"
-#include "error.h"
-#include "expr.h"
+#include "base/alloc.h"
+#include "base/error.h"
+#include "study/expr.h"
 
 /* Names bound in most tests, and the C variables of the same names. */
 static const char *const var_names[] = {"r", "s", "t", "x", "y", "z_2"};

@@ -15,11 +15,11 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
-#include "alloc.h"
-#include "buf.h"
-#include "error.h"
-#include "extract.h"
-#include "fault.h"
+#include "base/alloc.h"
+#include "base/buf.h"
+#include "base/error.h"
+#include "study/extract.h"
+#include "base/fault.h"
 
 static char tmpdir[256];
 

@@ -16,9 +16,9 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "method.h"
-#include "special.h"
-#include "study.h"
+#include "methods/method.h"
+#include "numerics/special.h"
+#include "study/study.h"
 
 #include "helpers/rare.h"
 

@@ -16,10 +16,10 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "fault.h"
-#include "method.h"
-#include "special.h"
-#include "study.h"
+#include "base/fault.h"
+#include "methods/method.h"
+#include "numerics/special.h"
+#include "study/study.h"
 
 static char dir[256];
 

@@ -13,10 +13,10 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "estimate.h"
-#include "method.h"
-#include "special.h"
-#include "study.h"
+#include "numerics/estimate.h"
+#include "methods/method.h"
+#include "numerics/special.h"
+#include "study/study.h"
 
 static char dir[256];
 

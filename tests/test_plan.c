@@ -11,7 +11,7 @@
 #include <math.h>
 #include <string.h>
 
-#include "plan.h"
+#include "methods/plan.h"
 
 static int close_rel(double a, double b, double tol) {
   return fabs(a - b) <= tol * fabs(b);

@@ -26,11 +26,11 @@
 #include <time.h>
 #include <unistd.h>
 
-#include "alloc.h"
-#include "buf.h"
-#include "error.h"
-#include "fault.h"
-#include "records.h"
+#include "base/alloc.h"
+#include "base/buf.h"
+#include "base/error.h"
+#include "base/fault.h"
+#include "eval/records.h"
 
 /* ---- Fixture ----------------------------------------------------------- */
 

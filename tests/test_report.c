@@ -12,11 +12,11 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "buf.h"
-#include "method.h"
-#include "report.h"
-#include "study.h"
-#include "svg.h"
+#include "base/buf.h"
+#include "methods/method.h"
+#include "reports/report.h"
+#include "study/study.h"
+#include "reports/svg.h"
 
 static char dir[256];
 

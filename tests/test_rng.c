@@ -12,7 +12,7 @@
 #include <stdlib.h>
 #include <time.h>
 
-#include "rng.h"
+#include "numerics/rng.h"
 
 /* Known-answer vectors of the Random123 distribution (kat_vectors,
  * philox4x32 R=10) accompanying Salmon et al. (2011), SC11; from memory,

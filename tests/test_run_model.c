@@ -21,7 +21,7 @@
 #include <time.h>
 #include <unistd.h>
 
-#include "special.h"
+#include "numerics/special.h"
 
 #include "helpers/itest.h"
 

@@ -14,9 +14,9 @@
 #include <string.h>
 #include <time.h>
 
-#include "error.h"
-#include "rng.h"
-#include "sampler.h"
+#include "base/error.h"
+#include "numerics/rng.h"
+#include "numerics/sampler.h"
 
 static FILE *open_fixture(const char *name) {
   const char *dir = getenv("BRINK_FIXTURES");

@@ -13,8 +13,8 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "fault.h"
-#include "shard.h"
+#include "base/fault.h"
+#include "eval/shard.h"
 
 Test(shard, parses_i_of_n_counted_from_zero) {
   bk_shard_t sh;

@@ -14,7 +14,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "special.h"
+#include "numerics/special.h"
 
 #if defined(__has_include)
 #if __has_include(<gsl/gsl_cdf.h>)

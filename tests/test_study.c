@@ -12,7 +12,7 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "study.h"
+#include "study/study.h"
 
 static char dir[256];
 static char path[512];

@@ -15,10 +15,10 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "alloc.h"
-#include "buf.h"
-#include "error.h"
-#include "template.h"
+#include "base/alloc.h"
+#include "base/buf.h"
+#include "base/error.h"
+#include "study/template.h"
 
 static const char *const deck_names[] = {"E", "fy", "t", "span", "load"};
 static const bk_names_t deck = {deck_names, 5};

@@ -16,10 +16,10 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "alloc.h"
-#include "error.h"
-#include "special.h"
-#include "transform.h"
+#include "base/alloc.h"
+#include "base/error.h"
+#include "numerics/special.h"
+#include "numerics/transform.h"
 
 /* A distribution from study-file parameters, e.g.
  * dist(BK_DIST_GUMBEL, BK_PARAM_LOCATION, 0.0, BK_PARAM_SCALE, 1.0, -1). */

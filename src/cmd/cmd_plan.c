@@ -1,0 +1,263 @@
+/*
+ * `brink plan`: the evaluations and wall time each method needs to reach
+ * the study's target_cov, from a failure probability and seconds per model
+ * run given on the command line or taken from a pilot run in the study's
+ * run folder (report.json for Pf, records.log for the mean seconds).
+ * Writes nothing.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include <errno.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "base/alloc.h"
+#include "base/buf.h"
+#include "cmd/cli.h"
+#include "base/error.h"
+#include "methods/plan.h"
+#include "eval/records.h"
+#include "reports/report.h"
+#include "numerics/special.h"
+#include "study/study.h"
+
+static const char plan_help[] =
+    "usage: brink plan STUDY.yaml [--pf P] [--seconds S] [--cov C]\n"
+    "                  [--slots N] [--json]\n"
+    "\n"
+    "Prints, for each method, the evaluations and the wall time needed to\n"
+    "reach the coefficient of variation C (default: the study's target_cov,\n"
+    "else 0.1) at failure probability P with S seconds per model run on N\n"
+    "slots (default run.slots). Without --pf or --seconds the figures come\n"
+    "from a pilot run in the study's run folder: Pf from report.json, the\n"
+    "mean seconds per evaluation from records.log. The figures are\n"
+    "estimates from each estimator's variance formula (see docs/methods.md),\n"
+    "for choosing a method; writes nothing.\n"
+    "\n"
+    "  --pf P        expected failure probability (0 < P < 1)\n"
+    "  --seconds S   seconds per model run\n"
+    "  --cov C       target coefficient of variation\n"
+    "  --slots N     concurrent model runs\n"
+    "  --json        print JSON instead of a table\n";
+
+/* The "pf" number of a report.json, by a small scan for the key (the
+ * report is ours, one key per line). NaN when absent. */
+static double pilot_pf(const char *folder) {
+  bk_buf_t p;
+  bk_buf_init(&p);
+  bk_buf_printf(&p, "%s/report.json", folder);
+  FILE *f = fopen(p.data, "r");
+  bk_buf_close(&p);
+  if (!f)
+    return NAN;
+  char line[4096];
+  double pf = NAN;
+  while (fgets(line, sizeof line, f)) {
+    char *k = strstr(line, "\"pf\":");
+    if (k) {
+      char *end;
+      double v = strtod(k + 5, &end);
+      if (end != k + 5)
+        pf = v;
+      break;
+    }
+  }
+  fclose(f);
+  return pf;
+}
+
+typedef struct {
+  double sum;
+  uint64_t n;
+} seconds_t;
+
+static int add_seconds(void *data, const bk_record_t *rec) {
+  seconds_t *t = data;
+  if (rec->fault == 0 && isfinite(rec->seconds)) {
+    t->sum += rec->seconds;
+    t->n++;
+  }
+  return 0;
+}
+
+/* The mean seconds of the successful evaluations in folder/records.log;
+ * NaN when there is no log. *n receives their count. */
+static double pilot_seconds(const char *folder, uint64_t *n) {
+  bk_buf_t p;
+  bk_buf_init(&p);
+  bk_buf_printf(&p, "%s/records.log", folder);
+  bk_records_opts_t ro = {.path = p.data, .read_only = 1, .any_study = 1};
+  bk_records_t *rec;
+  bk_error_t err;
+  bk_error_clear(&err);
+  seconds_t t = {0, 0};
+  if (bk_records_open(&rec, &ro, &err) == 0) {
+    bk_records_scan(rec, add_seconds, &t);
+    bk_records_close(rec);
+  }
+  bk_buf_close(&p);
+  *n = t.n;
+  return t.n ? t.sum / (double)t.n : NAN;
+}
+
+static int want_number(const char *opt, const char *v, double *out) {
+  char *end;
+  errno = 0;
+  double x = v ? strtod(v, &end) : NAN;
+  if (!v || end == v || *end || errno || !(x > 0) || !isfinite(x)) {
+    fprintf(stderr, "brink: plan: %s takes a positive number (e.g. %s 0.5)\n",
+            opt, opt);
+    return BK_EXIT_USAGE;
+  }
+  *out = x;
+  return 0;
+}
+
+static void print_duration(double s) {
+  if (!isfinite(s))
+    printf("%12s", "n/a");
+  else if (s < 120)
+    printf("%11.0fs", s);
+  else if (s < 7200)
+    printf("%10.1f m", s / 60);
+  else if (s < 3 * 86400)
+    printf("%10.1f h", s / 3600);
+  else
+    printf("%10.1f d", s / 86400);
+}
+
+int bk__cmd_plan(int argc, char **argv) {
+  const char *path = NULL;
+  double pf = NAN, seconds = NAN, cov = NAN, slots = NAN;
+  int json = 0, rc;
+  for (int i = 0; i < argc; i++) {
+    const char *a = argv[i];
+    if (bk__cli_is_help(a)) {
+      fputs(plan_help, stdout);
+      return BK_EXIT_DONE;
+    } else if (strcmp(a, "--json") == 0) {
+      json = 1;
+    } else if (strcmp(a, "--pf") == 0 || strcmp(a, "--seconds") == 0 ||
+               strcmp(a, "--cov") == 0 || strcmp(a, "--slots") == 0) {
+      double *dst = a[2] == 'p'   ? &pf
+                    : a[3] == 'e' ? &seconds
+                    : a[3] == 'o' ? &cov
+                                  : &slots;
+      if ((rc = want_number(a, i + 1 < argc ? argv[i + 1] : NULL, dst)))
+        return rc;
+      i++;
+    } else if (a[0] == '-') {
+      return bk__cli_usage_error("plan: unknown option '%s'", a);
+    } else if (path) {
+      return bk__cli_usage_error(
+          "plan: one study file at a time ('%s' is extra)", a);
+    } else {
+      path = a;
+    }
+  }
+  if (!path)
+    return bk__cli_usage_error("plan: %s", "give a study file, e.g. brink "
+                                           "plan study.yaml --pf 1e-5");
+  if (!isnan(pf) && !(pf < 1)) {
+    fprintf(stderr, "brink: plan: --pf must lie between 0 and 1\n");
+    return BK_EXIT_USAGE;
+  }
+  bk_study_t *s;
+  if ((rc = bk__cli_load_study(path, &s)))
+    return rc;
+  const char *pf_from = "--pf", *sec_from = "--seconds";
+  if (isnan(pf)) {
+    pf = pilot_pf(s->run.folder);
+    pf_from = "pilot report.json";
+    if (!(pf > 0 && pf < 1)) {
+      fprintf(stderr,
+              "brink: plan: no failure probability: give --pf P, or run a "
+              "pilot first (brink run with a small analysis.samples) so "
+              "that %s/report.json has a Pf above 0\n",
+              s->run.folder);
+      bk_study_free(s);
+      return BK_EXIT_USAGE;
+    }
+  }
+  uint64_t nsec = 0;
+  if (isnan(seconds)) {
+    seconds = pilot_seconds(s->run.folder, &nsec);
+    sec_from = nsec ? "pilot records.log" : "unknown (give --seconds)";
+  }
+  if (isnan(cov))
+    cov = s->analysis.target_cov > 0 ? s->analysis.target_cov : 0.1;
+  bk_plan_opts_t o = {
+      .pf = pf,
+      .cov = cov,
+      .seconds = seconds,
+      .slots = isnan(slots) ? s->run.slots : (int)slots,
+      .nu = bk_transform_nu(s->transform),
+      .central = s->analysis.form.central,
+      .sorm = s->analysis.form.sorm,
+      .p0 = s->analysis.subset.p0,
+      .is_batch = s->analysis.method == BK_METHOD_IMPORTANCE
+                      ? (double)s->analysis.samples
+                      : 500,
+      .ce_rho = s->analysis.cross_entropy.rho,
+      .ce_batch = s->analysis.method == BK_METHOD_CROSS_ENTROPY
+                      ? (double)s->analysis.samples
+                      : 500,
+  };
+  if (o.slots < 1)
+    o.slots = 1;
+  bk_plan_row_t rows[BK_PLAN_ROWS];
+  bk_plan_compute(&o, rows);
+  if (json) {
+    bk_buf_t b;
+    bk_buf_init(&b);
+    bk_buf_puts(&b, "{\n  \"pf\": ");
+    bk_json_number(&b, pf);
+    bk_buf_puts(&b, ",\n  \"pf_from\": ");
+    bk_json_string(&b, pf_from);
+    bk_buf_puts(&b, ",\n  \"cov\": ");
+    bk_json_number(&b, cov);
+    bk_buf_puts(&b, ",\n  \"seconds_per_run\": ");
+    bk_json_number(&b, seconds);
+    bk_buf_puts(&b, ",\n  \"seconds_from\": ");
+    bk_json_string(&b, sec_from);
+    bk_buf_printf(&b, ",\n  \"slots\": %d,\n  \"random_variables\": %zu",
+                  o.slots, o.nu);
+    bk_buf_puts(&b, ",\n  \"methods\": [");
+    for (int i = 0; i < BK_PLAN_ROWS; i++) {
+      bk_buf_puts(&b, i ? ",\n    {\"method\": " : "\n    {\"method\": ");
+      bk_json_string(&b, rows[i].method);
+      bk_buf_puts(&b, ", \"evaluations\": ");
+      bk_json_number(&b, rows[i].evaluations);
+      bk_buf_puts(&b, ", \"wall_seconds\": ");
+      bk_json_number(&b, rows[i].seconds);
+      bk_buf_puts(&b, ", \"note\": ");
+      bk_json_string(&b, rows[i].note);
+      bk_buf_putc(&b, '}');
+    }
+    bk_buf_puts(&b, "\n  ]\n}\n");
+    fputs(b.data, stdout);
+    bk_buf_close(&b);
+  } else {
+    printf("Plan for %s: Pf %.3g (%s), target cov %g, ", s->name, pf, pf_from,
+           cov);
+    if (isfinite(seconds))
+      printf("%.3g s per run (%s), %d slots\n", seconds, sec_from, o.slots);
+    else
+      printf("seconds per run %s\n", sec_from);
+    printf("%zu random variables, beta %.2f\n\n", o.nu, -bk_norm_icdf(pf));
+    printf("  %-14s %14s %12s  %s\n", "method", "evaluations", "wall time",
+           "assumes");
+    for (int i = 0; i < BK_PLAN_ROWS; i++) {
+      printf("  %-14s %14.0f ", rows[i].method, rows[i].evaluations);
+      print_duration(rows[i].seconds);
+      printf("  %s\n", rows[i].note);
+    }
+    printf("\nWall time = evaluations x seconds per run / slots (FORM: "
+           "iterations run one\nbatch after another). Estimates for "
+           "choosing a method, not promises.\n");
+  }
+  bk_study_free(s);
+  return BK_EXIT_DONE;
+}

@@ -1,0 +1,341 @@
+/*
+ * `brink status`: where a running or stopped study stands: evaluations
+ * recorded against those planned, failures and the running estimate, model
+ * errors by kind, the throughput and the time to go, and whether a brink
+ * holds the folder's lock. Read-only: it opens the records without the
+ * lock, so it works while a run is in progress.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include <dirent.h>
+#include <errno.h>
+#include <math.h>
+#include <signal.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "base/alloc.h"
+#include "base/buf.h"
+#include "cmd/cli.h"
+#include "base/error.h"
+#include "base/fault.h"
+#include "eval/records.h"
+#include "reports/report.h"
+#include "study/study.h"
+
+static const char status_help[] =
+    "usage: brink status FOLDER|STUDY.yaml\n"
+    "\n"
+    "Shows where a running or stopped study stands: evaluations recorded\n"
+    "against those planned, failures and the running estimate of the\n"
+    "failure probability, model errors by kind, throughput, the estimated\n"
+    "time to go, and whether a brink is running on the folder now.\n"
+    "Read-only: safe while `brink run` works on the same folder.\n"
+    "Give the study file when the folder is not in its default place\n"
+    "(runs/NAME beside the study), so that the plan is known.\n";
+
+#define RECENT 200
+
+typedef struct {
+  uint64_t n, ok, failed;
+  uint64_t by_kind[BK_FAULT__COUNT];
+  double recent[RECENT]; /* run times of the last RECENT runs */
+  size_t nrecent;
+} tally_t;
+
+static int on_record(void *data, const bk_record_t *r) {
+  tally_t *t = data;
+  t->n++;
+  if (r->fault == BK_FAULT_NONE) {
+    t->ok++;
+    if (r->g <= 0)
+      t->failed++;
+  } else if (r->fault > 0 && r->fault < BK_FAULT__COUNT) {
+    t->by_kind[r->fault]++;
+  }
+  if (isfinite(r->seconds))
+    t->recent[t->nrecent++ % RECENT] = r->seconds;
+  return 0;
+}
+
+static int is_regular_file(const char *p) {
+  struct stat st;
+  return stat(p, &st) == 0 && S_ISREG(st.st_mode);
+}
+
+/* Looks for the study whose run folder is `folder`: the one named in
+ * report.json, else a *.yaml up to three folders above it. */
+static bk_study_t *find_study(const char *folder) {
+  char *p = NULL;
+  bk_study_t *s = NULL;
+  bk_error_t err;
+  if (bk_report_study_path(folder, &p) == 0) {
+    bk_error_clear(&err);
+    bk_study_load(p, &s, &err);
+    bk_free(p);
+    if (s)
+      return s;
+  }
+  char *want = realpath(folder, NULL);
+  if (!want)
+    return NULL;
+  bk_buf_t dir;
+  bk_buf_init(&dir);
+  bk_buf_puts(&dir, want);
+  for (int up = 0; up < 3 && !s; up++) {
+    bk_buf_puts(&dir, "/..");
+    DIR *d = opendir(dir.data);
+    struct dirent *e;
+    while (d && !s && (e = readdir(d)) != NULL) {
+      size_t len = strlen(e->d_name);
+      if (len < 6 || strcmp(e->d_name + len - 5, ".yaml") != 0)
+        continue;
+      bk_buf_t f;
+      bk_buf_init(&f);
+      char *real = realpath(dir.data, NULL);
+      bk_buf_printf(&f, "%s/%s", real ? real : dir.data, e->d_name);
+      free(real);
+      bk_error_clear(&err);
+      if (bk_study_load(f.data, &s, &err) == 0) {
+        char *got = realpath(s->run.folder, NULL);
+        if (!got || strcmp(got, want) != 0) {
+          bk_study_free(s);
+          s = NULL;
+        }
+        free(got);
+      }
+      bk_buf_close(&f);
+    }
+    if (d)
+      closedir(d);
+  }
+  bk_buf_close(&dir);
+  free(want);
+  return s;
+}
+
+static uint64_t planned(const bk_study_t *s, int *exact) {
+  const bk_analysis_t *a = &s->analysis;
+  *exact = 1;
+  if (a->method == BK_METHOD_LHS || a->method == BK_METHOD_SOBOL)
+    return (a->samples / a->replicates) * a->replicates;
+  if (a->method != BK_METHOD_RANDOM)
+    *exact = 0;
+  uint64_t n = a->samples && a->method == BK_METHOD_RANDOM ? a->samples
+                                                           : a->max_evaluations;
+  return n < a->max_evaluations ? n : a->max_evaluations;
+}
+
+static void duration(char *b, size_t n, double s) {
+  if (!isfinite(s) || s < 0)
+    snprintf(b, n, "unknown");
+  else if (s < 90)
+    snprintf(b, n, "%.0f s", s);
+  else if (s < 5400)
+    snprintf(b, n, "%.0f min", s / 60);
+  else if (s < 3 * 86400)
+    snprintf(b, n, "%.1f h", s / 3600);
+  else
+    snprintf(b, n, "%.1f days", s / 86400);
+}
+
+/* 1 when a live brink holds the lock (who filled), 0 when none does, -1
+ * when it is held from another host (cannot tell). */
+static int lock_holder(const char *log, char *who, size_t cap) {
+  bk_buf_t lp;
+  bk_buf_init(&lp);
+  bk_buf_printf(&lp, "%s.lock", log);
+  FILE *f = fopen(lp.data, "r");
+  bk_buf_close(&lp);
+  who[0] = '\0';
+  if (!f)
+    return 0;
+  char line[512] = "";
+  if (!fgets(line, sizeof line, f))
+    line[0] = '\0';
+  fclose(f);
+  line[strcspn(line, "\r\n")] = '\0';
+  char *colon = strrchr(line, ':');
+  if (!colon)
+    return 0;
+  *colon = '\0';
+  long pid = strtol(colon + 1, NULL, 10);
+  char host[256];
+  if (gethostname(host, sizeof host) != 0)
+    host[0] = '\0';
+  host[sizeof host - 1] = '\0';
+  snprintf(who, cap, "pid %ld on %s", pid, line);
+  if (strcmp(host, line) != 0)
+    return -1;
+  if (pid <= 0)
+    return 0;
+  return kill((pid_t)pid, 0) == 0 || errno == EPERM ? 1 : 0;
+}
+
+int bk__cmd_status(int argc, char **argv) {
+  const char *target = NULL;
+  for (int i = 0; i < argc; i++) {
+    if (bk__cli_is_help(argv[i])) {
+      fputs(status_help, stdout);
+      return BK_EXIT_DONE;
+    } else if (argv[i][0] == '-')
+      return bk__cli_usage_error("status: unknown option '%s'", argv[i]);
+    else if (target)
+      return bk__cli_usage_error("status: one folder at a time ('%s' is extra)",
+                                 argv[i]);
+    else
+      target = argv[i];
+  }
+  if (!target)
+    return bk__cli_usage_error("status: %s",
+                               "give the run folder or the study file, e.g. "
+                               "brink status runs/NAME");
+  bk_study_t *s = NULL;
+  char *folder;
+  if (is_regular_file(target)) {
+    int rc = bk__cli_load_study(target, &s);
+    if (rc)
+      return rc;
+    folder = bk_strdup(s->run.folder);
+  } else {
+    struct stat st;
+    if (stat(target, &st) != 0 || !S_ISDIR(st.st_mode)) {
+      fprintf(stderr,
+              "brink: %s is not a run folder (%s); give the folder a run "
+              "writes into (run.folder, by default runs/NAME beside the "
+              "study) or the study file\n",
+              target, strerror(errno ? errno : ENOTDIR));
+      return BK_EXIT_USAGE;
+    }
+    folder = bk_strdup(target);
+    s = find_study(folder);
+  }
+  bk_buf_t lp;
+  bk_buf_init(&lp);
+  bk_buf_printf(&lp, "%s/records.log", folder);
+  char who[300];
+  int held = lock_holder(lp.data, who, sizeof who);
+  bk_buf_t rj;
+  bk_buf_init(&rj);
+  bk_buf_printf(&rj, "%s/report.json", folder);
+  int finished = is_regular_file(rj.data);
+  bk_buf_close(&rj);
+
+  printf("Study %s, folder %s\n", s ? s->name : "(study file not found)",
+         folder);
+  if (held == 1)
+    printf("  state          running (brink %s holds the lock)\n", who);
+  else if (held == -1)
+    printf("  state          locked by brink %s (another host: cannot "
+           "tell whether it still runs)\n",
+           who);
+  else if (finished)
+    printf("  state          finished (report.json written; see `brink "
+           "report %s`)\n",
+           folder);
+  else
+    printf("  state          stopped; `brink run %s` resumes it\n",
+           s ? s->path : "STUDY.yaml");
+
+  if (s && !s->model.present) {
+    printf("  evaluations    in process: this study keeps no records, so its "
+           "progress shows only\n                 in the terminal of the "
+           "run%s\n",
+           finished ? "; the result is in report.json" : "");
+    bk_free(folder);
+    bk_buf_close(&lp);
+    bk_study_free(s);
+    return BK_EXIT_DONE;
+  }
+  bk_records_opts_t ro = {.path = lp.data, .read_only = 1, .any_study = 1};
+  bk_records_t *rec = NULL;
+  bk_error_t err;
+  bk_error_clear(&err);
+  int rc = bk_records_open(&rec, &ro, &err);
+  tally_t *t = bk_calloc(1, sizeof *t);
+  if (rc == 0)
+    rc = bk_records_scan(rec, on_record, t);
+  int exit_code = BK_EXIT_DONE;
+  if (rc == BK_ENOTFOUND || rc == -ENOENT) {
+    printf("  evaluations    none recorded yet (%s is absent or empty)\n",
+           lp.data);
+  } else if (rc) {
+    bk__cli_print_error(&err);
+    exit_code = BK_EXIT_RUNTIME;
+  } else {
+    int exact = 1;
+    uint64_t plan = s ? planned(s, &exact) : 0;
+    if (plan)
+      printf("  evaluations    %llu of %s%llu planned (%.1f%%)\n",
+             (unsigned long long)t->n, exact ? "" : "at most ",
+             (unsigned long long)plan, 100.0 * (double)t->n / (double)plan);
+    else
+      printf("  evaluations    %llu recorded\n", (unsigned long long)t->n);
+    int sampling = !s || s->analysis.method == BK_METHOD_RANDOM ||
+                   s->analysis.method == BK_METHOD_LHS ||
+                   s->analysis.method == BK_METHOD_SOBOL;
+    printf("  failures       %llu (g <= 0)", (unsigned long long)t->failed);
+    if (sampling && t->ok)
+      printf("; running estimate Pf = %.3e", (double)t->failed / (double)t->ok);
+    printf("\n");
+    uint64_t nerr = t->n - t->ok;
+    printf("  model errors   %llu", (unsigned long long)nerr);
+    const char *sep = ":";
+    for (int k = 1; k < BK_FAULT__COUNT; k++)
+      if (t->by_kind[k]) {
+        printf("%s %llu %s", sep, (unsigned long long)t->by_kind[k],
+               bk_fault_name(k));
+        sep = ",";
+      }
+    if (nerr && t->n)
+      printf(" (%.1f%% of runs)", 100.0 * (double)nerr / (double)t->n);
+    printf("\n");
+    size_t m = t->nrecent < RECENT ? t->nrecent : RECENT;
+    double sum = 0;
+    for (size_t i = 0; i < m; i++)
+      sum += t->recent[i];
+    struct stat st;
+    if (stat(lp.data, &st) == 0) {
+      char ago[32];
+      duration(ago, sizeof ago, difftime(time(NULL), st.st_mtime));
+      printf("  last record    %s ago\n", ago);
+    }
+    if (m && sum > 0) {
+      double mean = sum / (double)m;
+      int slots = s ? s->run.slots : 1;
+      double rate = (double)slots / mean;
+      printf("  run time       %.3g s per model run (mean of the last %zu)\n",
+             mean, m);
+      if (s) {
+        char rb[48];
+        if (rate >= 1)
+          snprintf(rb, sizeof rb, "%.*f runs/s", rate < 10 ? 1 : 0, rate);
+        else if (rate * 60 >= 1)
+          snprintf(rb, sizeof rb, "%.1f runs/min", rate * 60);
+        else
+          snprintf(rb, sizeof rb, "%.2g runs/h", rate * 3600);
+        printf("  rate           about %s with %d slot%s\n", rb, slots,
+               slots == 1 ? "" : "s");
+      }
+      if (plan > t->n && held == 1) {
+        char eta[32];
+        duration(eta, sizeof eta, (double)(plan - t->n) / rate);
+        printf("  time to go     about %s%s\n", eta,
+               exact ? "" : " at most (the method may stop earlier)");
+      }
+    }
+  }
+  if (!s)
+    printf("  (give the study file for the plan and the time to go: brink "
+           "status STUDY.yaml)\n");
+  bk_free(t);
+  bk_records_close(rec);
+  bk_buf_close(&lp);
+  bk_free(folder);
+  bk_study_free(s);
+  return exit_code;
+}

@@ -1,0 +1,773 @@
+/*
+ * The dispatcher (see dispatch.h): records lookup, run folders, executor,
+ * extraction, limit state, retries, record append and the keep policy.
+ *
+ * A run folder is made fresh for each attempt (an old one left by a crash
+ * is removed first), without following symbolic links, so a model cannot
+ * make brink write outside the run folder.
+ *
+ * A finished folder that is not kept and holds no subfolder is emptied of
+ * everything but the files brink itself writes (decks, copies, stdout,
+ * stderr) and renamed to a spare name instead of removed; the next run's
+ * folder is that spare renamed again, with those files rewritten from the
+ * start. To the model the folder is as fresh as a new one, and the file
+ * system is spared creating and deleting most inodes of every run (ext4
+ * without a journal scans past every inode deleted in the last half minute
+ * on each creation, which made that the largest cost of a trivial model
+ * run). Spares are removed when the dispatcher is freed.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include "eval/dispatch.h"
+
+#include <dirent.h>
+#include <errno.h>
+#include <fcntl.h>
+#include <ftw.h>
+#include <math.h>
+#include <signal.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <sys/statvfs.h>
+#include <unistd.h>
+
+#include "base/alloc.h"
+#include "base/buf.h"
+#include "study/extract.h"
+#include "base/fault.h"
+#include "base/stop.h"
+#include "study/template.h"
+
+extern char **environ;
+
+/* One evaluation in flight. */
+typedef struct {
+  bk_dispatch_t *d;
+  bk_point_t *pt;
+  char key[96];
+  char *dir;
+  int attempts;
+  int done;
+  int need; /* to run: not found in the records */
+} job_t;
+
+struct bk_dispatch {
+  bk_dispatch_opts_t o;
+  bk_dispatch_stats_t st;
+  char **base_env; /* environ + model.env, without BRINK_* */
+  size_t nbase_env;
+  double *vals; /* x then y, for the limit state */
+  char **spare; /* folders to reuse (see the top of this file) */
+  size_t nspare;
+  unsigned long spare_seq; /* for unique spare names */
+  /* The batch being run. Folders are made just before their job is
+   * submitted, at most `window` ahead, so that finished ones can be
+   * reused; the window grows when the executor has nothing queued. */
+  job_t *batch;
+  size_t nbatch;
+  size_t next;     /* the next job to consider submitting */
+  size_t inflight; /* submitted, not finished */
+  size_t window;
+  int fatal; /* a records failure: stop the batch */
+  bk_error_t fatal_err;
+  const char *prefix;
+};
+
+void bk_dispatch_folder_name(const char *key, char *out, size_t cap) {
+  size_t i = 0;
+  for (; key[i] && i + 1 < cap; i++)
+    out[i] = key[i] == '/' ? '-' : key[i];
+  out[i] = '\0';
+}
+
+static int remove_entry(const char *p, const struct stat *sb, int flag,
+                        struct FTW *ftw) {
+  (void)sb;
+  (void)flag;
+  (void)ftw;
+  return remove(p) == 0 || errno == ENOENT ? 0 : -1;
+}
+
+int bk_remove_tree(const char *path) {
+  struct stat st;
+  if (lstat(path, &st) != 0)
+    return errno == ENOENT ? 0 : -errno;
+  if (!S_ISDIR(st.st_mode))
+    return unlink(path) == 0 ? 0 : -errno;
+  return nftw(path, remove_entry, 32, FTW_DEPTH | FTW_PHYS) == 0 ? 0 : -errno;
+}
+
+int bk_dispatch_reap(const char *work_dir) {
+  size_t n = strlen(work_dir);
+  while (n > 1 && work_dir[n - 1] == '/')
+    n--;
+  DIR *d = opendir("/proc");
+  if (!d)
+    return 0;
+  int killed = 0;
+  pid_t self = getpid();
+  uid_t uid = geteuid();
+  struct dirent *e;
+  while ((e = readdir(d))) {
+    char *end;
+    long pid = strtol(e->d_name, &end, 10);
+    if (*end || pid <= 0 || (pid_t)pid == self)
+      continue;
+    char link[64], cwd[4096];
+    snprintf(link, sizeof link, "/proc/%ld/cwd", pid);
+    struct stat st;
+    if (lstat(link, &st) != 0 || st.st_uid != uid)
+      continue;
+    ssize_t k = readlink(link, cwd, sizeof cwd - 1);
+    if (k <= 0)
+      continue;
+    cwd[k] = '\0';
+    if ((size_t)k <= n || strncmp(cwd, work_dir, n) != 0 || cwd[n] != '/')
+      continue;
+    /* Each model leads its own process group; a child it spawned is in
+     * that group too, or found by its own working folder. */
+    pid_t pg = getpgid((pid_t)pid);
+    if (pg > 1 && pg != getpgrp())
+      kill(-pg, SIGKILL);
+    kill((pid_t)pid, SIGKILL);
+    killed++;
+  }
+  closedir(d);
+  return killed;
+}
+
+static int env_name_eq(const char *a, const char *b) {
+  while (*a && *a != '=' && *a == *b) {
+    a++;
+    b++;
+  }
+  return (*a == '=' || !*a) && (*b == '=' || !*b);
+}
+
+static int build_base_env(bk_dispatch_t *d) {
+  const bk_model_t *m = &d->o.study->model;
+  size_t n = 0;
+  while (environ && environ[n])
+    n++;
+  d->base_env = bk_calloc(n + m->nenv + 1, sizeof *d->base_env);
+  if (!d->base_env)
+    return BK_ENOMEM;
+  for (size_t i = 0; i < n; i++) {
+    if (strncmp(environ[i], "BRINK_", 6) == 0)
+      continue;
+    int overridden = 0;
+    for (size_t j = 0; j < m->nenv; j++)
+      if (env_name_eq(environ[i], m->env[j]))
+        overridden = 1;
+    if (!overridden)
+      d->base_env[d->nbase_env++] = environ[i];
+  }
+  for (size_t j = 0; j < m->nenv; j++)
+    d->base_env[d->nbase_env++] = m->env[j];
+  return 0;
+}
+
+int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
+  bk_dispatch_t *d = bk_calloc(1, sizeof *d);
+  if (!d)
+    return BK_ENOMEM;
+  d->o = *opts;
+  const bk_study_t *s = opts->study;
+  d->vals = bk_calloc(s->nvars + s->model.noutputs + 1, sizeof *d->vals);
+  if (!d->vals || build_base_env(d)) {
+    bk_dispatch_free(d);
+    return BK_ENOMEM;
+  }
+  *out = d;
+  return 0;
+}
+
+void bk_dispatch_free(bk_dispatch_t *d) {
+  if (!d)
+    return;
+  for (size_t i = 0; i < d->nspare; i++) {
+    bk_remove_tree(d->spare[i]);
+    bk_free(d->spare[i]);
+  }
+  bk_free(d->spare);
+  bk_free(d->base_env);
+  bk_free(d->vals);
+  bk_free(d);
+}
+
+const bk_dispatch_stats_t *bk_dispatch_stats(const bk_dispatch_t *d) {
+  return &d->st;
+}
+
+/* Open flags for a file brink writes into a run folder: never through a
+ * link; new in a new folder, overwritten in a reused one (and cut to its
+ * new length after writing: truncating first would free and allocate its
+ * blocks again, which costs a discard on some disks). */
+static int new_file_flags(int reused) {
+  return O_WRONLY | O_CREAT | O_NOFOLLOW | O_CLOEXEC | (reused ? 0 : O_EXCL);
+}
+
+/* Writes `len` bytes to dir/name, refusing to follow a link. */
+static int write_new_file(const char *dir, const char *name, const char *data,
+                          size_t len, int reused) {
+  char path[4096];
+  int n = snprintf(path, sizeof path, "%s/%s", dir, name);
+  if (n < 0 || (size_t)n >= sizeof path)
+    return -ENAMETOOLONG;
+  int fd = open(path, new_file_flags(reused), 0666);
+  if (fd < 0)
+    return -errno;
+  size_t off = 0;
+  while (off < len) {
+    ssize_t w = write(fd, data + off, len - off);
+    if (w < 0 && errno == EINTR)
+      continue;
+    if (w < 0) {
+      int e = -errno;
+      close(fd);
+      return e;
+    }
+    off += (size_t)w;
+  }
+  if (reused && ftruncate(fd, (off_t)len) != 0) {
+    int e = -errno;
+    close(fd);
+    return e;
+  }
+  return close(fd) == 0 ? 0 : -errno;
+}
+
+static int copy_file(const char *src, const char *dir, const char *name,
+                     int reused) {
+  int in = open(src, O_RDONLY | O_CLOEXEC);
+  if (in < 0)
+    return -errno;
+  bk_buf_t p;
+  bk_buf_init(&p);
+  bk_buf_printf(&p, "%s/%s", dir, name);
+  int out = p.data ? open(p.data, new_file_flags(reused), 0666) : -1;
+  bk_buf_close(&p);
+  if (out < 0) {
+    int e = -errno;
+    close(in);
+    return e;
+  }
+  char buf[65536];
+  int rc = 0;
+  off_t total = 0;
+  for (;;) {
+    ssize_t r = read(in, buf, sizeof buf);
+    if (r < 0 && errno == EINTR)
+      continue;
+    if (r <= 0) {
+      rc = r < 0 ? -errno : 0;
+      break;
+    }
+    for (ssize_t off = 0; off < r;) {
+      ssize_t w = write(out, buf + off, (size_t)(r - off));
+      if (w < 0 && errno == EINTR)
+        continue;
+      if (w < 0) {
+        rc = -errno;
+        break;
+      }
+      off += w;
+    }
+    total += r;
+    if (rc)
+      break;
+  }
+  if (rc == 0 && reused && ftruncate(out, total) != 0)
+    rc = -errno;
+  close(in);
+  if (close(out) != 0 && rc == 0)
+    rc = -errno;
+  return rc;
+}
+
+static const char *base_name(const char *p) {
+  const char *s = strrchr(p, '/');
+  return s ? s + 1 : p;
+}
+
+/* Is `name` one of the files brink writes into a run folder? */
+static int own_file(const bk_study_t *s, const char *name) {
+  if (strcmp(name, "stdout") == 0 || strcmp(name, "stderr") == 0)
+    return 1;
+  for (size_t i = 0; i < s->model.ndecks; i++)
+    if (strcmp(name, s->model.decks[i].to) == 0)
+      return 1;
+  for (size_t i = 0; i < s->model.ncopy; i++)
+    if (strcmp(name, base_name(s->model.copy[i])) == 0)
+      return 1;
+  return 0;
+}
+
+/* Readies a finished folder (not a link) for reuse: removes every entry
+ * but the regular files brink writes, which the next run rewrites. Returns
+ * 1 when the folder is ready, 0 when it holds a folder or something could
+ * not be removed (then it is removed whole). */
+static int tidy_for_reuse(const bk_study_t *s, const char *dir) {
+  int fd = open(dir, O_RDONLY | O_DIRECTORY | O_NOFOLLOW | O_CLOEXEC);
+  if (fd < 0)
+    return 0;
+  DIR *dh = fdopendir(fd);
+  if (!dh) {
+    close(fd);
+    return 0;
+  }
+  int ok = 1;
+  struct dirent *e;
+  while (ok && (e = readdir(dh))) {
+    const char *n = e->d_name;
+    if (n[0] == '.' && (!n[1] || (n[1] == '.' && !n[2])))
+      continue;
+    int type = e->d_type;
+    if (type == DT_UNKNOWN) {
+      struct stat st;
+      if (fstatat(fd, n, &st, AT_SYMLINK_NOFOLLOW) != 0)
+        type = DT_DIR; /* give up */
+      else
+        type = S_ISDIR(st.st_mode)   ? DT_DIR
+               : S_ISREG(st.st_mode) ? DT_REG
+                                     : DT_LNK;
+    }
+    if (type == DT_DIR)
+      ok = 0;
+    else if (type != DT_REG || !own_file(s, n))
+      ok = unlinkat(fd, n, 0) == 0 || errno == ENOENT;
+  }
+  closedir(dh);
+  return ok;
+}
+
+/* Keeps a finished folder as a spare when it can be reused, and removes it
+ * otherwise. */
+#define MAX_SPARE 64
+static void retire_folder(bk_dispatch_t *d, const char *dir) {
+  if (d->nspare < MAX_SPARE && tidy_for_reuse(d->o.study, dir)) {
+    if (!d->spare && !(d->spare = bk_calloc(MAX_SPARE, sizeof *d->spare)))
+      goto remove;
+    bk_buf_t p;
+    bk_buf_init(&p);
+    bk_buf_printf(&p, "%s/.spare-%s-%ld-%lu", d->o.work_dir,
+                  d->o.host ? d->o.host : "", (long)getpid(), d->spare_seq++);
+    if (p.data && rename(dir, p.data) == 0) {
+      d->spare[d->nspare++] = p.data;
+      return;
+    }
+    bk_buf_close(&p);
+  }
+remove:
+  bk_remove_tree(dir);
+}
+
+/* Makes the job's folder from a spare. Returns 1 when it did. */
+static int reuse_spare(bk_dispatch_t *d, const char *dir) {
+  while (d->nspare > 0) {
+    char *sp = d->spare[--d->nspare];
+    int ok = rename(sp, dir) == 0;
+    if (!ok && (errno == EEXIST || errno == ENOTEMPTY || errno == EISDIR ||
+                errno == ENOTDIR)) {
+      /* An old folder of this key, left by a crash or an earlier attempt:
+       * remove it (now, before the folder is made again) and try again. */
+      ok = bk_remove_tree(dir) == 0 && rename(sp, dir) == 0;
+    }
+    if (!ok)
+      bk_remove_tree(sp);
+    bk_free(sp);
+    if (ok)
+      return 1;
+  }
+  return 0;
+}
+
+/* Makes a fresh run folder for the job and fills it. Returns 0, or a
+ * negative code with the reason in why. */
+static int prepare_folder(job_t *j, char *why, size_t whycap) {
+  bk_dispatch_t *d = j->d;
+  const bk_study_t *s = d->o.study;
+  int rc = 0;
+  int reused = reuse_spare(d, j->dir);
+  if (!reused && mkdir(j->dir, 0777) != 0) {
+    /* An old folder of this key: remove it first. */
+    rc = errno == EEXIST ? bk_remove_tree(j->dir) : -errno;
+    if (rc == 0 && mkdir(j->dir, 0777) != 0)
+      rc = -errno;
+  }
+  if (rc) {
+    snprintf(why, whycap, "cannot make the run folder %s: %s", j->dir,
+             bk_strerror(rc));
+    return rc;
+  }
+  bk_buf_t out;
+  bk_buf_init(&out);
+  for (size_t i = 0; i < s->model.ndecks; i++) {
+    const bk_deck_t *dk = &s->model.decks[i];
+    bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key, j->dir};
+    bk_buf_reset(&out);
+    rc = bk_template_render(dk->tpl, &ctx, &out);
+    if (rc == 0)
+      rc = write_new_file(j->dir, dk->to, out.data ? out.data : "", out.len,
+                          reused);
+    if (rc) {
+      snprintf(why, whycap, "cannot write %s/%s: %s", j->dir, dk->to,
+               bk_strerror(rc));
+      break;
+    }
+  }
+  bk_buf_close(&out);
+  for (size_t i = 0; rc == 0 && i < s->model.ncopy; i++) {
+    rc = copy_file(s->model.copy[i], j->dir, base_name(s->model.copy[i]),
+                   reused);
+    if (rc)
+      snprintf(why, whycap, "cannot copy %s into %s: %s", s->model.copy[i],
+               j->dir, bk_strerror(rc));
+  }
+  return rc;
+}
+
+static void on_done(void *data, const bk_job_result_t *res);
+
+/* Starts (or restarts) one job. On a preparation failure the run is
+ * finished at once as a fault-free failure to run: records stop. */
+static int submit(job_t *j) {
+  bk_dispatch_t *d = j->d;
+  const bk_study_t *s = d->o.study;
+  char why[512];
+  int rc = prepare_folder(j, why, sizeof why);
+  if (rc) {
+    d->fatal = rc;
+    bk_error_set(&d->fatal_err, rc == -ENOSPC ? BK_ENOSPACE : rc, NULL, 0, 0,
+                 "%s", why);
+    return rc;
+  }
+  size_t ne = d->nbase_env;
+  char **env = bk_calloc(ne + 4, sizeof *env);
+  char kv[3][1200];
+  if (!env)
+    return BK_ENOMEM;
+  memcpy(env, d->base_env, ne * sizeof *env);
+  snprintf(kv[0], sizeof kv[0], "BRINK_KEY=%s", j->key);
+  snprintf(kv[1], sizeof kv[1], "BRINK_INDEX=%llu",
+           (unsigned long long)j->pt->index);
+  snprintf(kv[2], sizeof kv[2], "BRINK_FOLDER=%s", j->dir);
+  env[ne] = kv[0];
+  env[ne + 1] = kv[1];
+  env[ne + 2] = kv[2];
+  env[ne + 3] = NULL;
+  bk_job_t job = {
+      .key = j->key,
+      .dir = j->dir,
+      .argv = s->model.argv,
+      .env = env,
+      .timeout = s->model.timeout,
+      .grace = 5,
+      .stdout_name = "stdout",
+      .stderr_name = "stderr",
+  };
+  j->attempts++;
+  rc = bk_exec_submit(d->o.exec, &job, on_done, j);
+  bk_free(env);
+  return rc;
+}
+
+/* Should the folder of a finished run stay? */
+static int keep_folder(const bk_study_t *s, const bk_point_t *pt) {
+  switch (s->model.keep) {
+  case BK_KEEP_ALL:
+    return 1;
+  case BK_KEEP_FAILED:
+    return pt->fault != BK_FAULT_NONE || pt->g <= 0;
+  case BK_KEEP_ERRORS:
+    return pt->fault != BK_FAULT_NONE;
+  case BK_KEEP_NONE:
+  default:
+    return 0;
+  }
+}
+
+static void extract_outputs(job_t *j, char *why, size_t whycap) {
+  bk_dispatch_t *d = j->d;
+  const bk_study_t *s = d->o.study;
+  bk_point_t *pt = j->pt;
+  for (size_t i = 0; i < s->model.noutputs; i++) {
+    const bk_output_t *o = &s->model.outputs[i];
+    bk_buf_t p;
+    bk_buf_init(&p);
+    bk_buf_printf(&p, "%s/%s", j->dir, o->from_stdout ? "stdout" : o->file);
+    double v = NAN;
+    char w[256] = "";
+    int f = p.data ? bk_extract_file(o->re, p.data, o->match, &v, w, sizeof w)
+                   : BK_FAULT_NO_OUTPUT;
+    bk_buf_close(&p);
+    if (f < 0)
+      f = BK_FAULT_NO_OUTPUT;
+    pt->y[i] = v;
+    if (f != BK_FAULT_NONE && pt->fault == BK_FAULT_NONE) {
+      pt->fault = f;
+      snprintf(why, whycap, "output %s: %s", o->name, w);
+    }
+  }
+  if (pt->fault != BK_FAULT_NONE)
+    return;
+  memcpy(d->vals, pt->x, s->nvars * sizeof *d->vals);
+  if (s->model.noutputs)
+    memcpy(d->vals + s->nvars, pt->y, s->model.noutputs * sizeof *d->vals);
+  pt->g = bk_expr_eval(s->g, d->vals);
+  if (isnan(pt->g)) {
+    pt->fault = BK_FAULT_NOT_A_NUMBER;
+    snprintf(why, whycap,
+             "the limit state is not a number for these "
+             "outputs");
+  }
+}
+
+/* Is the file system of `dir` (nearly) full: under 64 KiB or no inode
+ * left? A model that fails then may have failed for want of space, which
+ * says nothing about the sample. */
+static int disk_full(const char *dir) {
+  struct statvfs sv;
+  if (statvfs(dir, &sv) != 0)
+    return errno == ENOSPC;
+  return (double)sv.f_bavail * (double)sv.f_frsize < 65536.0 ||
+         (sv.f_files > 0 && sv.f_favail == 0);
+}
+
+static void run_done(job_t *j, const bk_job_result_t *res) {
+  bk_dispatch_t *d = j->d;
+  const bk_study_t *s = d->o.study;
+  bk_point_t *pt = j->pt;
+  if (res->fault == BK_FAULT_INTERRUPTED || d->fatal) {
+    j->done = -1;
+    return;
+  }
+  char why[512] = "";
+  pt->fault = res->fault;
+  pt->g = NAN;
+  for (size_t i = 0; i < s->model.noutputs; i++)
+    pt->y[i] = NAN;
+  if (pt->fault == BK_FAULT_NONE)
+    extract_outputs(j, why, sizeof why);
+  else
+    snprintf(why, sizeof why, "%s", res->why);
+  if (pt->fault != BK_FAULT_NONE && disk_full(j->dir)) {
+    /* Not recorded: after space is freed the run is made again. */
+    d->fatal = BK_ENOSPACE;
+    bk_error_set(&d->fatal_err, BK_ENOSPACE, NULL, 0, 0,
+                 "%s failed (%s) while the file system of %s has no space "
+                 "left; the run is not recorded",
+                 j->key, why, j->dir);
+    bk_stop_set(SIGTERM);
+    j->done = -1;
+    return;
+  }
+  if (pt->fault != BK_FAULT_NONE && j->attempts <= s->model.retries &&
+      !bk_stop_requested()) {
+    if (submit(j) == 0)
+      return;
+    if (d->fatal) {
+      bk_stop_set(SIGTERM);
+      j->done = -1;
+      return;
+    }
+  }
+  d->st.completed++;
+  if (pt->fault != BK_FAULT_NONE)
+    d->st.errors++;
+  int keep = keep_folder(s, pt);
+  char note[700];
+  if (pt->fault != BK_FAULT_NONE)
+    snprintf(note, sizeof note, "%s; folder %s", why, j->dir);
+  else if (keep)
+    snprintf(note, sizeof note, "folder %s", j->dir);
+  else
+    note[0] = '\0';
+  bk_record_t rec = {
+      .key = j->key,
+      .nx = s->nvars,
+      .x = pt->x,
+      .ny = s->model.noutputs,
+      .y = pt->y,
+      .g = pt->g,
+      .fault = pt->fault,
+      .attempts = j->attempts,
+      .seconds = res->seconds,
+      .host = d->o.host,
+      .note = note,
+  };
+  int rc = bk_records_append(d->o.records, &rec, &d->fatal_err);
+  if (rc) {
+    d->fatal = rc;
+    bk_stop_set(SIGTERM);
+    j->done = -1;
+    return;
+  }
+  if (!keep)
+    retire_folder(d, j->dir);
+  j->done = 1;
+  if (d->o.tick) {
+    d->st.running = bk_exec_running(d->o.exec);
+    d->o.tick(d->o.tick_data, &d->st);
+  }
+}
+
+#define FIRST_WINDOW 64
+#define MAX_WINDOW   ((size_t)1 << 20)
+
+/* Submits the batch's next jobs while the window has room. Returns 0 or
+ * the code of a submission that failed (d->fatal set for a failure to
+ * make a folder). */
+static int feed(bk_dispatch_t *d) {
+  while (d->next < d->nbatch && d->inflight < d->window) {
+    job_t *j = &d->batch[d->next];
+    if (!j->need) {
+      d->next++;
+      continue;
+    }
+    if (bk_stop_requested() || d->fatal)
+      return 0;
+    int rc = submit(j);
+    if (rc)
+      return rc;
+    d->next++;
+    d->inflight++;
+  }
+  return 0;
+}
+
+static void on_done(void *data, const bk_job_result_t *res) {
+  job_t *j = data;
+  bk_dispatch_t *d = j->d;
+  run_done(j, res);
+  if (j->done == 0)
+    return; /* submitted again */
+  d->inflight--;
+  /* Nothing queued behind the running processes: look further ahead. */
+  if (d->window < MAX_WINDOW &&
+      (size_t)bk_exec_running(d->o.exec) >= d->inflight)
+    d->window *= 2;
+  int rc = feed(d);
+  if (rc && !d->fatal) {
+    d->fatal = rc;
+    bk_error_set(&d->fatal_err, rc, NULL, 0, 0, "cannot start %s: %s",
+                 d->batch[d->next].key, bk_strerror(rc));
+  }
+  if (rc)
+    bk_stop_set(SIGTERM);
+}
+
+static int same_doubles(const double *a, const double *b, size_t n) {
+  return n == 0 || memcmp(a, b, n * sizeof *a) == 0;
+}
+
+static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
+                          bk_point_t *pts, size_t n, bk_error_t *err) {
+  bk_dispatch_t *d = ev->data;
+  const bk_study_t *s = d->o.study;
+  job_t *jobs = bk_calloc(n, sizeof *jobs);
+  if (!jobs)
+    return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  d->prefix = prefix;
+  int rc = 0, pending = 0;
+  for (size_t i = 0; i < n; i++) {
+    job_t *j = &jobs[i];
+    j->d = d;
+    j->pt = &pts[i];
+    snprintf(j->key, sizeof j->key, "%s/%llu", prefix,
+             (unsigned long long)pts[i].index);
+    bk_record_t rec;
+    if (bk_records_find(d->o.records, j->key, &rec)) {
+      if (rec.nx != s->nvars || !same_doubles(rec.x, pts[i].x, s->nvars)) {
+        rc = bk_error_set(err, BK_EMISMATCH, NULL, 0, 0,
+                          "the recorded inputs of %s differ from the ones "
+                          "this study gives; the records were made "
+                          "differently (another brink version?). Use a new "
+                          "run.folder",
+                          j->key);
+        goto out;
+      }
+      for (size_t k = 0; k < s->model.noutputs && k < rec.ny; k++)
+        pts[i].y[k] = rec.y[k];
+      pts[i].g = rec.g;
+      pts[i].fault = rec.fault;
+      j->done = 1;
+      d->st.replayed++;
+      continue;
+    }
+    char name[120];
+    bk_dispatch_folder_name(j->key, name, sizeof name);
+    bk_buf_t p;
+    bk_buf_init(&p);
+    bk_buf_printf(&p, "%s/%s", d->o.work_dir, name);
+    j->dir = p.data;
+    if (!j->dir) {
+      rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+      goto out;
+    }
+    if (bk_stop_requested() || d->fatal)
+      continue;
+    j->need = 1;
+    pending++;
+  }
+  d->batch = jobs;
+  d->nbatch = n;
+  d->next = 0;
+  d->inflight = 0;
+  if (d->window < FIRST_WINDOW)
+    d->window = FIRST_WINDOW;
+  rc = feed(d);
+  if (rc && d->fatal) {
+    bk_stop_set(SIGTERM);
+  } else if (rc && d->inflight == 0) {
+    rc = bk_error_set(err, rc, NULL, 0, 0, "cannot start %s: %s",
+                      jobs[d->next].key, bk_strerror(rc));
+    goto out;
+  } else if (rc) {
+    d->fatal = rc;
+    bk_error_set(&d->fatal_err, rc, NULL, 0, 0, "cannot start %s: %s",
+                 jobs[d->next].key, bk_strerror(rc));
+    bk_stop_set(SIGTERM);
+  }
+  rc = 0;
+  int wrc = bk_exec_wait(d->o.exec);
+  /* A batch boundary is a natural point to put the records on disk. */
+  bk_records_sync(d->o.records);
+  if (d->fatal) {
+    *err = d->fatal_err;
+    if (!err->code)
+      err->code = d->fatal;
+    rc = d->fatal;
+    goto out;
+  }
+  if (wrc == BK_ESTOPPED || bk_stop_requested()) {
+    rc = BK_ESTOPPED;
+    goto out;
+  }
+  if (wrc) {
+    rc = bk_error_set(err, wrc, NULL, 0, 0, "the executor failed: %s",
+                      bk_strerror(wrc));
+    goto out;
+  }
+  for (size_t i = 0; i < n; i++)
+    if (jobs[i].done != 1) {
+      rc = bk_error_set(err, BK_EINVAL, NULL, 0, 0,
+                        "%s did not finish (internal error)", jobs[i].key);
+      goto out;
+    }
+  (void)pending;
+out:
+  d->batch = NULL;
+  d->nbatch = d->next = d->inflight = 0;
+  for (size_t i = 0; i < n; i++)
+    bk_free(jobs[i].dir);
+  bk_free(jobs);
+  return rc;
+}
+
+void bk_dispatch_evaluator(bk_dispatch_t *d, bk_evaluator_t *ev) {
+  ev->batch = dispatch_batch;
+  ev->data = d;
+}

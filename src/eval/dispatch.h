@@ -1,0 +1,65 @@
+/*
+ * The dispatcher: the evaluator of studies with a model section. For each
+ * keyed point of a batch it looks the key up in the record log; recorded
+ * keys return at once (this is how a study resumes), the others get a run
+ * folder with the rendered decks and copied files, run through the
+ * executor, have their outputs extracted and the limit state evaluated,
+ * with retries on faults, and are appended to the log. The keep policy then
+ * removes the run folders no one needs.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#ifndef BK_DISPATCH_H
+#define BK_DISPATCH_H
+
+#include <stdint.h>
+
+#include "eval/exec.h"
+#include "eval/evaluator.h"
+#include "eval/records.h"
+#include "study/study.h"
+
+typedef struct {
+  uint64_t replayed;  /* keys found in the records */
+  uint64_t completed; /* model runs finished in this process */
+  uint64_t errors;    /* of those, ending in a fault */
+  int running;        /* processes running now */
+} bk_dispatch_stats_t;
+
+typedef void (*bk_dispatch_tick_cb)(void *data, const bk_dispatch_stats_t *st);
+
+typedef struct {
+  const bk_study_t *study;
+  bk_records_t *records;   /* borrowed; open for writing */
+  bk_exec_t *exec;         /* borrowed */
+  const char *work_dir;    /* run folders are made below it */
+  const char *host;        /* recorded with each evaluation */
+  bk_dispatch_tick_cb tick; /* after each finished run; may be NULL */
+  void *tick_data;
+} bk_dispatch_opts_t;
+
+typedef struct bk_dispatch bk_dispatch_t;
+
+int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts);
+void bk_dispatch_free(bk_dispatch_t *d);
+/* Makes `ev` evaluate through `d`. */
+void bk_dispatch_evaluator(bk_dispatch_t *d, bk_evaluator_t *ev);
+const bk_dispatch_stats_t *bk_dispatch_stats(const bk_dispatch_t *d);
+
+/* The run-folder name of a key: '/' becomes '-' ("lhs/r3/77" ->
+ * "lhs-r3-77"). */
+void bk_dispatch_folder_name(const char *key, char *out, size_t cap);
+
+/* Removes a folder and everything below it without following symbolic
+ * links. Returns 0 or a negative errno. */
+int bk_remove_tree(const char *path);
+
+/* Kills (SIGKILL, with their process groups) the processes of this user
+ * whose working folder lies below `work_dir`: models left running by a
+ * brink that was killed without a chance to stop them (kill -9, power
+ * loss of the coordinator only). Call it holding the records lock, before
+ * dispatching. Linux only (reads /proc); elsewhere it does nothing.
+ * Returns the number of processes killed. */
+int bk_dispatch_reap(const char *work_dir);
+
+#endif

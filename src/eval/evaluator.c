@@ -1,0 +1,28 @@
+/*
+ * The in-process evaluator (see evaluator.h).
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include "eval/evaluator.h"
+
+#include <math.h>
+
+#include "base/fault.h"
+
+static int inprocess_batch(bk_evaluator_t *ev, const char *prefix,
+                           bk_point_t *pts, size_t n, bk_error_t *err) {
+  (void)prefix;
+  (void)err;
+  const bk_study_t *s = ev->data;
+  for (size_t i = 0; i < n; i++) {
+    double g = bk_expr_eval(s->g, pts[i].x);
+    pts[i].g = g;
+    pts[i].fault = isnan(g) ? BK_FAULT_NOT_A_NUMBER : BK_FAULT_NONE;
+  }
+  return 0;
+}
+
+void bk_evaluator_inprocess(bk_evaluator_t *ev, const bk_study_t *s) {
+  ev->batch = inprocess_batch;
+  ev->data = (void *)s;
+}

@@ -1,0 +1,46 @@
+/*
+ * The evaluator interface, the seam between methods and everything that
+ * runs a model. A method names each evaluation by a key (PREFIX/index),
+ * fills the physical inputs of a batch of points and hands the batch to an
+ * evaluator; the evaluator fills the outputs, g and the fault of each
+ * point. Implementations: in process (below, studies without a model
+ * section), the local dispatcher (dispatch.h), the MPI coordinator
+ * (mpi.h), a shard filter and a records server (shard.h). Evaluators know
+ * nothing of statistics.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#ifndef BK_EVALUATOR_H
+#define BK_EVALUATOR_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#include "base/error.h"
+#include "study/study.h"
+
+/* One evaluation of a batch. The method fills index and x; the evaluator
+ * fills y, g and fault. */
+typedef struct {
+  uint64_t index; /* the key is PREFIX/index */
+  double *x;      /* nvars physical inputs */
+  double *y;      /* noutputs extracted outputs (may be NULL if none) */
+  double g;       /* limit-state value; NaN on a fault */
+  int fault;      /* bk_fault_t */
+} bk_point_t;
+
+typedef struct bk_evaluator bk_evaluator_t;
+struct bk_evaluator {
+  /* Evaluates the n points of one batch, keys prefix/index. Returns 0,
+   * BK_ESTOPPED when a stop was requested (the batch is incomplete and
+   * must not be used), or another negative code with err set. */
+  int (*batch)(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
+               size_t n, bk_error_t *err);
+  void *data;
+};
+
+/* An evaluator computing the limit state in process, on the variables
+ * alone (studies without a model section). */
+void bk_evaluator_inprocess(bk_evaluator_t *ev, const bk_study_t *s);
+
+#endif

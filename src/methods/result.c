@@ -1,0 +1,89 @@
+/*
+ * Results of a method (see result.h).
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include "methods/result.h"
+
+#include <math.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <string.h>
+
+#include "base/alloc.h"
+#include "base/buf.h"
+#include "base/error.h"
+
+void bk_result_close(bk_result_t *r) {
+  bk_free(r->replicate_pf);
+  bk_free(r->history);
+  bk_free(r->dp.u);
+  bk_free(r->dp.x);
+  bk_free(r->dp.alpha2);
+  for (size_t i = 0; i < r->nwarnings; i++)
+    bk_free(r->warnings[i]);
+  bk_free(r->warnings);
+  bk_free(r->details);
+  memset(r, 0, sizeof *r);
+}
+
+int bk_result_warn(bk_result_t *r, const char *fmt, ...) {
+  char **w = bk_realloc(r->warnings, (r->nwarnings + 1) * sizeof *w);
+  if (!w)
+    return BK_ENOMEM;
+  r->warnings = w;
+  bk_buf_t b;
+  bk_buf_init(&b);
+  va_list ap;
+  va_start(ap, fmt);
+  int rc = bk_buf_vprintf(&b, fmt, ap);
+  va_end(ap);
+  if (rc || !b.data) {
+    bk_buf_close(&b);
+    return BK_ENOMEM;
+  }
+  r->warnings[r->nwarnings++] = b.data;
+  return 0;
+}
+
+int bk_result_detail(bk_result_t *r, const char *label, double value) {
+  bk_detail_t *d = bk_realloc(r->details, (r->ndetails + 1) * sizeof *d);
+  if (!d)
+    return BK_ENOMEM;
+  r->details = d;
+  snprintf(d[r->ndetails].label, sizeof d[r->ndetails].label, "%s", label);
+  d[r->ndetails].value = value;
+  r->ndetails++;
+  return 0;
+}
+
+int bk_result_design_point(bk_result_t *r, size_t nu, size_t nvars) {
+  bk_free(r->dp.u);
+  bk_free(r->dp.x);
+  bk_free(r->dp.alpha2);
+  r->dp.u = bk_calloc(nu ? nu : 1, sizeof(double));
+  r->dp.x = bk_calloc(nvars ? nvars : 1, sizeof(double));
+  r->dp.alpha2 = bk_calloc(nvars ? nvars : 1, sizeof(double));
+  if (!r->dp.u || !r->dp.x || !r->dp.alpha2)
+    return BK_ENOMEM;
+  r->dp.present = 1;
+  r->dp.pf_sorm = NAN;
+  return 0;
+}
+
+int bk_result_push_history(bk_result_t *r) {
+  if (r->nhistory == r->caphistory) {
+    size_t cap = r->caphistory ? 2 * r->caphistory : 64;
+    bk_history_t *h = bk_realloc(r->history, cap * sizeof *h);
+    if (!h)
+      return BK_ENOMEM;
+    r->history = h;
+    r->caphistory = cap;
+  }
+  bk_history_t *h = &r->history[r->nhistory++];
+  h->n = r->evaluations;
+  h->pf = r->est.pf;
+  h->ci[0] = r->est.ci[0];
+  h->ci[1] = r->est.ci[1];
+  return 0;
+}

@@ -1,0 +1,80 @@
+/*
+ * What a method reports back: the estimate, counts, the convergence
+ * history, a design point, details and warnings. Filled by the methods,
+ * read by reports and commands.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#ifndef BK_RESULT_H
+#define BK_RESULT_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#include "numerics/estimate.h"
+
+/* Convergence history: the estimate after each decision point. */
+typedef struct {
+  uint64_t n;
+  double pf;
+  double ci[2];
+} bk_history_t;
+
+/* A design point found by FORM (form, and importance without a given
+ * center). Arrays are owned by the result. */
+typedef struct {
+  int present;
+  int converged;
+  int iterations;
+  double beta;    /* FORM reliability index, distance to the origin in u */
+  double pf_form; /* Phi(-beta) */
+  double pf_sorm; /* Breitung SORM; NaN when not computed */
+  double *u;      /* nu coordinates */
+  double *x;      /* nvars physical values */
+  double *alpha2; /* nvars importance factors (0 for constants), sum 1 */
+} bk_design_point_t;
+
+/* A labelled number a method wants reported (levels of subset simulation,
+ * effective sample size, ...). */
+typedef struct {
+  char label[64];
+  double value;
+} bk_detail_t;
+
+/* What a method reports back. Owned by the caller; bk_result_close frees
+ * the arrays. */
+typedef struct {
+  const char *method;
+  bk_estimate_t est;
+  uint64_t evaluations; /* model calls, all of them */
+  uint64_t model_errors;
+  uint64_t excluded;   /* runs left out of the estimate (on_error: skip) */
+  double pf_bounds[2]; /* excluded runs taken as safe / as failed */
+  uint32_t replicates; /* lhs, sobol: replicates completed */
+  uint64_t per_replicate;
+  double *replicate_pf;
+  const char *stop_reason; /* "target_cov reached", "samples done", ... */
+  bk_history_t *history;
+  size_t nhistory;
+  size_t caphistory;
+  double seconds;
+  bk_design_point_t dp;
+  char **warnings; /* evidence against the method's result */
+  size_t nwarnings;
+  bk_detail_t *details;
+  size_t ndetails;
+} bk_result_t;
+
+void bk_result_close(bk_result_t *r);
+
+/* Appends a history entry; returns 0 or BK_ENOMEM. */
+int bk_result_push_history(bk_result_t *r);
+/* Adds a warning (printed in reports); returns 0 or BK_ENOMEM. */
+int bk_result_warn(bk_result_t *r, const char *fmt, ...)
+    __attribute__((format(printf, 2, 3)));
+/* Adds a labelled number to the report; returns 0 or BK_ENOMEM. */
+int bk_result_detail(bk_result_t *r, const char *label, double value);
+/* Allocates dp's arrays for nu and nvars; returns 0 or BK_ENOMEM. */
+int bk_result_design_point(bk_result_t *r, size_t nu, size_t nvars);
+
+#endif

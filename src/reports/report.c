@@ -1,0 +1,316 @@
+/*
+ * Text and JSON reports (see report.h).
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include "reports/report.h"
+
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "numerics/dist.h"
+
+const char bk_report_caution[] =
+    "These figures hold only for the probabilistic model and the limit state\n"
+    "given in the study, and only as far as the analysis model is valid. They\n"
+    "do not replace the checks required by the applicable design codes; the\n"
+    "governing code, the consequence class and a licensed engineer decide\n"
+    "whether a reliability level is acceptable.\n";
+
+int bk_json_string(bk_buf_t *out, const char *s) {
+  bk_buf_putc(out, '"');
+  for (const unsigned char *p = (const unsigned char *)s; *p; p++) {
+    switch (*p) {
+    case '"':
+      bk_buf_puts(out, "\\\"");
+      break;
+    case '\\':
+      bk_buf_puts(out, "\\\\");
+      break;
+    case '\n':
+      bk_buf_puts(out, "\\n");
+      break;
+    case '\t':
+      bk_buf_puts(out, "\\t");
+      break;
+    case '\r':
+      bk_buf_puts(out, "\\r");
+      break;
+    default:
+      if (*p < 0x20)
+        bk_buf_printf(out, "\\u%04x", *p);
+      else
+        bk_buf_putc(out, (char)*p);
+    }
+  }
+  return bk_buf_putc(out, '"');
+}
+
+int bk_json_number(bk_buf_t *out, double v) {
+  if (!isfinite(v))
+    return bk_buf_puts(out, "null");
+  return bk_buf_printf(out, "%.17g", v);
+}
+
+static void key(bk_buf_t *o, const char *k, int *first) {
+  bk_buf_puts(o, *first ? "\n  " : ",\n  ");
+  *first = 0;
+  bk_json_string(o, k);
+  bk_buf_puts(o, ": ");
+}
+
+static void pair(bk_buf_t *o, const double v[2]) {
+  bk_buf_putc(o, '[');
+  bk_json_number(o, v[0]);
+  bk_buf_puts(o, ", ");
+  bk_json_number(o, v[1]);
+  bk_buf_putc(o, ']');
+}
+
+int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
+  int first = 1;
+  const bk_estimate_t *e = &r->est;
+  bk_buf_putc(o, '{');
+  key(o, "name", &first);
+  bk_json_string(o, s->name);
+  key(o, "study", &first);
+  char *abs = realpath(s->path, NULL);
+  bk_json_string(o, abs ? abs : s->path);
+  free(abs);
+  key(o, "tool", &first);
+  bk_json_string(o, "brink " BK_VERSION);
+  key(o, "method", &first);
+  bk_json_string(o, r->method);
+  key(o, "seed", &first);
+  bk_buf_printf(o, "%llu", (unsigned long long)s->seed);
+  key(o, "pf", &first);
+  bk_json_number(o, e->pf);
+  key(o, "beta", &first);
+  bk_json_number(o, e->beta);
+  key(o, "cov", &first);
+  bk_json_number(o, e->cov);
+  key(o, "ci", &first);
+  pair(o, e->ci);
+  key(o, "ci_level", &first);
+  bk_json_number(o, e->ci_level);
+  key(o, "ci_method", &first);
+  bk_json_string(o, e->ci_method ? e->ci_method : "none");
+  key(o, "ci_exact", &first);
+  pair(o, e->ci_exact);
+  key(o, "beta_ci", &first);
+  pair(o, e->beta_ci);
+  key(o, "evaluations", &first);
+  bk_buf_printf(o, "%llu", (unsigned long long)r->evaluations);
+  key(o, "failures", &first);
+  bk_buf_printf(o, "%llu", (unsigned long long)e->failures);
+  key(o, "model_errors", &first);
+  bk_buf_printf(o, "%llu", (unsigned long long)r->model_errors);
+  key(o, "excluded", &first);
+  bk_buf_printf(o, "%llu", (unsigned long long)r->excluded);
+  key(o, "pf_bounds", &first);
+  pair(o, r->pf_bounds);
+  if (r->replicates) {
+    key(o, "replicates", &first);
+    bk_buf_printf(o, "%u", r->replicates);
+    key(o, "per_replicate", &first);
+    bk_buf_printf(o, "%llu", (unsigned long long)r->per_replicate);
+    key(o, "replicate_pf", &first);
+    bk_buf_putc(o, '[');
+    for (uint32_t i = 0; i < r->replicates; i++) {
+      if (i)
+        bk_buf_puts(o, ", ");
+      bk_json_number(o, r->replicate_pf[i]);
+    }
+    bk_buf_putc(o, ']');
+  }
+  if (s->analysis.target_cov > 0) {
+    key(o, "target_cov", &first);
+    bk_json_number(o, s->analysis.target_cov);
+  }
+  if (s->analysis.has_target_beta) {
+    key(o, "target_beta", &first);
+    bk_json_number(o, s->analysis.target_beta);
+    key(o, "meets_target_beta", &first);
+    bk_buf_puts(o, e->beta >= s->analysis.target_beta ? "true" : "false");
+  }
+  if (r->dp.present) {
+    key(o, "design_point", &first);
+    bk_buf_printf(o, "{\"converged\": %s, \"iterations\": %d, \"beta\": ",
+                  r->dp.converged ? "true" : "false", r->dp.iterations);
+    bk_json_number(o, r->dp.beta);
+    bk_buf_puts(o, ", \"pf_form\": ");
+    bk_json_number(o, r->dp.pf_form);
+    bk_buf_puts(o, ", \"pf_sorm\": ");
+    bk_json_number(o, r->dp.pf_sorm);
+    bk_buf_puts(o, ", \"x\": {");
+    for (size_t i = 0; i < s->nvars; i++) {
+      bk_buf_puts(o, i ? ", " : "");
+      bk_json_string(o, s->vars[i].name);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->dp.x[i]);
+    }
+    /* u of the random variables (constants take no u coordinate). */
+    bk_buf_puts(o, "}, \"u\": {");
+    for (size_t i = 0, k = 0; i < s->nvars; i++) {
+      if (s->vars[i].dist.kind == BK_DIST_CONSTANT)
+        continue;
+      bk_buf_puts(o, k ? ", " : "");
+      bk_json_string(o, s->vars[i].name);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->dp.u[k++]);
+    }
+    bk_buf_puts(o, "}, \"alpha2\": {");
+    for (size_t i = 0; i < s->nvars; i++) {
+      bk_buf_puts(o, i ? ", " : "");
+      bk_json_string(o, s->vars[i].name);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->dp.alpha2[i]);
+    }
+    bk_buf_puts(o, "}}");
+  }
+  if (r->ndetails) {
+    key(o, "details", &first);
+    bk_buf_putc(o, '{');
+    for (size_t i = 0; i < r->ndetails; i++) {
+      bk_buf_puts(o, i ? ", " : "");
+      bk_json_string(o, r->details[i].label);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, r->details[i].value);
+    }
+    bk_buf_putc(o, '}');
+  }
+  key(o, "warnings", &first);
+  bk_buf_putc(o, '[');
+  for (size_t i = 0; i < r->nwarnings; i++) {
+    bk_buf_puts(o, i ? ", " : "");
+    bk_json_string(o, r->warnings[i]);
+  }
+  bk_buf_putc(o, ']');
+  key(o, "stop_reason", &first);
+  bk_json_string(o, r->stop_reason ? r->stop_reason : "");
+  key(o, "seconds", &first);
+  bk_json_number(o, r->seconds);
+  key(o, "fingerprint", &first);
+  bk_buf_printf(o, "\"%s-%s\"", s->digest_study, s->digest_model);
+  key(o, "history", &first);
+  bk_buf_putc(o, '[');
+  for (size_t i = 0; i < r->nhistory; i++) {
+    const bk_history_t *h = &r->history[i];
+    bk_buf_printf(o, "%s[%llu, ", i ? ", " : "", (unsigned long long)h->n);
+    bk_json_number(o, h->pf);
+    bk_buf_puts(o, ", ");
+    bk_json_number(o, h->ci[0]);
+    bk_buf_puts(o, ", ");
+    bk_json_number(o, h->ci[1]);
+    bk_buf_putc(o, ']');
+  }
+  bk_buf_puts(o, "]");
+  key(o, "caution", &first);
+  bk_json_string(o, bk_report_caution);
+  return bk_buf_puts(o, "\n}\n");
+}
+
+static void num(bk_buf_t *o, double v) {
+  if (isnan(v))
+    bk_buf_puts(o, "n/a");
+  else if (isinf(v))
+    bk_buf_puts(o, v > 0 ? "inf" : "-inf");
+  else
+    bk_buf_printf(o, "%.3e", v);
+}
+
+static void fixed(bk_buf_t *o, double v) {
+  if (isnan(v))
+    bk_buf_puts(o, "n/a");
+  else if (isinf(v))
+    bk_buf_puts(o, v > 0 ? "inf" : "-inf");
+  else
+    bk_buf_printf(o, "%.3f", v);
+}
+
+int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
+  const bk_estimate_t *e = &r->est;
+  bk_buf_printf(o, "Study %s, method %s, seed %llu\n", s->name, r->method,
+                (unsigned long long)s->seed);
+  if (r->replicates)
+    bk_buf_printf(o, "  design               %u replicates of %llu points\n",
+                  r->replicates, (unsigned long long)r->per_replicate);
+  bk_buf_printf(o, "  evaluations          %llu\n",
+                (unsigned long long)r->evaluations);
+  bk_buf_printf(o, "  failures (g <= 0)    %llu\n",
+                (unsigned long long)e->failures);
+  if (r->model_errors)
+    bk_buf_printf(o, "  model errors         %llu (%llu left out)\n",
+                  (unsigned long long)r->model_errors,
+                  (unsigned long long)r->excluded);
+  bk_buf_puts(o, "\n  failure probability  ");
+  num(o, e->pf);
+  bk_buf_puts(o, "\n  coefficient of var.  ");
+  if (isfinite(e->cov))
+    bk_buf_printf(o, "%.3f", e->cov);
+  else if (e->ci_method && strncmp(e->ci_method, "none", 4) == 0)
+    bk_buf_puts(o, "n/a (not a sampling estimate)");
+  else
+    bk_buf_puts(o, "n/a (no failure seen)");
+  bk_buf_printf(o, "\n  %g%% interval         ", 100 * e->ci_level);
+  num(o, e->ci[0]);
+  bk_buf_puts(o, " to ");
+  num(o, e->ci[1]);
+  bk_buf_printf(o, "  (%s)\n", e->ci_method ? e->ci_method : "");
+  bk_buf_puts(o, "  reliability index    ");
+  fixed(o, e->beta);
+  bk_buf_puts(o, "  (");
+  fixed(o, e->beta_ci[0]);
+  bk_buf_puts(o, " to ");
+  fixed(o, e->beta_ci[1]);
+  bk_buf_puts(o, ")\n");
+  if (r->excluded) {
+    bk_buf_puts(o, "  Pf if left-out runs  ");
+    num(o, r->pf_bounds[0]);
+    bk_buf_puts(o, " (all safe) to ");
+    num(o, r->pf_bounds[1]);
+    bk_buf_puts(o, " (all failed)\n");
+  }
+  if (s->analysis.has_target_beta) {
+    double tb = s->analysis.target_beta;
+    const char *verdict = e->beta_ci[0] >= tb ? "met"
+                          : e->beta < tb      ? "not met"
+                                              : "met by the estimate, "
+                                                "not by its interval";
+    bk_buf_printf(o, "  target beta          %.2f: %s\n", tb, verdict);
+  }
+  if (r->dp.present) {
+    bk_buf_printf(o, "\n  design point (FORM, %s after %d iterations)\n",
+                  r->dp.converged ? "converged" : "NOT converged",
+                  r->dp.iterations);
+    bk_buf_puts(o, "    beta FORM          ");
+    fixed(o, r->dp.beta);
+    bk_buf_puts(o, "   Pf FORM ");
+    num(o, r->dp.pf_form);
+    if (!isnan(r->dp.pf_sorm)) {
+      bk_buf_puts(o, "   Pf SORM (Breitung) ");
+      num(o, r->dp.pf_sorm);
+    }
+    bk_buf_printf(o, "\n    %-16s %14s %10s %10s\n", "variable", "value", "u",
+                  "alpha^2");
+    for (size_t i = 0, k = 0; i < s->nvars; i++) {
+      bk_buf_printf(o, "    %-16s %14.6g ", s->vars[i].name, r->dp.x[i]);
+      if (s->vars[i].dist.kind == BK_DIST_CONSTANT)
+        bk_buf_printf(o, "%10s", "-");
+      else
+        bk_buf_printf(o, "%10.4f", r->dp.u[k++]);
+      bk_buf_printf(o, " %10.4f\n", r->dp.alpha2[i]);
+    }
+  }
+  for (size_t i = 0; i < r->ndetails; i++)
+    bk_buf_printf(o, "  %-20s %.6g\n", r->details[i].label,
+                  r->details[i].value);
+  for (size_t i = 0; i < r->nwarnings; i++)
+    bk_buf_printf(o, "  WARNING: %s\n", r->warnings[i]);
+  bk_buf_printf(o, "  stopped because      %s", r->stop_reason);
+  if (s->analysis.target_cov > 0 && !(e->cov <= s->analysis.target_cov))
+    bk_buf_printf(o, " (target_cov %g not reached)", s->analysis.target_cov);
+  bk_buf_puts(o, "\n\n");
+  return bk_buf_puts(o, bk_report_caution);
+}

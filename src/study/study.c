@@ -1,0 +1,1529 @@
+/*
+ * Study files: YAML (libyaml's document loader) to a validated, immutable
+ * bk_study_t. Every check that can be made before a run is made here, and
+ * every error names file:line:col and what was expected, so that `brink run`
+ * never starts a long study that would stop on a typo.
+ *
+ * Numbers are read as C floating-point literals (strtod, whole scalar), not
+ * with YAML 1.1's own typing, so 7e10 and 7.0E+10 both work. Relative paths
+ * are relative to the study file's folder.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include "study/study.h"
+
+#include <ctype.h>
+#include <errno.h>
+#include <math.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <unistd.h>
+#include <yaml.h>
+
+#include "base/alloc.h"
+#include "base/buf.h"
+
+typedef struct {
+  const char *path;
+  const char *text;
+  size_t len;
+  yaml_document_t doc;
+  bk_error_t *err;
+  bk_study_t *s;
+} loader_t;
+
+static const char *const method_names[BK_METHOD__COUNT] = {
+    "random", "lhs", "sobol", "form", "importance", "cross-entropy", "subset",
+};
+
+const char *bk_method_name(bk_method_kind_t m) {
+  return m < BK_METHOD__COUNT ? method_names[m] : "unknown";
+}
+
+/* ---- digest --------------------------------------------------------- */
+
+static uint64_t mix64(uint64_t z) {
+  z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ULL;
+  z = (z ^ (z >> 27)) * 0x94d049bb133111ebULL;
+  return z ^ (z >> 31);
+}
+
+/* Two independent FNV-1a style lanes with a final avalanche; a change
+ * detector for fingerprints, not a cryptographic hash. */
+void bk_digest_hex(const void *data, size_t len, char hex[33]) {
+  const unsigned char *p = data;
+  uint64_t a = 0xcbf29ce484222325ULL, b = 0x84222325cbf29ce4ULL ^ len;
+  for (size_t i = 0; i < len; i++) {
+    a = (a ^ p[i]) * 0x100000001b3ULL;
+    b = (b ^ p[i]) * 0x00000100000001b3ULL + 0x9e3779b97f4a7c15ULL;
+    b ^= b >> 29;
+  }
+  a = mix64(a ^ len);
+  b = mix64(b ^ a);
+  snprintf(hex, 33, "%016llx%016llx", (unsigned long long)a,
+           (unsigned long long)b);
+}
+
+/* ---- errors at nodes ------------------------------------------------ */
+
+static int fail_at(loader_t *L, const yaml_mark_t *m, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+static int fail_at(loader_t *L, const yaml_mark_t *m, const char *fmt, ...) {
+  va_list ap;
+  va_start(ap, fmt);
+  bk_error_vset(L->err, BK_ESTUDY, L->path, m ? (int)m->line + 1 : 0,
+                m ? (int)m->column + 1 : 0, fmt, ap);
+  va_end(ap);
+  return BK_ESTUDY;
+}
+
+#define FAIL(L, node, ...) fail_at((L), &(node)->start_mark, __VA_ARGS__)
+
+static yaml_node_t *node_at(loader_t *L, int id) {
+  return yaml_document_get_node(&L->doc, id);
+}
+
+static const char *kind_word(const yaml_node_t *n) {
+  switch (n->type) {
+  case YAML_SCALAR_NODE:
+    return "a single value";
+  case YAML_SEQUENCE_NODE:
+    return "a list";
+  case YAML_MAPPING_NODE:
+    return "a mapping";
+  default:
+    return "nothing";
+  }
+}
+
+static const char *scalar(const yaml_node_t *n) {
+  return (const char *)n->data.scalar.value;
+}
+
+static int is_null_scalar(const yaml_node_t *n) {
+  if (n->type != YAML_SCALAR_NODE ||
+      n->data.scalar.style != YAML_PLAIN_SCALAR_STYLE)
+    return 0;
+  const char *v = scalar(n);
+  return v[0] == '\0' || strcmp(v, "~") == 0 || strcmp(v, "null") == 0;
+}
+
+static int want_text(loader_t *L, yaml_node_t *n, const char *what,
+                     const char **out) {
+  if (n->type != YAML_SCALAR_NODE || is_null_scalar(n))
+    return FAIL(L, n, "%s must be a text, got %s", what,
+                is_null_scalar(n) ? "nothing" : kind_word(n));
+  *out = scalar(n);
+  return 0;
+}
+
+static int want_number(loader_t *L, yaml_node_t *n, const char *what,
+                       double *out) {
+  if (n->type != YAML_SCALAR_NODE || is_null_scalar(n))
+    return FAIL(L, n, "%s must be a number, got %s", what,
+                is_null_scalar(n) ? "nothing" : kind_word(n));
+  const char *v = scalar(n);
+  char *end;
+  errno = 0;
+  double d = strtod(v, &end);
+  while (*end == ' ')
+    end++;
+  if (end == v || *end != '\0' || !isfinite(d) ||
+      (v[0] && (v[1] == 'x' || v[1] == 'X' ||
+                (v[0] != '-' && v[0] != '+' && v[0] != '.' &&
+                 !isdigit((unsigned char)v[0])))))
+    return FAIL(L, n, "%s must be a number, got '%s'", what, v);
+  *out = d;
+  return 0;
+}
+
+static int want_count(loader_t *L, yaml_node_t *n, const char *what,
+                      uint64_t min, uint64_t *out) {
+  double d;
+  int rc = want_number(L, n, what, &d);
+  if (rc)
+    return rc;
+  if (d != floor(d) || d < (double)min || d > 9.007199254740992e15)
+    return FAIL(L, n, "%s must be a whole number >= %llu, got '%s'", what,
+                (unsigned long long)min, scalar(n));
+  *out = (uint64_t)d;
+  return 0;
+}
+
+static int is_identifier(const char *s) {
+  if (!(isalpha((unsigned char)s[0]) || s[0] == '_'))
+    return 0;
+  for (const char *p = s + 1; *p; p++)
+    if (!(isalnum((unsigned char)*p) || *p == '_'))
+      return 0;
+  return 1;
+}
+
+/* Checks that every key of mapping `m` is a text, unique and in `allowed`
+ * (NULL-terminated). */
+static int check_keys(loader_t *L, yaml_node_t *m, const char *where,
+                      const char *const *allowed) {
+  for (yaml_node_pair_t *p = m->data.mapping.pairs.start;
+       p < m->data.mapping.pairs.top; p++) {
+    yaml_node_t *k = node_at(L, p->key);
+    if (k->type != YAML_SCALAR_NODE)
+      return FAIL(L, k, "keys in %s must be names, got %s", where,
+                  kind_word(k));
+    for (yaml_node_pair_t *q = m->data.mapping.pairs.start; q < p; q++) {
+      yaml_node_t *k0 = node_at(L, q->key);
+      if (k0->type == YAML_SCALAR_NODE && strcmp(scalar(k0), scalar(k)) == 0)
+        return FAIL(L, k, "duplicate key '%s' in %s (first given on line %d)",
+                    scalar(k), where, (int)k0->start_mark.line + 1);
+    }
+    if (!allowed)
+      continue;
+    int ok = 0;
+    for (const char *const *a = allowed; *a; a++)
+      if (strcmp(*a, scalar(k)) == 0)
+        ok = 1;
+    if (!ok) {
+      char list[512] = "";
+      for (const char *const *a = allowed; *a; a++) {
+        strncat(list, *a, sizeof list - strlen(list) - 1);
+        if (a[1])
+          strncat(list, ", ", sizeof list - strlen(list) - 1);
+      }
+      return FAIL(L, k, "unknown key '%s' in %s; expected one of: %s",
+                  scalar(k), where, list);
+    }
+  }
+  return 0;
+}
+
+static yaml_node_t *lookup(loader_t *L, yaml_node_t *m, const char *key) {
+  for (yaml_node_pair_t *p = m->data.mapping.pairs.start;
+       p < m->data.mapping.pairs.top; p++) {
+    yaml_node_t *k = node_at(L, p->key);
+    if (k->type == YAML_SCALAR_NODE && strcmp(scalar(k), key) == 0)
+      return node_at(L, p->value);
+  }
+  return NULL;
+}
+
+static int want_mapping(loader_t *L, yaml_node_t *n, const char *what) {
+  if (n->type != YAML_MAPPING_NODE)
+    return FAIL(L, n, "%s must be a mapping (name: value lines), got %s", what,
+                is_null_scalar(n) ? "nothing" : kind_word(n));
+  return 0;
+}
+
+static int want_sequence(loader_t *L, yaml_node_t *n, const char *what) {
+  if (n->type != YAML_SEQUENCE_NODE)
+    return FAIL(L, n, "%s must be a list, got %s", what,
+                is_null_scalar(n) ? "nothing" : kind_word(n));
+  return 0;
+}
+
+/* Location of byte `off` inside scalar `n`'s value, when the value appears
+ * verbatim in the file (plain or quoted without escapes on one line);
+ * otherwise the scalar's start. */
+static void scalar_offset_mark(loader_t *L, yaml_node_t *n, size_t off,
+                               yaml_mark_t *out) {
+  *out = n->start_mark;
+  size_t start = n->start_mark.index;
+  yaml_scalar_style_t st = n->data.scalar.style;
+  if (st == YAML_SINGLE_QUOTED_SCALAR_STYLE ||
+      st == YAML_DOUBLE_QUOTED_SCALAR_STYLE)
+    start++;
+  else if (st != YAML_PLAIN_SCALAR_STYLE)
+    return;
+  size_t vlen = n->data.scalar.length;
+  if (off > vlen || start + off > L->len ||
+      memcmp(L->text + start, n->data.scalar.value, off) != 0)
+    return;
+  size_t line = n->start_mark.line, col = n->start_mark.column;
+  for (size_t i = n->start_mark.index; i < start + off; i++) {
+    if (L->text[i] == '\n') {
+      line++;
+      col = 0;
+    } else {
+      col++;
+    }
+  }
+  out->line = line;
+  out->column = col;
+}
+
+/* Removes "." components and "name/.." pairs, lexically (as a user reads
+ * the path; symbolic links are not consulted). Works in place: the output
+ * never runs ahead of the input, because each component is written with
+ * the separator before it. */
+static void normalize_path(char *path) {
+  int absolute = path[0] == '/';
+  char *start = path + absolute;
+  char *out = start;
+  const char *in = start;
+  while (*in) {
+    const char *end = strchr(in, '/');
+    size_t len = end ? (size_t)(end - in) : strlen(in);
+    int dot = len == 1 && in[0] == '.';
+    int dotdot = len == 2 && in[0] == '.' && in[1] == '.';
+    if (len == 0 || dot) {
+      /* nothing to write */
+    } else if (dotdot && out > start) {
+      char *last = out;
+      while (last > start && last[-1] != '/')
+        last--;
+      if (strncmp(last, "..", 2) == 0 && out - last == 2) {
+        *out++ = '/';
+        memmove(out, "..", 2);
+        out += 2;
+      } else {
+        out = last > start ? last - 1 : start;
+      }
+    } else if (dotdot && absolute) {
+      /* "/.." is "/" */
+    } else {
+      if (out > start)
+        *out++ = '/';
+      memmove(out, in, len);
+      out += len;
+    }
+    in += len;
+    if (*in == '/')
+      in++;
+  }
+  *out = '\0';
+  if (path[0] == '\0')
+    strcpy(path, ".");
+}
+
+static char *resolve_path(const char *dir, const char *p) {
+  bk_buf_t b;
+  bk_buf_init(&b);
+  if (p[0] == '/' || strcmp(dir, ".") == 0)
+    bk_buf_puts(&b, p);
+  else
+    bk_buf_printf(&b, "%s/%s", dir, p);
+  if (b.data)
+    normalize_path(b.data);
+  return b.data;
+}
+
+static int read_file(const char *path, char **text, size_t *len) {
+  FILE *f = fopen(path, "rb");
+  if (!f)
+    return -errno;
+  bk_buf_t b;
+  bk_buf_init(&b);
+  char chunk[65536];
+  size_t n;
+  int rc = 0;
+  while ((n = fread(chunk, 1, sizeof chunk, f)) > 0)
+    if (bk_buf_append(&b, chunk, n)) {
+      rc = BK_ENOMEM;
+      break;
+    }
+  if (ferror(f))
+    rc = BK_EIO;
+  fclose(f);
+  if (rc == 0 && !b.data)
+    rc = bk_buf_reserve(&b, 0);
+  if (rc) {
+    bk_buf_close(&b);
+    return rc;
+  }
+  *text = b.data;
+  *len = b.len;
+  return 0;
+}
+
+/* ---- variables ------------------------------------------------------ */
+
+static int load_variable(loader_t *L, yaml_node_t *k, yaml_node_t *v,
+                         bk_var_t *var) {
+  const char *name = scalar(k);
+  if (!is_identifier(name) || name[0] == '_')
+    return FAIL(L, k,
+                "variable name '%s' must start with a letter and contain "
+                "only letters, digits and '_'",
+                name);
+  var->name = bk_strdup(name);
+  var->line = (int)k->start_mark.line + 1;
+  bk_dist_spec_t spec;
+  memset(&spec, 0, sizeof spec);
+  if (v->type == YAML_SCALAR_NODE && !is_null_scalar(v)) {
+    /* Shorthand: a plain number is a constant. */
+    double d;
+    int rc = want_number(L, v, "a variable given as a single value", &d);
+    if (rc)
+      return rc;
+    spec.has = 1u << BK_PARAM_VALUE;
+    spec.v[BK_PARAM_VALUE] = d;
+    char why[256];
+    int bad;
+    if (bk_dist_init(&var->dist, BK_DIST_CONSTANT, &spec, why, sizeof why,
+                     &bad))
+      return FAIL(L, v, "variable '%s': %s", name, why);
+    return 0;
+  }
+  char where[160];
+  snprintf(where, sizeof where, "variable '%s'", name);
+  int rc = want_mapping(L, v, where);
+  if (rc)
+    return rc;
+  rc = check_keys(L, v, where, NULL);
+  if (rc)
+    return rc;
+  yaml_node_t *tn = lookup(L, v, "type");
+  char types[400] = "";
+  for (int i = 0; i < BK_DIST__COUNT; i++) {
+    strncat(types, bk_dist_name((bk_dist_kind_t)i),
+            sizeof types - strlen(types) - 1);
+    if (i + 1 < BK_DIST__COUNT)
+      strncat(types, ", ", sizeof types - strlen(types) - 1);
+  }
+  if (!tn)
+    return FAIL(L, v, "variable '%s' needs a type: one of %s", name, types);
+  const char *tname;
+  if ((rc = want_text(L, tn, "type", &tname)))
+    return rc;
+  int kind = bk_dist_kind_from_name(tname);
+  if (kind < 0)
+    return FAIL(L, tn, "unknown distribution type '%s'; expected one of %s",
+                tname, types);
+  yaml_node_t *pnode[BK_PARAM__COUNT] = {0};
+  for (yaml_node_pair_t *p = v->data.mapping.pairs.start;
+       p < v->data.mapping.pairs.top; p++) {
+    yaml_node_t *pk = node_at(L, p->key), *pv = node_at(L, p->value);
+    if (strcmp(scalar(pk), "type") == 0)
+      continue;
+    int param = bk_param_from_name(scalar(pk));
+    if (param < 0) {
+      char list[400] = "type";
+      for (int i = 0; i < BK_PARAM__COUNT; i++) {
+        strncat(list, ", ", sizeof list - strlen(list) - 1);
+        strncat(list, bk_param_name((bk_param_t)i),
+                sizeof list - strlen(list) - 1);
+      }
+      return FAIL(L, pk,
+                  "unknown key '%s' in variable '%s'; expected one of: %s",
+                  scalar(pk), name, list);
+    }
+    char what[160];
+    snprintf(what, sizeof what, "%s of variable '%s'", scalar(pk), name);
+    if ((rc = want_number(L, pv, what, &spec.v[param])))
+      return rc;
+    spec.has |= 1u << param;
+    pnode[param] = pv;
+  }
+  char why[256] = "";
+  int bad = -1;
+  if (bk_dist_init(&var->dist, (bk_dist_kind_t)kind, &spec, why, sizeof why,
+                   &bad)) {
+    yaml_node_t *at =
+        (bad >= 0 && bad < BK_PARAM__COUNT && pnode[bad]) ? pnode[bad] : v;
+    if (bad >= 0 && bad < BK_PARAM__COUNT && pnode[bad]) {
+      /* Point at the key, which reads better than the value. */
+      for (yaml_node_pair_t *p = v->data.mapping.pairs.start;
+           p < v->data.mapping.pairs.top; p++)
+        if (node_at(L, p->value) == pnode[bad])
+          at = node_at(L, p->key);
+    }
+    return FAIL(L, at, "variable '%s' (%s): %s", name, tname, why);
+  }
+  return 0;
+}
+
+static int load_variables(loader_t *L, yaml_node_t *vn) {
+  bk_study_t *s = L->s;
+  int rc = want_mapping(L, vn, "variables");
+  if (rc)
+    return rc;
+  if ((rc = check_keys(L, vn, "variables", NULL)))
+    return rc;
+  size_t n =
+      (size_t)(vn->data.mapping.pairs.top - vn->data.mapping.pairs.start);
+  if (n == 0)
+    return FAIL(L, vn, "variables must name at least one variable");
+  s->vars = bk_calloc(n, sizeof *s->vars);
+  s->var_names = bk_calloc(n, sizeof *s->var_names);
+  if (!s->vars || !s->var_names)
+    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+  for (yaml_node_pair_t *p = vn->data.mapping.pairs.start;
+       p < vn->data.mapping.pairs.top; p++) {
+    rc = load_variable(L, node_at(L, p->key), node_at(L, p->value),
+                       &s->vars[s->nvars]);
+    if (s->vars[s->nvars].name)
+      s->var_names[s->nvars] = s->vars[s->nvars].name;
+    s->nvars++;
+    if (rc)
+      return rc;
+  }
+  return 0;
+}
+
+static int var_index(const bk_study_t *s, const char *name) {
+  for (size_t i = 0; i < s->nvars; i++)
+    if (strcmp(s->vars[i].name, name) == 0)
+      return (int)i;
+  return -1;
+}
+
+static int load_correlations(loader_t *L, yaml_node_t *cn) {
+  bk_study_t *s = L->s;
+  int rc = want_sequence(L, cn, "correlations");
+  if (rc)
+    return rc;
+  size_t n =
+      (size_t)(cn->data.sequence.items.top - cn->data.sequence.items.start);
+  yaml_node_t **items = bk_calloc(n, sizeof *items);
+  s->corr = bk_calloc(n, sizeof *s->corr);
+  if (!s->corr || !items) {
+    bk_free(items);
+    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+  }
+  for (size_t i = 0; i < n; i++) {
+    yaml_node_t *it = node_at(L, cn->data.sequence.items.start[i]);
+    items[i] = it;
+    if (it->type != YAML_SEQUENCE_NODE ||
+        it->data.sequence.items.top - it->data.sequence.items.start != 3) {
+      rc = FAIL(L, it,
+                "each correlation is a list [variable, variable, rho], "
+                "e.g. [fy, t, 0.3]");
+      goto done;
+    }
+    yaml_node_t *na = node_at(L, it->data.sequence.items.start[0]);
+    yaml_node_t *nb = node_at(L, it->data.sequence.items.start[1]);
+    yaml_node_t *nr = node_at(L, it->data.sequence.items.start[2]);
+    const char *a, *b;
+    if ((rc = want_text(L, na, "a correlated variable", &a)) ||
+        (rc = want_text(L, nb, "a correlated variable", &b)))
+      goto done;
+    int ia = var_index(s, a), ib = var_index(s, b);
+    if (ia < 0 || ib < 0) {
+      yaml_node_t *bad = ia < 0 ? na : nb;
+      rc = FAIL(L, bad, "unknown variable '%s' in a correlation", scalar(bad));
+      goto done;
+    }
+    if (ia == ib) {
+      rc = FAIL(L, nb, "a variable cannot be correlated with itself ('%s')", a);
+      goto done;
+    }
+    double rho;
+    if ((rc = want_number(L, nr, "a correlation coefficient", &rho)))
+      goto done;
+    if (!(rho > -1 && rho < 1)) {
+      rc = FAIL(L, nr,
+                "correlation of %s and %s must lie strictly between "
+                "-1 and 1 (got %g)",
+                a, b, rho);
+      goto done;
+    }
+    s->corr[i].a = (size_t)ia;
+    s->corr[i].b = (size_t)ib;
+    s->corr[i].rho = rho;
+    s->ncorr++;
+  }
+  rc = 0;
+done:
+  bk_free(items);
+  return rc;
+}
+
+/* Builds the Nataf transformation, locating its errors at the offending
+ * correlation (or the correlations list). */
+static int build_transform(loader_t *L, yaml_node_t *cn) {
+  bk_study_t *s = L->s;
+  bk_dist_t *d = bk_calloc(s->nvars, sizeof *d);
+  if (!d)
+    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+  for (size_t i = 0; i < s->nvars; i++)
+    d[i] = s->vars[i].dist;
+  char why[300] = "";
+  int bad = -1;
+  int rc = bk_transform_new(&s->transform, s->nvars, d, s->ncorr, s->corr, why,
+                            sizeof why, &bad);
+  bk_free(d);
+  if (rc == 0)
+    return 0;
+  if (cn && bad >= 0 && (size_t)bad < s->ncorr) {
+    yaml_node_t *it = node_at(L, cn->data.sequence.items.start[bad]);
+    return FAIL(L, it, "correlation of %s and %s: %s",
+                s->vars[s->corr[bad].a].name, s->vars[s->corr[bad].b].name,
+                why);
+  }
+  if (cn)
+    return FAIL(L, cn, "correlations: %s", why);
+  return bk_error_set(L->err, BK_ESTUDY, L->path, 0, 0, "%s", why);
+}
+
+/* ---- model ---------------------------------------------------------- */
+
+static int load_string_list(loader_t *L, yaml_node_t *n, const char *what,
+                            char ***out, size_t *count) {
+  int rc = want_sequence(L, n, what);
+  if (rc)
+    return rc;
+  size_t cnt =
+      (size_t)(n->data.sequence.items.top - n->data.sequence.items.start);
+  char **v = bk_calloc(cnt + 1, sizeof *v);
+  if (!v)
+    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+  *out = v;
+  for (size_t i = 0; i < cnt; i++) {
+    yaml_node_t *it = node_at(L, n->data.sequence.items.start[i]);
+    const char *t;
+    if ((rc = want_text(L, it, what, &t)))
+      return rc;
+    v[i] = bk_strdup(t);
+    *count = i + 1;
+  }
+  return 0;
+}
+
+static int load_outputs(loader_t *L, yaml_node_t *on) {
+  bk_model_t *m = &L->s->model;
+  int rc = want_mapping(L, on, "model.outputs");
+  if (rc)
+    return rc;
+  if ((rc = check_keys(L, on, "model.outputs", NULL)))
+    return rc;
+  size_t n =
+      (size_t)(on->data.mapping.pairs.top - on->data.mapping.pairs.start);
+  m->outputs = bk_calloc(n ? n : 1, sizeof *m->outputs);
+  if (!m->outputs)
+    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+  static const char *const keys[] = {"file", "stdout", "pattern", "match",
+                                     NULL};
+  for (yaml_node_pair_t *p = on->data.mapping.pairs.start;
+       p < on->data.mapping.pairs.top; p++) {
+    yaml_node_t *k = node_at(L, p->key), *v = node_at(L, p->value);
+    bk_output_t *o = &m->outputs[m->noutputs++];
+    const char *name = scalar(k);
+    if (!is_identifier(name) || name[0] == '_')
+      return FAIL(L, k,
+                  "output name '%s' must start with a letter and "
+                  "contain only letters, digits and '_'",
+                  name);
+    if (var_index(L->s, name) >= 0)
+      return FAIL(L, k,
+                  "output '%s' has the name of a variable; choose "
+                  "another name",
+                  name);
+    o->name = bk_strdup(name);
+    char where[160];
+    snprintf(where, sizeof where, "output '%s'", name);
+    if ((rc = want_mapping(L, v, where)) ||
+        (rc = check_keys(L, v, where, keys)))
+      return rc;
+    yaml_node_t *fn = lookup(L, v, "file"), *sn = lookup(L, v, "stdout");
+    yaml_node_t *pn = lookup(L, v, "pattern"), *mn = lookup(L, v, "match");
+    if (sn) {
+      const char *t;
+      if ((rc = want_text(L, sn, "stdout", &t)))
+        return rc;
+      if (strcmp(t, "true") == 0)
+        o->from_stdout = 1;
+      else if (strcmp(t, "false") != 0)
+        return FAIL(L, sn, "stdout must be true or false, got '%s'", t);
+    }
+    if (fn && o->from_stdout)
+      return FAIL(L, fn,
+                  "output '%s': give either file or stdout: true, "
+                  "not both",
+                  name);
+    if (!fn && !o->from_stdout)
+      return FAIL(L, v,
+                  "output '%s' needs a file to read (file: NAME) or "
+                  "stdout: true",
+                  name);
+    if (fn) {
+      const char *t;
+      if ((rc = want_text(L, fn, "file", &t)))
+        return rc;
+      if (t[0] == '/' || strstr(t, ".."))
+        return FAIL(L, fn,
+                    "output file '%s' must be a path inside the run "
+                    "folder (no leading '/' and no '..')",
+                    t);
+      o->file = bk_strdup(t);
+    }
+    if (!pn)
+      return FAIL(L, v,
+                  "output '%s' needs a pattern (a regular expression "
+                  "whose first group is the number)",
+                  name);
+    const char *pat;
+    if ((rc = want_text(L, pn, "pattern", &pat)))
+      return rc;
+    o->pattern = bk_strdup(pat);
+    char msg[256] = "";
+    size_t off = 0;
+    if (bk_pattern_compile(pat, &o->re, msg, sizeof msg, &off)) {
+      yaml_mark_t mk;
+      scalar_offset_mark(L, pn, off, &mk);
+      return fail_at(L, &mk, "invalid pattern for output '%s': %s", name, msg);
+    }
+    o->match = BK_MATCH_FIRST;
+    if (mn) {
+      const char *t;
+      if ((rc = want_text(L, mn, "match", &t)))
+        return rc;
+      static const char *const mnames[] = {"first", "last", "max", "min"};
+      int found = -1;
+      for (int i = 0; i < 4; i++)
+        if (strcmp(t, mnames[i]) == 0)
+          found = i;
+      if (found < 0)
+        return FAIL(L, mn,
+                    "match must be one of first, last, max, min; got "
+                    "'%s'",
+                    t);
+      o->match = (bk_match_t)found;
+    }
+  }
+  return 0;
+}
+
+static int load_decks(loader_t *L, yaml_node_t *fn) {
+  bk_model_t *m = &L->s->model;
+  int rc = want_sequence(L, fn, "model.files");
+  if (rc)
+    return rc;
+  size_t n =
+      (size_t)(fn->data.sequence.items.top - fn->data.sequence.items.start);
+  m->decks = bk_calloc(n ? n : 1, sizeof *m->decks);
+  if (!m->decks)
+    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+  static const char *const keys[] = {"template", "to", NULL};
+  bk_names_t names = {(const char *const *)L->s->var_names, L->s->nvars};
+  for (size_t i = 0; i < n; i++) {
+    yaml_node_t *it = node_at(L, fn->data.sequence.items.start[i]);
+    if ((rc = want_mapping(L, it, "each entry of model.files")) ||
+        (rc = check_keys(L, it, "an entry of model.files", keys)))
+      return rc;
+    yaml_node_t *tn = lookup(L, it, "template"), *to = lookup(L, it, "to");
+    if (!tn)
+      return FAIL(L, it, "each entry of model.files needs template: PATH");
+    bk_deck_t *d = &m->decks[m->ndecks++];
+    const char *t;
+    if ((rc = want_text(L, tn, "template", &t)))
+      return rc;
+    d->template_name = bk_strdup(t);
+    d->template_path = resolve_path(L->s->dir, t);
+    const char *dest = NULL;
+    if (to && (rc = want_text(L, to, "to", &dest)))
+      return rc;
+    if (!dest) {
+      dest = strrchr(t, '/') ? strrchr(t, '/') + 1 : t;
+    }
+    if (dest[0] == '/' || strstr(dest, "..") || !dest[0])
+      return FAIL(L, to ? to : tn,
+                  "'%s' must be a file name inside the run folder (no "
+                  "leading '/' and no '..')",
+                  dest);
+    d->to = bk_strdup(dest);
+    char *text = NULL;
+    size_t len = 0;
+    int frc = read_file(d->template_path, &text, &len);
+    if (frc)
+      return FAIL(L, tn, "cannot read template '%s': %s", t, bk_strerror(frc));
+    char hex[33];
+    bk_digest_hex(text, len, hex);
+    d->digest = bk_strdup(hex);
+    bk_error_t terr;
+    bk_error_clear(&terr);
+    int prc =
+        bk_template_parse(d->template_path, text, len, &names, &d->tpl, &terr);
+    bk_free(text);
+    if (prc) {
+      /* The template's own location is the useful one. */
+      *L->err = terr;
+      L->err->code = BK_ESTUDY;
+      return BK_ESTUDY;
+    }
+  }
+  return 0;
+}
+
+/* A program named without a '/' must be on PATH, and an absolute path
+ * must be an executable file; a relative path with a '/' is resolved in
+ * each run folder (e.g. a script copied there) and checked at run time. */
+static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
+  if (prog[0] == '/') {
+    if (access(prog, X_OK) != 0)
+      return FAIL(L, n, "cannot run '%s': %s", prog, strerror(errno));
+    return 0;
+  }
+  if (strchr(prog, '/'))
+    return 0;
+  const char *path = getenv("PATH");
+  if (!path || !*path)
+    path = "/usr/local/bin:/usr/bin:/bin";
+  for (const char *p = path; *p;) {
+    const char *colon = strchr(p, ':');
+    size_t len = colon ? (size_t)(colon - p) : strlen(p);
+    char cand[4096];
+    snprintf(cand, sizeof cand, "%.*s/%s", (int)(len ? len : 1), len ? p : ".",
+             prog);
+    struct stat st;
+    if (stat(cand, &st) == 0 && S_ISREG(st.st_mode) && access(cand, X_OK) == 0)
+      return 0;
+    p += len;
+    if (*p == ':')
+      p++;
+  }
+  return FAIL(L, n,
+              "program '%s' is not on PATH; install it or give its "
+              "full path",
+              prog);
+}
+
+static int load_model(loader_t *L, yaml_node_t *mn) {
+  bk_model_t *m = &L->s->model;
+  static const char *const keys[] = {
+      "files",   "copy",    "command",  "env",
+      "timeout", "retries", "on_error", "max_error_fraction",
+      "outputs", "keep",    NULL};
+  int rc = want_mapping(L, mn, "model");
+  if (rc || (rc = check_keys(L, mn, "model", keys)))
+    return rc;
+  m->present = 1;
+  m->max_error_fraction = 0.05;
+  m->on_error = BK_ON_ERROR_SKIP;
+  m->keep = BK_KEEP_FAILED;
+  yaml_node_t *n;
+  if ((n = lookup(L, mn, "files")) && (rc = load_decks(L, n)))
+    return rc;
+  if ((n = lookup(L, mn, "copy"))) {
+    if ((rc = load_string_list(L, n, "model.copy", &m->copy_names, &m->ncopy)))
+      return rc;
+    m->copy = bk_calloc(m->ncopy + 1, sizeof *m->copy);
+    if (!m->copy)
+      return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+    for (size_t i = 0; i < m->ncopy; i++) {
+      m->copy[i] = resolve_path(L->s->dir, m->copy_names[i]);
+      struct stat st;
+      if (stat(m->copy[i], &st) != 0) {
+        yaml_node_t *it = node_at(L, n->data.sequence.items.start[i]);
+        return FAIL(L, it, "cannot find '%s' to copy into each run folder",
+                    m->copy_names[i]);
+      }
+    }
+  }
+  yaml_node_t *cn = lookup(L, mn, "command");
+  if (!cn)
+    return FAIL(L, mn,
+                "model needs a command, e.g. command: [ccx, -i, "
+                "beam]");
+  if ((rc = load_string_list(L, cn, "model.command", &m->argv, &m->argc)))
+    return rc;
+  if (m->argc == 0)
+    return FAIL(L, cn, "model.command must name a program");
+  if ((rc = check_program(L, node_at(L, cn->data.sequence.items.start[0]),
+                          m->argv[0])))
+    return rc;
+  if ((n = lookup(L, mn, "env"))) {
+    if ((rc = want_mapping(L, n, "model.env")) ||
+        (rc = check_keys(L, n, "model.env", NULL)))
+      return rc;
+    size_t cnt =
+        (size_t)(n->data.mapping.pairs.top - n->data.mapping.pairs.start);
+    m->env = bk_calloc(cnt + 1, sizeof *m->env);
+    if (!m->env)
+      return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+    for (yaml_node_pair_t *p = n->data.mapping.pairs.start;
+         p < n->data.mapping.pairs.top; p++) {
+      yaml_node_t *k = node_at(L, p->key), *v = node_at(L, p->value);
+      const char *val;
+      if (!is_identifier(scalar(k)))
+        return FAIL(L, k, "environment variable name '%s' is not valid",
+                    scalar(k));
+      if ((rc = want_text(L, v, "an environment value", &val)))
+        return rc;
+      bk_buf_t b;
+      bk_buf_init(&b);
+      bk_buf_printf(&b, "%s=%s", scalar(k), val);
+      m->env[m->nenv++] = b.data;
+    }
+  }
+  if ((n = lookup(L, mn, "timeout"))) {
+    if ((rc = want_number(L, n, "model.timeout", &m->timeout)))
+      return rc;
+    if (!(m->timeout > 0))
+      return FAIL(L, n, "model.timeout must be > 0 seconds (got %g)",
+                  m->timeout);
+  }
+  if ((n = lookup(L, mn, "retries"))) {
+    uint64_t r;
+    if ((rc = want_count(L, n, "model.retries", 0, &r)))
+      return rc;
+    if (r > 100)
+      return FAIL(L, n, "model.retries must be at most 100");
+    m->retries = (int)r;
+  }
+  if ((n = lookup(L, mn, "on_error"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "model.on_error", &t)))
+      return rc;
+    if (strcmp(t, "skip") == 0)
+      m->on_error = BK_ON_ERROR_SKIP;
+    else if (strcmp(t, "fail") == 0)
+      m->on_error = BK_ON_ERROR_FAIL;
+    else if (strcmp(t, "abort") == 0)
+      m->on_error = BK_ON_ERROR_ABORT;
+    else
+      return FAIL(L, n, "model.on_error must be skip, fail or abort; got '%s'",
+                  t);
+  }
+  if ((n = lookup(L, mn, "max_error_fraction"))) {
+    if ((rc = want_number(L, n, "model.max_error_fraction",
+                          &m->max_error_fraction)))
+      return rc;
+    if (!(m->max_error_fraction >= 0 && m->max_error_fraction <= 1))
+      return FAIL(L, n,
+                  "model.max_error_fraction must be between 0 and 1 "
+                  "(got %g)",
+                  m->max_error_fraction);
+  }
+  if ((n = lookup(L, mn, "keep"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "model.keep", &t)))
+      return rc;
+    static const char *const kn[] = {"all", "failed", "errors", "none"};
+    int found = -1;
+    for (int i = 0; i < 4; i++)
+      if (strcmp(t, kn[i]) == 0)
+        found = i;
+    if (found < 0)
+      return FAIL(L, n,
+                  "model.keep must be all, failed, errors or none; got "
+                  "'%s'",
+                  t);
+    m->keep = (bk_keep_t)found;
+  }
+  if ((n = lookup(L, mn, "outputs")) && (rc = load_outputs(L, n)))
+    return rc;
+  return 0;
+}
+
+/* ---- analysis and run ----------------------------------------------- */
+
+static int want_positive(loader_t *L, yaml_node_t *n, const char *what,
+                         double *out) {
+  int rc = want_number(L, n, what, out);
+  if (rc == 0 && !(*out > 0))
+    return FAIL(L, n, "%s must be > 0 (got %g)", what, *out);
+  return rc;
+}
+
+static int want_int_range(loader_t *L, yaml_node_t *n, const char *what, int lo,
+                          int hi, int *out) {
+  uint64_t v;
+  int rc = want_count(L, n, what, (uint64_t)lo, &v);
+  if (rc)
+    return rc;
+  if (v > (uint64_t)hi)
+    return FAIL(L, n, "%s must be at most %d (got %llu)", what, hi,
+                (unsigned long long)v);
+  *out = (int)v;
+  return 0;
+}
+
+/* The method sections analysis.form, .importance, .cross_entropy and
+ * .subset, each optional, with their defaults. */
+static int load_method_options(loader_t *L, yaml_node_t *an) {
+  bk_analysis_t *a = &L->s->analysis;
+  a->form.step = 1e-3;
+  a->form.central = 0;
+  a->form.max_iterations = 100;
+  a->form.tolerance = 1e-3;
+  a->form.sorm = 0;
+  a->cross_entropy.components = 1;
+  a->cross_entropy.rho = 0.1;
+  a->cross_entropy.max_steps = 30;
+  a->subset.p0 = 0.1;
+  a->subset.max_levels = 20;
+  if (!an)
+    return 0;
+  int rc;
+  yaml_node_t *m, *n;
+  if ((m = lookup(L, an, "form"))) {
+    static const char *const keys[] = {
+        "step", "differences", "max_iterations", "tolerance", "sorm", NULL};
+    if ((rc = want_mapping(L, m, "analysis.form")) ||
+        (rc = check_keys(L, m, "analysis.form", keys)))
+      return rc;
+    if ((n = lookup(L, m, "step")) &&
+        (rc = want_positive(L, n, "analysis.form.step", &a->form.step)))
+      return rc;
+    if ((n = lookup(L, m, "tolerance")) &&
+        (rc = want_positive(L, n, "analysis.form.tolerance",
+                            &a->form.tolerance)))
+      return rc;
+    if ((n = lookup(L, m, "max_iterations")) &&
+        (rc = want_int_range(L, n, "analysis.form.max_iterations", 1, 10000,
+                             &a->form.max_iterations)))
+      return rc;
+    if ((n = lookup(L, m, "differences"))) {
+      const char *t;
+      if ((rc = want_text(L, n, "analysis.form.differences", &t)))
+        return rc;
+      if (strcmp(t, "central") == 0)
+        a->form.central = 1;
+      else if (strcmp(t, "forward") != 0)
+        return FAIL(L, n,
+                    "analysis.form.differences must be forward or "
+                    "central; got '%s'",
+                    t);
+    }
+    if ((n = lookup(L, m, "sorm"))) {
+      const char *t;
+      if ((rc = want_text(L, n, "analysis.form.sorm", &t)))
+        return rc;
+      if (strcmp(t, "true") == 0)
+        a->form.sorm = 1;
+      else if (strcmp(t, "false") != 0)
+        return FAIL(L, n,
+                    "analysis.form.sorm must be true or false; got "
+                    "'%s'",
+                    t);
+    }
+  }
+  if ((m = lookup(L, an, "importance"))) {
+    static const char *const keys[] = {"center", NULL};
+    if ((rc = want_mapping(L, m, "analysis.importance")) ||
+        (rc = check_keys(L, m, "analysis.importance", keys)))
+      return rc;
+    if ((n = lookup(L, m, "center"))) {
+      bk_study_t *s = L->s;
+      if ((rc = want_mapping(L, n, "analysis.importance.center")) ||
+          (rc = check_keys(L, n, "analysis.importance.center", NULL)))
+        return rc;
+      a->importance.center = bk_calloc(s->nvars, sizeof(double));
+      if (!a->importance.center)
+        return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+      for (size_t i = 0; i < s->nvars; i++)
+        a->importance.center[i] = bk_dist_median(&s->vars[i].dist);
+      for (yaml_node_pair_t *p = n->data.mapping.pairs.start;
+           p < n->data.mapping.pairs.top; p++) {
+        yaml_node_t *k = node_at(L, p->key), *v = node_at(L, p->value);
+        int idx = var_index(s, scalar(k));
+        if (idx < 0)
+          return FAIL(L, k,
+                      "unknown variable '%s' in "
+                      "analysis.importance.center",
+                      scalar(k));
+        if ((rc = want_number(L, v, "a design-point coordinate",
+                              &a->importance.center[idx])))
+          return rc;
+      }
+      a->importance.has_center = 1;
+    }
+  }
+  if ((m = lookup(L, an, "cross_entropy"))) {
+    static const char *const keys[] = {"components", "rho", "max_steps", NULL};
+    if ((rc = want_mapping(L, m, "analysis.cross_entropy")) ||
+        (rc = check_keys(L, m, "analysis.cross_entropy", keys)))
+      return rc;
+    if ((n = lookup(L, m, "components")) &&
+        (rc = want_int_range(L, n, "analysis.cross_entropy.components", 1, 64,
+                             &a->cross_entropy.components)))
+      return rc;
+    if ((n = lookup(L, m, "max_steps")) &&
+        (rc = want_int_range(L, n, "analysis.cross_entropy.max_steps", 1, 1000,
+                             &a->cross_entropy.max_steps)))
+      return rc;
+    if ((n = lookup(L, m, "rho"))) {
+      if ((rc = want_number(L, n, "analysis.cross_entropy.rho",
+                            &a->cross_entropy.rho)))
+        return rc;
+      if (!(a->cross_entropy.rho > 0 && a->cross_entropy.rho < 0.5))
+        return FAIL(L, n,
+                    "analysis.cross_entropy.rho must lie between 0 "
+                    "and 0.5 (got %g), e.g. 0.1",
+                    a->cross_entropy.rho);
+    }
+  }
+  if ((m = lookup(L, an, "subset"))) {
+    static const char *const keys[] = {"p0", "max_levels", NULL};
+    if ((rc = want_mapping(L, m, "analysis.subset")) ||
+        (rc = check_keys(L, m, "analysis.subset", keys)))
+      return rc;
+    if ((n = lookup(L, m, "max_levels")) &&
+        (rc = want_int_range(L, n, "analysis.subset.max_levels", 1, 100,
+                             &a->subset.max_levels)))
+      return rc;
+    if ((n = lookup(L, m, "p0"))) {
+      if ((rc = want_number(L, n, "analysis.subset.p0", &a->subset.p0)))
+        return rc;
+      if (!(a->subset.p0 > 0 && a->subset.p0 <= 0.5))
+        return FAIL(L, n,
+                    "analysis.subset.p0 must lie in (0, 0.5] (got "
+                    "%g), e.g. 0.1",
+                    a->subset.p0);
+    }
+  }
+  return 0;
+}
+
+static int load_analysis(loader_t *L, yaml_node_t *an) {
+  bk_analysis_t *a = &L->s->analysis;
+  static const char *const keys[] = {
+      "method",          "samples",       "replicates", "target_cov",
+      "max_evaluations", "target_beta",   "ci_level",   "form",
+      "importance",      "cross_entropy", "subset",     NULL};
+  int rc;
+  yaml_node_t *n;
+  if (an) {
+    if ((rc = want_mapping(L, an, "analysis")) ||
+        (rc = check_keys(L, an, "analysis", keys)))
+      return rc;
+  }
+  a->method = BK_METHOD_RANDOM;
+  a->ci_level = 0.95;
+  if (an && (n = lookup(L, an, "method"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "analysis.method", &t)))
+      return rc;
+    int found = -1;
+    for (int i = 0; i < BK_METHOD__COUNT; i++)
+      if (strcmp(t, method_names[i]) == 0)
+        found = i;
+    if (found < 0)
+      return FAIL(L, n,
+                  "unknown method '%s'; expected one of random, lhs, "
+                  "sobol, form, importance, cross-entropy, subset",
+                  t);
+    a->method = (bk_method_kind_t)found;
+  }
+  yaml_node_t *sn = an ? lookup(L, an, "samples") : NULL;
+  if (sn && (rc = want_count(L, sn, "analysis.samples", 1, &a->samples)))
+    return rc;
+  if (an && (n = lookup(L, an, "target_cov"))) {
+    if ((rc = want_number(L, n, "analysis.target_cov", &a->target_cov)))
+      return rc;
+    if (!(a->target_cov > 0))
+      return FAIL(L, n, "analysis.target_cov must be > 0 (got %g)",
+                  a->target_cov);
+  }
+  if (an && (n = lookup(L, an, "max_evaluations"))) {
+    if ((rc = want_count(L, n, "analysis.max_evaluations", 1,
+                         &a->max_evaluations)))
+      return rc;
+  }
+  if (an && (n = lookup(L, an, "target_beta"))) {
+    if ((rc = want_number(L, n, "analysis.target_beta", &a->target_beta)))
+      return rc;
+    a->has_target_beta = 1;
+  }
+  if (an && (n = lookup(L, an, "ci_level"))) {
+    if ((rc = want_number(L, n, "analysis.ci_level", &a->ci_level)))
+      return rc;
+    if (!(a->ci_level >= 0.5 && a->ci_level < 1))
+      return FAIL(L, n,
+                  "analysis.ci_level must be at least 0.5 and below 1 "
+                  "(got %g), e.g. 0.95",
+                  a->ci_level);
+  }
+  if ((rc = load_method_options(L, an)))
+    return rc;
+  int replicated = a->method == BK_METHOD_LHS || a->method == BK_METHOD_SOBOL;
+  yaml_node_t *rn = an ? lookup(L, an, "replicates") : NULL;
+  a->replicates = 1;
+  if (rn) {
+    uint64_t r;
+    if (!replicated)
+      return FAIL(L, rn, "analysis.replicates applies to lhs and sobol only");
+    if ((rc = want_count(L, rn, "analysis.replicates", 2, &r)))
+      return rc;
+    if (r > 100000)
+      return FAIL(L, rn, "analysis.replicates must be at most 100000");
+    a->replicates = (uint32_t)r;
+  } else if (replicated) {
+    a->replicates = 8;
+  }
+  if (replicated) {
+    if (!a->samples)
+      return FAIL(L, an ? an : node_at(L, 1),
+                  "method %s needs analysis.samples (the total number of "
+                  "evaluations, split over the replicates)",
+                  method_names[a->method]);
+    if (a->samples < a->replicates)
+      return FAIL(L, sn,
+                  "analysis.samples (%llu) must be at least the "
+                  "number of replicates (%u)",
+                  (unsigned long long)a->samples, a->replicates);
+  } else if (a->method == BK_METHOD_RANDOM && !a->samples && !a->target_cov) {
+    return FAIL(L, an ? an : node_at(L, 1),
+                "give analysis.samples (the number of evaluations) or "
+                "analysis.target_cov (stop once the estimate is that "
+                "precise)");
+  }
+  switch (a->method) {
+  case BK_METHOD_IMPORTANCE:
+  case BK_METHOD_CROSS_ENTROPY:
+    /* samples: evaluations per batch; stop on target_cov. Cross-entropy
+     * fits a density of nu dimensions from each batch and needs about 100
+     * points per variable to do so reliably (measured on a sum of 20
+     * exponentials, bench/bench_rare). */
+    if (!a->samples) {
+      size_t nu = bk_transform_nu(L->s->transform);
+      a->samples = 500;
+      if (a->method == BK_METHOD_CROSS_ENTROPY && 100 * nu > a->samples)
+        a->samples = 100 * nu;
+    }
+    if (!(a->target_cov > 0))
+      a->target_cov = 0.1;
+    if (!a->max_evaluations)
+      a->max_evaluations = 200000;
+    break;
+  case BK_METHOD_SUBSET:
+    if (!a->samples)
+      a->samples = 1000; /* per level */
+    if (!a->max_evaluations)
+      a->max_evaluations = 10000000;
+    break;
+  case BK_METHOD_FORM:
+    if (!a->max_evaluations)
+      a->max_evaluations = 1000000;
+    break;
+  default:
+    if (!a->max_evaluations)
+      a->max_evaluations = a->samples ? a->samples : 10000000;
+  }
+  return 0;
+}
+
+static int load_run(loader_t *L, yaml_node_t *rn) {
+  bk_run_t *r = &L->s->run;
+  static const char *const keys[] = {"folder", "slots", "scratch", NULL};
+  int rc;
+  yaml_node_t *n;
+  if (rn && ((rc = want_mapping(L, rn, "run")) ||
+             (rc = check_keys(L, rn, "run", keys))))
+    return rc;
+  long ncpu = sysconf(_SC_NPROCESSORS_ONLN);
+  r->slots = ncpu > 0 ? (int)ncpu : 1;
+  if (rn && (n = lookup(L, rn, "slots"))) {
+    uint64_t v;
+    if ((rc = want_count(L, n, "run.slots", 1, &v)))
+      return rc;
+    if (v > 4096)
+      return FAIL(L, n, "run.slots must be at most 4096");
+    r->slots = (int)v;
+  }
+  const char *folder = NULL;
+  if (rn && (n = lookup(L, rn, "folder")) &&
+      (rc = want_text(L, n, "run.folder", &folder)))
+    return rc;
+  if (folder) {
+    r->folder = resolve_path(L->s->dir, folder);
+  } else {
+    bk_buf_t b;
+    bk_buf_init(&b);
+    bk_buf_printf(&b, "runs/%s", L->s->name);
+    r->folder = resolve_path(L->s->dir, b.data);
+    bk_buf_close(&b);
+  }
+  const char *scratch = "";
+  if (rn && (n = lookup(L, rn, "scratch")) &&
+      (rc = want_text(L, n, "run.scratch", &scratch)))
+    return rc;
+  r->scratch = bk_strdup(scratch);
+  return 0;
+}
+
+/* ---- limit state ---------------------------------------------------- */
+
+const char **bk_study_g_names(const bk_study_t *s, size_t *n) {
+  size_t total = s->nvars + s->model.noutputs;
+  const char **names = bk_calloc(total ? total : 1, sizeof *names);
+  if (!names)
+    return NULL;
+  for (size_t i = 0; i < s->nvars; i++)
+    names[i] = s->vars[i].name;
+  for (size_t i = 0; i < s->model.noutputs; i++)
+    names[s->nvars + i] = s->model.outputs[i].name;
+  *n = total;
+  return names;
+}
+
+static int load_limit_state(loader_t *L, yaml_node_t *gn) {
+  bk_study_t *s = L->s;
+  const char *text;
+  int rc = want_text(L, gn, "limit_state", &text);
+  if (rc)
+    return rc;
+  s->limit_state = bk_strdup(text);
+  size_t n;
+  const char **names = bk_study_g_names(s, &n);
+  if (!names)
+    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+  bk_names_t tab = {names, n};
+  char msg[400] = "";
+  size_t off = 0;
+  rc = bk_expr_compile(text, strlen(text), &tab, &s->g, msg, sizeof msg, &off);
+  bk_free(names);
+  if (rc) {
+    yaml_mark_t mk;
+    scalar_offset_mark(L, gn, off, &mk);
+    return fail_at(L, &mk, "limit_state: %s", msg);
+  }
+  return 0;
+}
+
+/* ---- fingerprint ---------------------------------------------------- */
+
+/* The canonical text of what determines each evaluation's response: the
+ * probabilistic model, seed, limit state and design (not run settings or
+ * stopping rules, which may change between a run and its resume). */
+static int make_digests(bk_study_t *s) {
+  bk_buf_t b;
+  bk_buf_init(&b);
+  bk_buf_printf(&b, "seed %llu\n", (unsigned long long)s->seed);
+  for (size_t i = 0; i < s->nvars; i++) {
+    const bk_dist_t *d = &s->vars[i].dist;
+    bk_buf_printf(&b, "var %s %s", s->vars[i].name, bk_dist_name(d->kind));
+    for (int j = 0; j < 6; j++)
+      bk_buf_printf(&b, " %a", d->p[j]);
+    bk_buf_putc(&b, '\n');
+  }
+  for (size_t i = 0; i < s->ncorr; i++)
+    bk_buf_printf(&b, "corr %s %s %a\n", s->vars[s->corr[i].a].name,
+                  s->vars[s->corr[i].b].name, s->corr[i].rho);
+  const bk_analysis_t *an = &s->analysis;
+  bk_buf_printf(&b, "g %s\nmethod %s samples %llu replicates %u\n",
+                s->limit_state, bk_method_name(an->method),
+                (unsigned long long)an->samples, an->replicates);
+  if (an->method >= BK_METHOD_FORM) {
+    bk_buf_printf(&b, "form %a %d %d %a %d\n", an->form.step, an->form.central,
+                  an->form.max_iterations, an->form.tolerance, an->form.sorm);
+    bk_buf_printf(&b, "ce %d %a %d\nsubset %a %d\n",
+                  an->cross_entropy.components, an->cross_entropy.rho,
+                  an->cross_entropy.max_steps, an->subset.p0,
+                  an->subset.max_levels);
+    for (size_t i = 0; an->importance.has_center && i < s->nvars; i++)
+      bk_buf_printf(&b, "center %a\n", an->importance.center[i]);
+  }
+  if (!b.data)
+    return BK_ENOMEM;
+  char hex[33];
+  bk_digest_hex(b.data, b.len, hex);
+  s->digest_study = bk_strdup(hex);
+  bk_buf_reset(&b);
+  const bk_model_t *m = &s->model;
+  bk_buf_printf(&b, "model %d\n", m->present);
+  for (size_t i = 0; i < m->argc; i++)
+    bk_buf_printf(&b, "arg %s\n", m->argv[i]);
+  for (size_t i = 0; i < m->nenv; i++)
+    bk_buf_printf(&b, "env %s\n", m->env[i]);
+  for (size_t i = 0; i < m->ndecks; i++)
+    bk_buf_printf(&b, "deck %s %s\n", m->decks[i].template_name,
+                  m->decks[i].to);
+  for (size_t i = 0; i < m->ncopy; i++)
+    bk_buf_printf(&b, "copy %s\n", m->copy_names[i]);
+  for (size_t i = 0; i < m->noutputs; i++)
+    bk_buf_printf(&b, "out %s %d %s %d %s\n", m->outputs[i].name,
+                  m->outputs[i].from_stdout,
+                  m->outputs[i].file ? m->outputs[i].file : "",
+                  (int)m->outputs[i].match, m->outputs[i].pattern);
+  bk_buf_printf(&b, "timeout %a\n", m->timeout);
+  if (!b.data)
+    return BK_ENOMEM;
+  bk_digest_hex(b.data, b.len, hex);
+  s->digest_model = bk_strdup(hex);
+  bk_buf_close(&b);
+  return s->digest_study && s->digest_model ? 0 : BK_ENOMEM;
+}
+
+/* ---- top level ------------------------------------------------------ */
+
+static char *dirname_of(const char *path) {
+  const char *slash = strrchr(path, '/');
+  if (!slash)
+    return bk_strdup(".");
+  if (slash == path)
+    return bk_strdup("/");
+  return bk_strndup(path, (size_t)(slash - path));
+}
+
+static char *stem_of(const char *path) {
+  const char *base = strrchr(path, '/') ? strrchr(path, '/') + 1 : path;
+  const char *dot = strrchr(base, '.');
+  return bk_strndup(base,
+                    dot && dot != base ? (size_t)(dot - base) : strlen(base));
+}
+
+static int load_root(loader_t *L, yaml_node_t *root) {
+  bk_study_t *s = L->s;
+  static const char *const keys[] = {"name",         "seed",  "variables",
+                                     "correlations", "model", "limit_state",
+                                     "analysis",     "run",   NULL};
+  int rc;
+  if (root->type != YAML_MAPPING_NODE)
+    return FAIL(L, root,
+                "a study file is a mapping with at least "
+                "'variables' and 'limit_state'; got %s",
+                kind_word(root));
+  if ((rc = check_keys(L, root, "the study file", keys)))
+    return rc;
+  yaml_node_t *n;
+  if ((n = lookup(L, root, "name"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "name", &t)))
+      return rc;
+    for (const char *p = t; *p; p++)
+      if (!(isalnum((unsigned char)*p) || *p == '-' || *p == '_' || *p == '.'))
+        return FAIL(L, n,
+                    "name '%s' may contain only letters, digits, '-', "
+                    "'_' and '.' (it names the run folder)",
+                    t);
+    s->name = bk_strdup(t);
+  } else {
+    s->name = stem_of(L->path);
+  }
+  s->seed = 1;
+  if ((n = lookup(L, root, "seed"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "seed", &t)))
+      return rc;
+    char *end;
+    errno = 0;
+    unsigned long long v = strtoull(t, &end, 10);
+    if (!isdigit((unsigned char)t[0]) || *end || errno)
+      return FAIL(L, n,
+                  "seed must be a whole number from 0 to "
+                  "18446744073709551615, got '%s'",
+                  t);
+    s->seed = v;
+  }
+  yaml_node_t *vn = lookup(L, root, "variables");
+  if (!vn)
+    return FAIL(L, root,
+                "the study file needs 'variables' (the basic "
+                "random variables)");
+  if ((rc = load_variables(L, vn)))
+    return rc;
+  yaml_node_t *cn = lookup(L, root, "correlations");
+  if (cn && (rc = load_correlations(L, cn)))
+    return rc;
+  if ((rc = build_transform(L, cn)))
+    return rc;
+  if ((n = lookup(L, root, "model")) && (rc = load_model(L, n)))
+    return rc;
+  yaml_node_t *gn = lookup(L, root, "limit_state");
+  if (!gn)
+    return FAIL(L, root,
+                "the study file needs 'limit_state', an expression "
+                "that is <= 0 on failure, e.g. \"r - s\"");
+  if ((rc = load_limit_state(L, gn)))
+    return rc;
+  if ((rc = load_analysis(L, lookup(L, root, "analysis"))))
+    return rc;
+  if ((rc = load_run(L, lookup(L, root, "run"))))
+    return rc;
+  return make_digests(s);
+}
+
+int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err) {
+  *out = NULL;
+  loader_t L;
+  memset(&L, 0, sizeof L);
+  L.path = path;
+  L.err = err;
+  char *text = NULL;
+  size_t len = 0;
+  int rc = read_file(path, &text, &len);
+  if (rc)
+    return bk_error_set(err, rc == BK_ENOMEM ? BK_ENOMEM : BK_EIO, path, 0, 0,
+                        "cannot read the study file: %s", bk_strerror(rc));
+  L.text = text;
+  L.len = len;
+  bk_study_t *s = bk_calloc(1, sizeof *s);
+  if (!s) {
+    bk_free(text);
+    return bk_error_set(err, BK_ENOMEM, path, 0, 0, "out of memory");
+  }
+  L.s = s;
+  s->path = bk_strdup(path);
+  s->dir = dirname_of(path);
+  yaml_parser_t parser;
+  yaml_parser_initialize(&parser);
+  yaml_parser_set_input_string(&parser, (const unsigned char *)text, len);
+  if (!yaml_parser_load(&parser, &L.doc)) {
+    rc = fail_at(&L, &parser.problem_mark, "malformed YAML: %s%s%s",
+                 parser.problem ? parser.problem : "syntax error",
+                 parser.context ? " " : "",
+                 parser.context ? parser.context : "");
+    yaml_parser_delete(&parser);
+    goto out;
+  }
+  yaml_node_t *root = yaml_document_get_root_node(&L.doc);
+  if (!root) {
+    rc = bk_error_set(err, BK_ESTUDY, path, 1, 1,
+                      "the study file is empty; start from `brink init`");
+  } else {
+    rc = load_root(&L, root);
+  }
+  yaml_document_delete(&L.doc);
+  yaml_parser_delete(&parser);
+out:
+  bk_free(text);
+  if (rc) {
+    bk_study_free(s);
+    return rc;
+  }
+  *out = s;
+  return 0;
+}
+
+void bk_study_free(bk_study_t *s) {
+  if (!s)
+    return;
+  for (size_t i = 0; i < s->nvars; i++)
+    bk_free(s->vars[i].name);
+  bk_free(s->vars);
+  bk_free(s->var_names);
+  bk_free(s->corr);
+  bk_transform_free(s->transform);
+  bk_model_t *m = &s->model;
+  for (size_t i = 0; i < m->ndecks; i++) {
+    bk_free(m->decks[i].template_path);
+    bk_free(m->decks[i].template_name);
+    bk_free(m->decks[i].to);
+    bk_free(m->decks[i].digest);
+    bk_template_free(m->decks[i].tpl);
+  }
+  bk_free(m->decks);
+  for (size_t i = 0; i < m->ncopy; i++) {
+    if (m->copy)
+      bk_free(m->copy[i]);
+    bk_free(m->copy_names[i]);
+  }
+  bk_free(m->copy);
+  bk_free(m->copy_names);
+  for (size_t i = 0; m->argv && m->argv[i]; i++)
+    bk_free(m->argv[i]);
+  bk_free(m->argv);
+  for (size_t i = 0; i < m->nenv; i++)
+    bk_free(m->env[i]);
+  bk_free(m->env);
+  for (size_t i = 0; i < m->noutputs; i++) {
+    bk_free(m->outputs[i].name);
+    bk_free(m->outputs[i].file);
+    bk_free(m->outputs[i].pattern);
+    bk_pattern_free(m->outputs[i].re);
+  }
+  bk_free(m->outputs);
+  bk_free(s->analysis.importance.center);
+  bk_free(s->limit_state);
+  bk_expr_free(s->g);
+  bk_free(s->run.folder);
+  bk_free(s->run.scratch);
+  bk_free(s->name);
+  bk_free(s->path);
+  bk_free(s->dir);
+  bk_free(s->digest_study);
+  bk_free(s->digest_model);
+  bk_free(s);
+}

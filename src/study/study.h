@@ -1,0 +1,173 @@
+/*
+ * The study: a study file (YAML) loaded into a validated, immutable
+ * structure. Everything a run needs is checked at load time -- parameters,
+ * correlations (after the Nataf adjustment), names in the limit state and in
+ * templates, patterns -- so that a run never fails on a typo. Errors name
+ * file:line:col.
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#ifndef BK_STUDY_H
+#define BK_STUDY_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#include "numerics/dist.h"
+#include "base/error.h"
+#include "study/expr.h"
+#include "study/extract.h"
+#include "study/template.h"
+#include "numerics/transform.h"
+
+typedef struct {
+  char *name;
+  bk_dist_t dist;
+  int line; /* location of the variable in the study file */
+} bk_var_t;
+
+typedef struct {
+  char *name;
+  int from_stdout; /* read the process's standard output */
+  char *file;      /* else this file, relative to the run folder */
+  char *pattern;
+  bk_match_t match;
+  bk_pattern_t *re;
+} bk_output_t;
+
+typedef struct {
+  char *template_path; /* absolute or relative to the working directory */
+  char *template_name; /* as written in the study file */
+  char *to;            /* file name inside the run folder */
+  bk_template_t *tpl;
+  char *digest; /* of the template text, for the fingerprint */
+} bk_deck_t;
+
+typedef enum {
+  BK_ON_ERROR_SKIP,
+  BK_ON_ERROR_FAIL,
+  BK_ON_ERROR_ABORT
+} bk_on_error_t;
+typedef enum {
+  BK_KEEP_ALL,
+  BK_KEEP_FAILED,
+  BK_KEEP_ERRORS,
+  BK_KEEP_NONE
+} bk_keep_t;
+
+typedef struct {
+  int present; /* the study has a model: section */
+  bk_deck_t *decks;
+  size_t ndecks;
+  char **copy;       /* paths (resolved) of static files */
+  char **copy_names; /* as written */
+  size_t ncopy;
+  char **argv; /* NULL-terminated */
+  size_t argc;
+  char **env; /* "NAME=VALUE", NULL-terminated */
+  size_t nenv;
+  double timeout; /* 0 = none */
+  int retries;
+  bk_on_error_t on_error;
+  double max_error_fraction;
+  bk_output_t *outputs;
+  size_t noutputs;
+  bk_keep_t keep;
+} bk_model_t;
+
+typedef enum {
+  BK_METHOD_RANDOM,
+  BK_METHOD_LHS,
+  BK_METHOD_SOBOL,
+  BK_METHOD_FORM,
+  BK_METHOD_IMPORTANCE,
+  BK_METHOD_CROSS_ENTROPY,
+  BK_METHOD_SUBSET,
+  BK_METHOD__COUNT
+} bk_method_kind_t;
+
+/* analysis.form: the design-point search (form, and importance when no
+ * center is given). */
+typedef struct {
+  double step;        /* finite-difference step in u-space; 1e-3 */
+  int central;        /* differences: central (1) or forward (0) */
+  int max_iterations; /* 100 */
+  double tolerance;   /* convergence tolerance on u and g; 1e-3 */
+  int sorm;           /* also Breitung SORM from a curvature batch; 0 */
+} bk_form_opts_t;
+
+/* analysis.importance: sampling around a design point. */
+typedef struct {
+  int has_center; /* center given by the user (x-space) */
+  double *center; /* nvars values (constants keep their value) */
+} bk_importance_opts_t;
+
+/* analysis.cross_entropy: adaptive Gaussian-mixture importance sampling. */
+typedef struct {
+  int components; /* mixture components; 1 */
+  double rho;     /* quantile of the elite set; 0.1 */
+  int max_steps;  /* adaptation steps; 30 */
+} bk_ce_opts_t;
+
+/* analysis.subset: subset simulation. */
+typedef struct {
+  double p0;      /* conditional probability per level; 0.1 */
+  int max_levels; /* 20 */
+} bk_subset_opts_t;
+
+typedef struct {
+  bk_method_kind_t method;
+  uint64_t samples;    /* 0 when not given; importance and cross-entropy:
+                          evaluations per batch; subset: per level */
+  uint32_t replicates; /* lhs, sobol */
+  double target_cov;   /* 0 when not given */
+  uint64_t max_evaluations;
+  int has_target_beta;
+  double target_beta;
+  double ci_level;
+  bk_form_opts_t form;
+  bk_importance_opts_t importance;
+  bk_ce_opts_t cross_entropy;
+  bk_subset_opts_t subset;
+} bk_analysis_t;
+
+typedef struct {
+  char *folder; /* resolved */
+  int slots;
+  char *scratch; /* "" when not given */
+} bk_run_t;
+
+typedef struct {
+  char *path; /* the study file as given */
+  char *dir;  /* its folder */
+  char *name;
+  uint64_t seed;
+  bk_var_t *vars;
+  size_t nvars;
+  char **var_names; /* nvars entries, for name tables */
+  bk_corr_t *corr;
+  size_t ncorr;
+  bk_transform_t *transform;
+  bk_model_t model;
+  char *limit_state;
+  bk_expr_t *g; /* over names: variables, then model outputs */
+  bk_analysis_t analysis;
+  bk_run_t run;
+  char *digest_study; /* fingerprint parts */
+  char *digest_model;
+} bk_study_t;
+
+/* Loads and validates a study file. On failure returns BK_ESTUDY (or
+ * BK_EIO, BK_ENOMEM) with err naming file:line:col, and *out is NULL. */
+int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err);
+void bk_study_free(bk_study_t *s);
+
+const char *bk_method_name(bk_method_kind_t m);
+/* Names bound by the limit state: variables then outputs; caller frees the
+ * array (not the strings) with bk_free. */
+const char **bk_study_g_names(const bk_study_t *s, size_t *n);
+
+/* A 128-bit digest of a text as 32 hex digits into hex[33]. */
+void bk_digest_hex(const void *data, size_t len, char hex[33]);
+
+#endif
