@@ -176,7 +176,7 @@ Test(faults, disk_full_while_rendering_decks) {
   int rc = brink("run full.yaml");
   char *err = read_file("err.txt");
   cr_assert_eq(rc, 3, "exit %d: %s", rc, err);
-  cr_assert(strstr(err, "/in.txt: No space left on device"), "%s", err);
+  cr_assert(strstr(err, "/in.txt: no space left on device"), "%s", err);
   cr_assert(strstr(err, "Free space and run `brink run full.yaml` again"), "%s",
             err);
   cr_assert_eq(count_lines(canonical_records("full")), 0);

@@ -982,7 +982,7 @@ Test(records, short_write_then_enospc_leaves_whole_lines) {
   bk_record_t rec = rec_for(2);
   bk_error_t err;
   bk_error_clear(&err);
-  cr_assert_eq(bk_records_append(r, &rec, &err), BK_ENOSPACE);
+  cr_assert_eq(bk_records_append(r, &rec, &err), BK_ENOSPC);
   bk__records_set_write(NULL);
   cr_assert_eq(hook_calls, 2);
   char want[1024];
@@ -1023,7 +1023,7 @@ Test(records, full_tmpfs_refuses_append_and_keeps_whole_lines) {
     if ((rc = bk_records_append(r, &rec, &err)))
       break;
   }
-  cr_assert_eq(rc, BK_ENOSPACE, "%d after %ld appends", rc, i);
+  cr_assert_eq(rc, BK_ENOSPC, "%d after %ld appends", rc, i);
   char want[1024];
   snprintf(want, sizeof want,
            "cannot write records to %s: No space left on device", logpath);

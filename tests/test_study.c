@@ -340,7 +340,7 @@ Test(study, missing_file) {
   bk_error_clear(&err);
   cr_assert_neq(bk_study_load("/nonexistent/study.yaml", &s, &err), 0);
   cr_assert_str_eq(err.msg,
-                   "cannot read the study file: No such file or directory");
+                   "cannot read the study file: no such file or directory");
 }
 
 Test(study, numbers_are_c_literals) {

@@ -12,7 +12,7 @@ const char *bk_strerror(int code) {
   switch (code) {
   case BK_OK:
     return "success";
-#define XX(name, text)                                                         \
+#define XX(name, value, text)                                                  \
   case BK_##name:                                                              \
     return text;
     BK_ERRNO_MAP(XX)
@@ -28,13 +28,44 @@ const char *bk_err_name(int code) {
   switch (code) {
   case BK_OK:
     return "OK";
-#define XX(name, text)                                                         \
+#define XX(name, value, text)                                                  \
   case BK_##name:                                                              \
     return #name;
     BK_ERRNO_MAP(XX)
 #undef XX
   default:
     return "ESYSTEM";
+  }
+}
+
+bk_exit_t bk_error_exit(int code) {
+  switch (code) {
+  case BK_OK:
+    return BK_EXIT_DONE;
+  /* Resumable as it is: a stop request, or a full file system once space
+   * is freed (the records are intact). */
+  case BK_ESTOPPED:
+  case -ENOSPC:
+  case -EDQUOT:
+    return BK_EXIT_STOPPED;
+  /* Bad input: the study, records of another study or damaged ones, a run
+   * folder that cannot be written. Nothing was written. */
+  case BK_EPARSE:
+  case BK_ESTUDY:
+  case BK_EMISMATCH:
+  case BK_ECORRUPT:
+  case BK_ENOTFOUND:
+  case -EACCES:
+  case -EPERM:
+  case -EROFS:
+  case -ENOTDIR:
+  case -EEXIST:
+    return BK_EXIT_USAGE;
+  /* Everything else would fail the same way again: a model error limit,
+   * a malformed MPI message, an I/O error, no memory, a lock held by a
+   * live brink, an internal failure. */
+  default:
+    return BK_EXIT_RUNTIME;
   }
 }
 
@@ -57,8 +88,8 @@ int bk_error_vset(bk_error_t *err, int code, const char *path, int line,
   return code;
 }
 
-int bk_error_set(bk_error_t *err, int code, const char *path, int line,
-                 int col, const char *fmt, ...) {
+int bk_error_set(bk_error_t *err, int code, const char *path, int line, int col,
+                 const char *fmt, ...) {
   va_list ap;
   va_start(ap, fmt);
   bk_error_vset(err, code, path, line, col, fmt, ap);

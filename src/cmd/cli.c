@@ -29,7 +29,8 @@ static const char usage_text[] =
     "the random inputs of a model described in a study file.\n"
     "\n"
     "commands:\n"
-    "  init FOLDER          write a starter study that runs as is (--analytic,\n"
+    "  init FOLDER          write a starter study that runs as is "
+    "(--analytic,\n"
     "                       --script, --fe)\n"
     "  check STUDY.yaml     validate the study and print its probabilistic "
     "model;\n"
@@ -143,7 +144,7 @@ int bk__cli_load_study(const char *path, bk_study_t **s) {
   bk_error_clear(&err);
   if (bk_study_load(path, s, &err)) {
     bk__cli_print_error(&err);
-    return err.code == BK_ENOMEM ? BK_EXIT_RUNTIME : BK_EXIT_USAGE;
+    return bk_error_exit(err.code);
   }
   return 0;
 }

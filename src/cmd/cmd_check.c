@@ -167,7 +167,7 @@ static int try_model(const bk_study_t *s, const double *med) {
       bk__cli_print_error(&err);
     else
       fprintf(stderr, "brink: cannot try the model: %s\n", bk_strerror(rc));
-    exit_code = rc == BK_ESTOPPED ? BK_EXIT_STOPPED : BK_EXIT_RUNTIME;
+    exit_code = bk_error_exit(rc);
     goto out;
   }
   bk_record_t r;

@@ -192,7 +192,7 @@ int bk__cmd_export(int argc, char **argv) {
   bk_error_clear(&err);
   int rc = bk_records_open(&rec, &ro, &err);
   if (rc) {
-    if (rc == BK_ENOTFOUND || rc == -ENOENT)
+    if (rc == BK_ENOTFOUND)
       fprintf(stderr,
               "brink: no records in %s (%s is absent or empty). Studies "
               "without a model section keep no records; for the others, "
@@ -202,8 +202,7 @@ int bk__cmd_export(int argc, char **argv) {
       bk__cli_print_error(&err);
     bk_buf_close(&lp);
     bk_free(folder);
-    return rc == BK_ENOTFOUND || rc == -ENOENT ? BK_EXIT_USAGE
-                                               : BK_EXIT_RUNTIME;
+    return bk_error_exit(rc);
   }
   export_t e;
   memset(&e, 0, sizeof e);

@@ -152,8 +152,7 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
       bk__cli_print_error(&err);
       fprintf(stderr, "brink: shard %u/%u (%s) cannot be merged\n", i,
               ss->count, p.data);
-      rc = orc == BK_EMISMATCH || orc == BK_ECORRUPT ? BK_EXIT_USAGE
-                                                     : BK_EXIT_RUNTIME;
+      rc = bk_error_exit(orc);
     }
     bk_buf_close(&p);
   }
@@ -264,10 +263,10 @@ int bk__cmd_merge(int argc, char **argv) {
       incomplete++;
     }
   if (rc == BK_ESTOPPED) {
-    exit_code = BK_EXIT_STOPPED;
+    exit_code = bk_error_exit(rc);
   } else if (rc) {
     bk__cli_print_error(&err);
-    exit_code = rc == BK_EMISMATCH ? BK_EXIT_USAGE : BK_EXIT_RUNTIME;
+    exit_code = bk_error_exit(rc);
   } else if (incomplete) {
     exit_code = BK_EXIT_RUNTIME;
   } else if ((rc = write_merged(s, &ss, &err)) != 0) {

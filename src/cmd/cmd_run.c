@@ -216,17 +216,9 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
   if (rc) {
     bk__cli_print_error(&err);
     bk_buf_close(&lp);
-    /* No space is resumable (exit 3). Records of another study, damaged
-     * records and a folder that cannot be written are bad input: exit 2,
-     * nothing written. */
-    if (rc == -ENOSPC || rc == -EDQUOT || rc == BK_ENOSPACE) {
+    if (bk_error_exit(rc) == BK_EXIT_STOPPED)
       fprintf(stderr, "brink: free space and run the same command again\n");
-      return BK_EXIT_STOPPED;
-    }
-    return rc == BK_EMISMATCH || rc == BK_ECORRUPT || rc == -EACCES ||
-                   rc == -EROFS || rc == -EPERM || rc == -ENOTDIR
-               ? BK_EXIT_USAGE
-               : BK_EXIT_RUNTIME;
+    return bk_error_exit(rc);
   }
   size_t dropped = bk_records_dropped(m->records);
   if (dropped)
@@ -252,7 +244,7 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
       if (rc != BK_ESTOPPED)
         bk__cli_print_error(&err);
       model_run_close(m, &err);
-      return rc == BK_ESTOPPED ? BK_EXIT_STOPPED : BK_EXIT_RUNTIME;
+      return bk_error_exit(rc);
     }
     return 0;
   }
@@ -306,6 +298,9 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
 /* Runs the study in this process: locally, as one shard, or as the
  * coordinator of an MPI run. Returns the exit code. */
 static int run_study(const char *path, int quiet, const run_mode_t *mode) {
+  /* From the start: a stop that comes while the records are being opened
+   * must end with exit 3 like any other, not kill brink by default. */
+  bk_stop_install();
   bk_study_t *s;
   int rc = bk__cli_load_study(path, &s);
   if (rc)
@@ -334,7 +329,7 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
     fprintf(stderr, "brink: cannot create the run folder %s: %s\n",
             s->run.folder, bk_strerror(mrc));
     bk_study_free(s);
-    return mrc == BK_ENOMEM || mrc == -ENOSPC ? BK_EXIT_RUNTIME : BK_EXIT_USAGE;
+    return bk_error_exit(mrc);
   }
   struct stat fst;
   if (stat(s->run.folder, &fst) == 0 && !S_ISDIR(fst.st_mode))
@@ -388,7 +383,6 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
     bk_shard_evaluator(&se, &shard_ev);
     pr.quiet = 1;
   }
-  bk_stop_install();
   bk_result_t res;
   double t0 = now_seconds();
   rc =
@@ -416,16 +410,14 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
               "again to resume\n",
               (unsigned long long)res.evaluations, path);
     exit_code = BK_EXIT_STOPPED;
-  } else if (rc == BK_ENOSPACE || rc == -ENOSPC || rc == BK_EIO || rc == -EIO) {
-    bk__cli_print_error(&err);
-    fprintf(stderr,
-            "brink: stopped; the records written so far are intact. Free "
-            "space and run `brink run %s` again to resume\n",
-            path);
-    exit_code = BK_EXIT_STOPPED;
   } else if (rc) {
     bk__cli_print_error(&err);
-    exit_code = BK_EXIT_RUNTIME;
+    exit_code = bk_error_exit(rc);
+    if (exit_code == BK_EXIT_STOPPED)
+      fprintf(stderr,
+              "brink: stopped; the records written so far are intact. Free "
+              "space and run `brink run %s` again to resume\n",
+              path);
   } else if (mode->shard.count) {
     if (!quiet)
       printf("brink: shard %u/%u done: %llu evaluations recorded in %s/%s.\n"

@@ -260,7 +260,7 @@ int bk__cmd_status(int argc, char **argv) {
   if (rc == 0)
     rc = bk_records_scan(rec, on_record, t);
   int exit_code = BK_EXIT_DONE;
-  if (rc == BK_ENOTFOUND || rc == -ENOENT) {
+  if (rc == BK_ENOTFOUND) {
     printf("  evaluations    none recorded yet (%s is absent or empty)\n",
            lp.data);
   } else if (rc) {

@@ -440,7 +440,7 @@ static int submit(job_t *j) {
   int rc = prepare_folder(j, why, sizeof why);
   if (rc) {
     d->fatal = rc;
-    bk_error_set(&d->fatal_err, rc == -ENOSPC ? BK_ENOSPACE : rc, NULL, 0, 0,
+    bk_error_set(&d->fatal_err, rc == -ENOSPC ? BK_ENOSPC : rc, NULL, 0, 0,
                  "%s", why);
     return rc;
   }
@@ -555,8 +555,8 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
     snprintf(why, sizeof why, "%s", res->why);
   if (pt->fault != BK_FAULT_NONE && disk_full(j->dir)) {
     /* Not recorded: after space is freed the run is made again. */
-    d->fatal = BK_ENOSPACE;
-    bk_error_set(&d->fatal_err, BK_ENOSPACE, NULL, 0, 0,
+    d->fatal = BK_ENOSPC;
+    bk_error_set(&d->fatal_err, BK_ENOSPC, NULL, 0, 0,
                  "%s failed (%s) while the file system of %s has no space "
                  "left; the run is not recorded",
                  j->key, why, j->dir);

@@ -354,7 +354,7 @@ static int take_result(bk_mpi_coord_t *c, const char *prefix, bk_point_t *pts,
   }
   bk_free(m);
   if (r.bad && rc >= 0)
-    rc = bk_error_set(err, BK_EIO, NULL, 0, 0,
+    rc = bk_error_set(err, BK_EPROTO, NULL, 0, 0,
                       "a malformed message from MPI rank %d on %s (are all "
                       "ranks the same brink?)",
                       mst->MPI_SOURCE, w->host);
@@ -655,7 +655,7 @@ static void work_chunk(const bk_mpi_worker_opts_t *o, const char *m, int len) {
     get(&r, pts[k].x, nv * sizeof(double));
   }
   if (rc == 0 && r.bad)
-    rc = bk_error_set(&err, BK_EIO, NULL, 0, 0, "a malformed work message");
+    rc = bk_error_set(&err, BK_EPROTO, NULL, 0, 0, "a malformed work message");
   if (rc == 0 && n > 0) {
     watcher_t wt = {.done = 0};
     int th = pthread_create(&wt.th, NULL, watch, &wt);

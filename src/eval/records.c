@@ -1452,9 +1452,9 @@ int bk_records_append(bk_records_t *r, const bk_record_t *rec,
     if (ftruncate(r->fd, (off_t)end) != 0)
       r->broken = rc;
     if (rc == -ENOSPC || rc == -EDQUOT) {
-      bk_error_set(err, BK_ENOSPACE, NULL, 0, 0,
+      bk_error_set(err, BK_ENOSPC, NULL, 0, 0,
                    "cannot write records to %s: %s", r->path, strerror(-rc));
-      return BK_ENOSPACE;
+      return BK_ENOSPC;
     }
     return bk_error_set(err, rc, NULL, 0, 0, "cannot write records to %s: %s",
                         r->path, strerror(-rc));

@@ -86,7 +86,7 @@ int bk_records_find(bk_records_t *r, const char *key, bk_record_t *rec);
  * an append fsyncs when the last fsync is sync_interval or more ago, so
  * call bk_records_sync from a timer to bound the delay when appends are
  * rare. Returns 0, or a negative code (BK_EINVAL for a bad key or shape,
- * BK_ENOSPACE, -EIO, ...) with err set; the log then still ends on a
+ * BK_ENOSPC, -EIO, ...) with err set; the log then still ends on a
  * whole line. If that could not be ensured, or an fsync failed, every
  * later append fails too: the run must stop. */
 int bk_records_append(bk_records_t *r, const bk_record_t *rec, bk_error_t *err);

@@ -1435,7 +1435,7 @@ int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err) {
   size_t len = 0;
   int rc = read_file(path, &text, &len);
   if (rc)
-    return bk_error_set(err, rc == BK_ENOMEM ? BK_ENOMEM : BK_EIO, path, 0, 0,
+    return bk_error_set(err, rc == BK_ENOMEM ? BK_ENOMEM : BK_ESTUDY, path, 0, 0,
                         "cannot read the study file: %s", bk_strerror(rc));
   L.text = text;
   L.len = len;
