@@ -18,6 +18,7 @@
 
 #include "base/alloc.h"
 #include "base/fault.h"
+#include "methods/mctx.h"
 #include "methods/method_impl.h"
 #include "numerics/rng.h"
 #include "numerics/sampler.h"
@@ -32,22 +33,15 @@
 #define BATCH_MODEL     256u
 /* The most doubles of inputs held for one chunk (32 MiB), and the most
  * points of an in-process chunk (small enough to stay in cache). */
-#define CHUNK_DOUBLES (4u << 20)
+#define CHUNK_DOUBLES   (4u << 20)
 #define CHUNK_INPROCESS 2048u
-/* The error fraction limit is applied after this many evaluations. */
-#define MIN_FOR_ERROR_LIMIT 20
-
 typedef struct {
+  bk_mctx_t ctx;
   const bk_study_t *s;
-  bk_evaluator_t *ev;
-  const bk_method_opts_t *opts;
   bk_result_t *res;
   bk_error_t *err;
   size_t nu;
   size_t chunk;
-  bk_point_t *pts;
-  double *xs;
-  double *ys;
   double *u;
   /* Counts over the estimate's scope (the run or the current replicate). */
   uint64_t n, k, e;
@@ -59,36 +53,23 @@ typedef struct {
  * adding to the counts. */
 static int run_range(mc_t *m, const bk_sampler_t *sp, const char *prefix,
                      uint64_t from, uint64_t to) {
-  const bk_study_t *s = m->s;
-  size_t ny = s->model.noutputs;
+  bk_mctx_t *c = &m->ctx;
   while (from < to) {
-    size_t c = (size_t)((to - from) < m->chunk ? (to - from) : m->chunk);
-    for (size_t i = 0; i < c; i++) {
-      bk_point_t *p = &m->pts[i];
-      p->index = from + i;
-      p->x = m->xs + i * s->nvars;
-      p->y = ny ? m->ys + i * ny : NULL;
-      bk_sampler_point(sp, p->index, m->u);
+    size_t n = (size_t)((to - from) < m->chunk ? (to - from) : m->chunk);
+    for (size_t i = 0; i < n; i++) {
+      bk_sampler_point(sp, from + i, m->u);
       for (size_t d = 0; d < m->nu; d++)
         m->u[d] = bk_norm_icdf(m->u[d]);
-      bk_transform_u_to_x(s->transform, m->u, p->x);
-      p->g = NAN;
-      p->fault = BK_FAULT_NONE;
+      bk_mctx_set_u(c, i, from + i, m->u);
     }
-    int rc = m->ev->batch(m->ev, prefix, m->pts, c, m->err);
+    int rc = bk_mctx_evaluate(c, prefix, n);
     if (rc)
       return rc;
-    for (size_t i = 0; i < c; i++) {
-      const bk_point_t *p = &m->pts[i];
+    for (size_t i = 0; i < n; i++) {
+      const bk_point_t *p = &c->pts[i];
       if (p->fault != BK_FAULT_NONE) {
         m->e++;
         m->total_e++;
-        if (s->model.on_error == BK_ON_ERROR_ABORT)
-          return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
-                              "model error (%s) at %s/%llu and model.on_error "
-                              "is abort",
-                              bk_fault_name(p->fault), prefix,
-                              (unsigned long long)p->index);
       } else if (p->g <= 0) {
         m->k++;
         m->total_k++;
@@ -96,10 +77,7 @@ static int run_range(mc_t *m, const bk_sampler_t *sp, const char *prefix,
       m->n++;
       m->total_n++;
     }
-    m->res->evaluations = m->total_n;
-    from += c;
-    if (bk_stop_requested())
-      return BK_ESTOPPED;
+    from += n;
   }
   return 0;
 }
@@ -131,33 +109,6 @@ static void fill_common(mc_t *m) {
   }
 }
 
-/* At the end (`final`) the limit applies whatever the count; during the
- * run only after MIN_FOR_ERROR_LIMIT evaluations, so that one early crash
- * does not stop a study. */
-static int check_error_limit(mc_t *m, int final) {
-  const bk_model_t *md = &m->s->model;
-  if (m->total_n == 0 || (!final && m->total_n < MIN_FOR_ERROR_LIMIT))
-    return 0;
-  if (!md->present && m->total_e < m->total_n)
-    return 0;
-  double frac = (double)m->total_e / (double)m->total_n;
-  if (frac > md->max_error_fraction)
-    return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
-                        "%llu of %llu model runs failed (%.1f%%, above "
-                        "model.max_error_fraction %g); the records say why "
-                        "and the run folders are kept. Fix the model and "
-                        "run again to resume",
-                        (unsigned long long)m->total_e,
-                        (unsigned long long)m->total_n, 100 * frac,
-                        md->max_error_fraction);
-  return 0;
-}
-
-static void progress(mc_t *m, uint64_t planned) {
-  if (m->opts && m->opts->progress)
-    m->opts->progress(m->opts->progress_data, m->res, planned);
-}
-
 static int run_random(mc_t *m) {
   const bk_analysis_t *a = &m->s->analysis;
   bk_sampler_t sp;
@@ -183,9 +134,8 @@ static int run_random(mc_t *m) {
     fill_common(m);
     if ((rc = bk_result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
-    progress(m, total);
-    if ((rc = check_error_limit(m, 0)))
-      return rc;
+    m->ctx.planned = total;
+    bk_mctx_progress(&m->ctx);
     if (a->target_cov > 0 && r->est.cov <= a->target_cov) {
       r->stop_reason = "target_cov reached";
       break;
@@ -238,9 +188,8 @@ static int run_replicated(mc_t *m) {
     fill_common(m);
     if ((rc = bk_result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
-    progress(m, planned);
-    if ((rc = check_error_limit(m, 0)))
-      return rc;
+    m->ctx.planned = planned;
+    bk_mctx_progress(&m->ctx);
     /* The spread of fewer than four replicates says too little about the
      * error to stop on. */
     uint32_t min_reps = a->replicates < 4 ? a->replicates : 4;
@@ -258,21 +207,11 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
                   bk_error_t *err) {
   mc_t m;
   memset(&m, 0, sizeof m);
+  bk_mctx_init(&m.ctx, s, ev, opts, res, err);
   m.s = s;
-  m.ev = ev;
-  m.opts = opts;
   m.res = res;
   m.err = err;
-  m.nu = bk_transform_nu(s->transform);
-  if (m.nu == 0)
-    return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "every variable is a constant: there is nothing to "
-                        "sample; give at least one variable a distribution");
-  if (s->analysis.method == BK_METHOD_SOBOL && m.nu > BK_SOBOL_MAXDIM)
-    return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "sobol supports at most %d random variables (the "
-                        "study has %zu); use lhs or random",
-                        BK_SOBOL_MAXDIM, m.nu);
+  m.nu = m.ctx.nu;
   size_t nv = s->nvars ? s->nvars : 1;
   size_t batch = s->model.present ? BATCH_MODEL : BATCH_INPROCESS;
   m.chunk = CHUNK_DOUBLES / nv;
@@ -282,26 +221,22 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
     m.chunk = CHUNK_INPROCESS;
   if (m.chunk < 1)
     m.chunk = 1;
-  size_t ny = s->model.noutputs;
-  m.pts = bk_calloc(m.chunk, sizeof *m.pts);
-  m.xs = bk_calloc(m.chunk * s->nvars, sizeof *m.xs);
-  m.ys = ny ? bk_calloc(m.chunk * ny, sizeof *m.ys) : NULL;
-  m.u = bk_calloc(m.nu, sizeof *m.u);
+  m.u = bk_calloc(m.nu ? m.nu : 1, sizeof *m.u);
   int rc;
-  if (!m.pts || !m.xs || (ny && !m.ys) || !m.u) {
+  if (!m.u) {
     rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
     goto out;
   }
+  if ((rc = bk_mctx_reserve(&m.ctx, m.chunk)))
+    goto out;
   if (s->analysis.method == BK_METHOD_RANDOM)
     rc = run_random(&m);
   else
     rc = run_replicated(&m);
   if (rc == 0)
-    rc = check_error_limit(&m, 1);
+    rc = bk_mctx_finish(&m.ctx);
 out:
-  bk_free(m.pts);
-  bk_free(m.xs);
-  bk_free(m.ys);
+  bk_mctx_close(&m.ctx);
   bk_free(m.u);
   return rc;
 }
