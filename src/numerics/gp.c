@@ -18,7 +18,7 @@
  *           parameter phi of C. With a profile sigma2 this holds as well:
  *           n sigma2 is a minimum over beta, whose derivative is
  *           -a^T (dC/dphi) a (envelope theorem), which gives the same
- *           expression (Rasmussen & Williams 2006, eq. 5.9, is the case
+ *           expression (Rasmussen & Williams 2006, eq. 5.9 from memory, is the case
  *           without trend). For phi = log length_j and Matern 5/2,
  *           dR/dphi = (5/3) (1 + sqrt(5) r) exp(-sqrt(5) r) dv_j^2 with
  *           dv_j the j-th difference of the scaled inputs u / length; for
@@ -43,7 +43,7 @@
  * H = L^-T Ft RF^-1.
  *
  * Safety: the inputs must be finite; a Cholesky factorisation that fails
- * is retried with jitter 1e-10, 1e-9, ... 1e-5 (relative to sigma2) added
+ * is retried with jitter 1e-10, 1e-9, ... 1e-6 (relative to sigma2) added
  * to the nugget, then the fit fails with BK_ERANGE. Every result is checked
  * for finiteness before it is returned.
  *

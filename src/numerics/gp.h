@@ -16,11 +16,17 @@
  *   Matern 5/2:         R = (1 + sqrt(5) r + 5 r^2 / 3) exp(-sqrt(5) r)
  *   squared exponential: R = exp(-r^2 / 2)
  * (Rasmussen & Williams 2006, Gaussian Processes for Machine Learning,
- * eq. 4.17 and 4.9). The nugget is relative to sigma2, so that beta (by
- * generalised least squares) and sigma2 have closed forms for given
- * lengths and nugget, and the likelihood is maximised over those alone
- * (the concentrated or profile likelihood, Santner et al. 2003 section
- * 3.3.2).
+ * eq. 4.17 and 4.9, numbers from memory). The nugget is relative to sigma2, so
+ * that beta (by generalised least squares) and sigma2 have closed forms for
+ * given lengths and nugget, and the likelihood is maximised over those alone
+ * (the concentrated or profile likelihood, Santner et al. 2003, section
+ * 3.3, from memory).
+ *
+ * Scaling: the values y are centred (when the trend has a constant) and
+ * divided by their spread inside the fit, which changes nothing but
+ * rounding; the inputs are standard normal variables already and are not
+ * rescaled, but the bounds of the length scales are relative to the range
+ * of the training points in each dimension.
  *
  * Determinism: every fit and prediction is a pure function of its inputs,
  * bit for bit, on a given machine: the optimiser starts from a fixed list
@@ -119,7 +125,7 @@ void bk_gp_options_default(bk_gp_options_t *o);
  * BK_ENOMEM, or BK_ERANGE
  * (all values y equal with a free sigma2, the trend not identifiable from
  * the points, or a covariance matrix not positive definite even after
- * adding jitter up to 1e-5 sigma2). */
+ * adding jitter up to 1e-6 sigma2). */
 int bk_gp_new(bk_gp_t **out, const double *u, const double *y, size_t n,
               size_t d, const bk_gp_options_t *opt);
 
@@ -130,14 +136,17 @@ void bk_gp_free(bk_gp_t *gp);
  * (row-major, m x d). `var` may be NULL when only the mean is wanted (much
  * cheaper: O(n) per point instead of O(n^2)). For universal and ordinary
  * Kriging the variance includes the uncertainty of beta (see gp.c). Variances
- * that round below zero are returned as 0. Returns 0, BK_ENOMEM, or BK_ERANGE
+ * that round below zero are returned as 0. A point's mean has the same bits
+ * whatever other points share the call; its variance may differ in the last
+ * bits with its place in the call (BLAS level-3 blocking), while the same
+ * call always gives the same bits. Returns 0, BK_ENOMEM, or BK_ERANGE
  * when a result is not finite (then the outputs are unspecified). */
 int bk_gp_predict(const bk_gp_t *gp, const double *u, size_t m, double *mean,
                   double *var);
 
 /* Leave-one-out residuals in closed form (Dubrule 1983, Mathematical
- * Geology 15(6):687-699): resid[i] = y_i - (prediction at u_i of the
- * process refitted without point i, with the same lengths, nugget and
+ * Geology 15(6):687-699, from memory): resid[i] = y_i - (prediction at u_i of
+ * the process refitted without point i, with the same lengths, nugget and
  * sigma2, beta re-estimated), and var[i] the variance of that residual
  * (the nugget noise included), so resid[i] / sqrt(var[i]) is a standard
  * normal under the model. Either output may be NULL. Returns 0, BK_ENOMEM
