@@ -367,3 +367,44 @@ Test(learn, alpha_rejects_impossible_samples) {
   double y[2] = {-1, 1}, m[2] = {2, 1}, sd[2] = {0, 1};
   cr_assert(isinf(bk_learn_alpha_loo(y, m, sd, 2)));
 }
+
+/* Every allocation failure in k-means, alpha and the believer gives
+ * BK_ENOMEM and leaks nothing (ASan checks the leaks). */
+Test(learn, out_of_memory_fails_cleanly) {
+  double x[40], w[20], y[6], c[6];
+  for (int i = 0; i < 20; i++) {
+    x[2 * i] = bk_norm_icdf(bk_rng_u01(3, 1, (uint64_t)i, 0));
+    x[2 * i + 1] = bk_norm_icdf(bk_rng_u01(3, 1, (uint64_t)i, 1));
+    w[i] = 1 + i % 3;
+  }
+  for (int i = 0; i < 6; i++)
+    y[i] = 1 - x[2 * i];
+  size_t pick[3];
+  int fail[20] = {1, 0, 1};
+  bk_learn_est_t a;
+  double len[2] = {1, 1};
+  bk_gp_options_t o;
+  bk_gp_options_default(&o);
+  o.lengths = len;
+  bk_gp_t *gp;
+  cr_assert_eq(bk_gp_new(&gp, x, y, 6, 2, &o), 0);
+  int failures = 0;
+  for (long k = 1;; k++) {
+    bk_alloc_fail_at(k);
+    int r1 = bk_learn_kmeans(x, w, 20, 2, 3, 50, c, pick, NULL);
+    bk_alloc_fail_at(k);
+    int r2 = bk_learn_alpha(fail, w, 20, &a);
+    bk_alloc_fail_at(k);
+    int r3 = bk_learn_believer(gp, x, y, x + 12, 14, 3, pick);
+    bk_alloc_fail_at(0);
+    cr_assert(r1 > 0 || r1 == BK_ENOMEM);
+    cr_assert(r2 == 0 || r2 == BK_ENOMEM);
+    cr_assert(r3 == 0 || r3 == BK_ENOMEM);
+    if (r1 > 0 && r2 == 0 && r3 == 0)
+      break;
+    failures++;
+    cr_assert_lt(k, 1000);
+  }
+  cr_assert_gt(failures, 5);
+  bk_gp_free(gp);
+}
