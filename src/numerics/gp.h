@@ -122,10 +122,9 @@ void bk_gp_options_default(bk_gp_options_t *o);
  * form. The data are copied. On success *out is the new process and 0 is
  * returned; otherwise *out is NULL and the code is BK_EINVAL (n or d zero,
  * d above BK_GP_MAXDIM, a non-finite input, n not above p, bad options),
- * BK_ENOMEM, or BK_ERANGE
- * (all values y equal with a free sigma2, the trend not identifiable from
- * the points, or a covariance matrix not positive definite even after
- * adding jitter up to 1e-6 sigma2). */
+ * BK_ENOMEM, or BK_ERANGE (all values y equal with a free sigma2, the trend
+ * not identifiable from the points, or a covariance matrix not positive
+ * definite even after adding jitter up to 1e-6 sigma2). */
 int bk_gp_new(bk_gp_t **out, const double *u, const double *y, size_t n,
               size_t d, const bk_gp_options_t *opt);
 
