@@ -1500,7 +1500,7 @@ static int load_run(loader_t *L, yaml_node_t *rn) {
   if (rn && (n = lookup(L, rn, "scratch")) &&
       (rc = want_text(L, n, "run.scratch", &scratch)))
     return rc;
-  r->scratch = bk_strdup(scratch);
+  r->scratch = scratch[0] ? resolve_path(L->s->dir, scratch) : bk_strdup("");
   return r->scratch ? 0 : nomem(L);
 }
 
