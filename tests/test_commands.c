@@ -347,6 +347,53 @@ Test(commands, init_writes_starter_studies_that_check) {
   cr_assert_eq(brink("init x --nonsense"), 2);
 }
 
+/* The manual page and the top-level help agree with each command's own
+ * --help: every option a command's help names (each word starting with
+ * '-') is in brink.1, and the top-level help shows each command with the
+ * argument its usage line gives. */
+Test(commands, manual_and_top_level_help_match_each_command) {
+  const char *cmds[] = {"run",  "check", "report", "status", "export",
+                        "init", "plan",  "submit", "merge"};
+  char p[700];
+  snprintf(p, sizeof p, "%s/brink.1", env("BRINK_SOURCE_ROOT"));
+  FILE *f = fopen(p, "r");
+  cr_assert(f, "%s", p);
+  static char man[1 << 16];
+  size_t n = fread(man, 1, sizeof man - 1, f);
+  fclose(f);
+  man[n] = '\0';
+  /* roff writes '-' as "\-" */
+  char *w = man;
+  for (char *r = man; *r; r++)
+    if (!(r[0] == '\\' && r[1] == '-'))
+      *w++ = *r;
+  *w = '\0';
+  cr_assert_eq(brink("--help"), 0);
+  char top[8192];
+  snprintf(top, sizeof top, "%s", read_file("out.txt"));
+  for (size_t i = 0; i < sizeof cmds / sizeof cmds[0]; i++) {
+    char a[64];
+    snprintf(a, sizeof a, "%s --help", cmds[i]);
+    cr_assert_eq(brink(a), 0, "%s", cmds[i]);
+    char *help = read_file("out.txt");
+    /* "usage: brink CMD ARG ..." */
+    char arg[64] = "";
+    cr_assert_eq(sscanf(help, "usage: brink %*s %63s", arg), 1, "%s", help);
+    arg[strcspn(arg, "|")] = '\0';
+    char want[160];
+    snprintf(want, sizeof want, "  %s %s", cmds[i], arg);
+    cr_assert(strstr(top, want), "top-level help lacks '%s':\n%s", want, top);
+    for (const char *q = help; (q = strstr(q, " -")) != NULL; q++) {
+      char opt[64];
+      if (sscanf(q + 1, "%63[-a-z]", opt) != 1 || strlen(opt) < 2 ||
+          strcmp(opt, "--") == 0)
+        continue;
+      cr_assert(strstr(man, opt), "brink.1 lacks %s of `brink %s`", opt,
+                cmds[i]);
+    }
+  }
+}
+
 Test(commands, every_command_has_help) {
   const char *cmds[] = {"run",  "check", "report", "status", "export",
                         "init", "plan",  "submit", "merge"};
