@@ -286,6 +286,68 @@ Test(commands, status_while_a_run_is_in_progress) {
   cr_assert(strstr(out, "model errors   0"), "%s", out);
 }
 
+/* A run folder whose study cannot be found: status says so plainly and
+ * how to point it to the study, and shows no estimate (the method, and so
+ * what failures / runs means, is unknown). */
+Test(commands, status_without_the_study_says_so) {
+  write_model_study("ok", "method: random, samples: 12", "");
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(sh("mkdir -p far/a/b/c && mv out/linear far/a/b/c/run && "
+                  "rm far/a/b/c/run/report.json"),
+               0);
+  cr_assert_eq(brink("status far/a/b/c/run"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, "Run folder far/a/b/c/run\n"
+                        "  study          not found: no report.json here "
+                        "names it, and no *.yaml up to\n"
+                        "                 three folders above has this run "
+                        "folder; give it as\n"
+                        "                 `brink status STUDY.yaml` for the "
+                        "plan, the estimate and the\n"
+                        "                 time to go\n"),
+            "%s", out);
+  cr_assert(strstr(out, "evaluations    12 recorded"), "%s", out);
+  cr_assert(!strstr(out, "estimate Pf"), "%s", out);
+  /* With the study, the sampling estimate is shown. */
+  cr_assert_eq(sh("mv far/a/b/c/run out/linear"), 0);
+  cr_assert_eq(brink("status study.yaml"), 0, "%s", read_file("err.txt"));
+  out = read_file("out.txt");
+  cr_assert(strstr(out, "Study linear, folder "), "%s", out);
+  cr_assert(strstr(out, "running estimate Pf = "), "%s", out);
+}
+
+/* --mode array runs `brink run --shard`, which refuses a study without a
+ * model section: submit refuses it first, before it writes anything. */
+Test(commands, submit_array_needs_a_model_section) {
+  write_file("s.yaml", "variables: {a: {type: normal, mean: 3, sd: 1}}\n"
+                       "limit_state: a\n"
+                       "analysis: {method: random, samples: 10}\n"
+                       "run: {folder: out/s}\n");
+  cr_assert_eq(brink("submit s.yaml --scheduler slurm --mode array"), 2);
+  cr_assert(strstr(read_file("err.txt"),
+                   "brink: submit: --mode array runs brink run --shard, "
+                   "which needs a study with a model section"),
+            "%s", read_file("err.txt"));
+  cr_assert_neq(sh("test -e out"), 0, "a run folder was made");
+}
+
+/* submit --go reads the job id from the scheduler's first line, however
+ * much the scheduler prints after it (a full pipe must not block it). */
+Test(commands, submit_go_takes_the_first_line_of_a_talkative_scheduler) {
+  write_model_study("ok", "method: random, samples: 10", "");
+  cr_assert_eq(sh("mkdir bin && printf '#!/bin/sh\\necho \"4242;c1\"\\n"
+                  "head -c 300000 /dev/zero | tr \"\\\\0\" x\\n' "
+                  "> bin/sbatch && chmod +x bin/sbatch"),
+               0);
+  int rc = sh("PATH=\"$PWD/bin:$PATH\" '%s' submit study.yaml --scheduler "
+              "slurm --go >out.txt 2>err.txt </dev/null",
+              env("BRINK_EXE"));
+  cr_assert_eq(rc, 0, "%s", read_file("err.txt"));
+  cr_assert_str_eq(read_file("out.txt"), "4242\n");
+  cr_assert(strstr(read_file("err.txt"), "as job 4242"), "%s",
+            read_file("err.txt"));
+}
+
 Test(commands, check_try_with_a_model_that_works) {
   write_model_study("ok", "method: random, samples: 10", "");
   cr_assert_eq(brink("check study.yaml --try"), 0, "%s%s", read_file("out.txt"),
