@@ -576,6 +576,23 @@ Test(badinput, model_files_that_cannot_go_into_a_run_folder) {
                           "'mesh.inp' and 'b/mesh.inp' would both be copied "
                           "as 'mesh.inp' into each run folder; give each "
                           "file its own name"));
+  /* A program run from the run folder must be a file that goes there. */
+  write_study("command: ['", "command: [./solve.sh, '");
+  refused_by_both(located(8, "./solve.sh",
+                          "program './solve.sh' is run from each run folder, "
+                          "but no file named 'solve.sh' goes there; add it "
+                          "to model.copy, or give the program's full path"));
+  write_study("command: ['", "command: [./in.txt, '");
+  refused_by_both(located(8, "./in.txt",
+                          "program './in.txt' is the deck rendered from "
+                          "'deck.txt', which is written without execute "
+                          "permission; run it through its interpreter, e.g. "
+                          "command: [sh, in.txt]"));
+  write_study("command: ['", "command: [bin/solve, '");
+  refused_by_both(located(8, "bin/solve",
+                          "program 'bin/solve' would be looked for in a "
+                          "subfolder of each run folder, and run folders "
+                          "have none; give its full path"));
   /* Were already load-time checks; `check` refuses them too. */
   write_study("  command:", "  copy: [nosuch.inp]\n  command:");
   refused_by_both(located(8, "nosuch.inp",

@@ -864,6 +864,40 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
   return 0;
 }
 
+/* A relative program path with a '/' is resolved in each run folder, which
+ * holds only the decks and the copied files, without subfolders: unless it
+ * climbs out with "..", it must name a copied file ("./run.sh"). A deck
+ * cannot be run, as it is written without execute permission. */
+static int check_run_folder_program(loader_t *L, yaml_node_t *n,
+                                    const char *prog) {
+  const bk_model_t *m = &L->s->model;
+  const char *name = prog;
+  while (strncmp(name, "./", 2) == 0)
+    name += 2;
+  if (strncmp(name, "../", 3) == 0)
+    return 0;
+  if (strchr(name, '/'))
+    return FAIL(L, n,
+                "program '%s' would be looked for in a subfolder of each run "
+                "folder, and run folders have none; give its full path",
+                prog);
+  for (size_t i = 0; i < m->ndecks; i++)
+    if (strcmp(m->decks[i].to, name) == 0)
+      return FAIL(L, n,
+                  "program '%s' is the deck rendered from '%s', which is "
+                  "written without execute permission; run it through its "
+                  "interpreter, e.g. command: [sh, %s]",
+                  prog, m->decks[i].template_name, name);
+  for (size_t i = 0; i < m->ncopy; i++)
+    if (strcmp(base_name(m->copy[i]), name) == 0)
+      return 0;
+  return FAIL(L, n,
+              "program '%s' is run from each run folder, but no file named "
+              "'%s' goes there; add it to model.copy, or give the program's "
+              "full path",
+              prog, name);
+}
+
 /* A program named without a '/' must be on PATH, and an absolute path
  * must be an executable file; a relative path with a '/' is resolved in
  * each run folder (e.g. a script copied there) and checked at run time. */
@@ -874,7 +908,7 @@ static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
     return 0;
   }
   if (strchr(prog, '/'))
-    return 0;
+    return check_run_folder_program(L, n, prog);
   const char *path = getenv("PATH");
   if (!path || !*path)
     path = "/usr/local/bin:/usr/bin:/bin";
