@@ -580,8 +580,10 @@ Test(badinput, model_files_that_cannot_go_into_a_run_folder) {
   write_study("command: ['", "command: [./solve.sh, '");
   refused_by_both(located(8, "./solve.sh",
                           "program './solve.sh' is run from each run folder, "
-                          "but no file named 'solve.sh' goes there; add it "
-                          "to model.copy, or give the program's full path"));
+                          "but no file named 'solve.sh' goes there; give "
+                          "the program's full path, or copy it with "
+                          "model.copy and run it through its interpreter, "
+                          "e.g. command: [sh, solve.sh]"));
   write_study("command: ['", "command: [./in.txt, '");
   refused_by_both(located(8, "./in.txt",
                           "program './in.txt' is the deck rendered from "

@@ -893,9 +893,10 @@ static int check_run_folder_program(loader_t *L, yaml_node_t *n,
       return 0;
   return FAIL(L, n,
               "program '%s' is run from each run folder, but no file named "
-              "'%s' goes there; add it to model.copy, or give the program's "
-              "full path",
-              prog, name);
+              "'%s' goes there; give the program's full path, or copy it "
+              "with model.copy and run it through its interpreter, e.g. "
+              "command: [sh, %s]",
+              prog, name, name);
 }
 
 /* A program named without a '/' must be on PATH, and an absolute path
