@@ -152,13 +152,15 @@ Test(run_model, missing_program_and_missing_output_file) {
             "%s", read_file("err.txt"));
   cr_assert(!exists("sp"));
   free(fixed);
-  /* Found at load time but not runnable from the run folder: a
-   * spawn-failed fault for every run. */
+  /* A path relative to the run folder that leaves it cannot be checked
+   * at load time (the model's folders are made at run time): a
+   * spawn-failed fault for every run. (One inside the run folder must
+   * name a copied file: docs/study-file.md, tests/test_badinput.c.) */
   write_study("r.yaml", "sp2", "random", 2, "ok", "");
   t = read_file("r.yaml");
   at = strstr(t, env("BRINK_TEST_MODEL"));
   fixed = malloc(strlen(t) + 64);
-  snprintf(fixed, strlen(t) + 64, "%.*s./missing/solver%s", (int)(at - t), t,
+  snprintf(fixed, strlen(t) + 64, "%.*s../missing/solver%s", (int)(at - t), t,
            at + strlen(env("BRINK_TEST_MODEL")));
   write_file("r.yaml", "%s", fixed);
   cr_assert_eq(brink("run r.yaml"), 1);
