@@ -47,7 +47,7 @@ static void teardown(void) {
   itest_teardown();
 }
 
-TestSuite(badinput, .init = itest_setup, .fini = teardown, .timeout = 120);
+TestSuite(badinput, .init = itest_setup, .fini = teardown);
 
 /* A good study of two normal inputs through the test model, with `subst`
  * replacing the text `from` (when given) to spoil it. */
@@ -356,4 +356,273 @@ Test(badinput, fuzz_regressions_and_seeds_replay_cleanly) {
   char cmd[200];
   snprintf(cmd, sizeof cmd, "rm -rf /tmp/bk-fuzz-*-%ld*", (long)getpid());
   cr_assert_eq(system(cmd), 0);
+}
+
+/* ---- checks made at load time --------------------------------------- */
+
+/* What brink prints for an error on line LINE of s.yaml at the first
+ * `token` of that line: the location and message, the line itself and a
+ * caret under the token. */
+static const char *located(int line, const char *token, const char *msg) {
+  char *text = read_file("s.yaml");
+  const char *p = text;
+  for (int i = 1; i < line; i++) {
+    p = strchr(p, '\n');
+    cr_assert(p, "s.yaml has no line %d", line);
+    p++;
+  }
+  size_t len = strcspn(p, "\n");
+  const char *at = strstr(p, token);
+  cr_assert(at && at < p + len, "'%s' is not on line %d", token, line);
+  int col = (int)(at - p) + 1;
+  static char want[8192];
+  snprintf(want, sizeof want, "brink: s.yaml:%d:%d: %s\n  %.*s\n  %*s^\n", line,
+           col, msg, (int)len, p, col - 1, "");
+  return want;
+}
+
+/* Both `check` and `run` refuse s.yaml with exit 2 and exactly `want` on
+ * stderr, and neither makes the run folder `out`. */
+static void refused_by_both(const char *want) {
+  static const char *const cmds[] = {"check s.yaml", "run s.yaml"};
+  for (int i = 0; i < 2; i++) {
+    int rc = brink(cmds[i]);
+    char *err = read_file("err.txt");
+    cr_assert_eq(rc, 2, "%s: exit %d: %s", cmds[i], rc, err);
+    cr_assert_str_eq(err, want, "%s", cmds[i]);
+    cr_assert_str_eq(read_file("out.txt"), "", "%s", cmds[i]);
+    cr_assert(!exists("out"), "%s made a run folder", cmds[i]);
+  }
+}
+
+/* An in-process study of `vars` (a YAML flow mapping) with `analysis`. */
+static void write_plain(const char *vars, const char *analysis) {
+  write_file("s.yaml",
+             "name: plain\n"
+             "variables: %s\n"
+             "limit_state: \"3 - a\"\n"
+             "analysis: %s\n"
+             "run: {folder: out}\n",
+             vars, analysis);
+}
+
+#define ONE_VAR "{a: {type: normal, mean: 0, sd: 1}, c: 2}"
+
+Test(badinput, every_variable_constant_is_refused_for_every_method) {
+  static const char *const analyses[] = {
+      "{method: random, samples: 10}",
+      "{method: lhs, samples: 10}",
+      "{method: sobol, samples: 16}",
+      "{method: form}",
+      "{method: importance}",
+      "{method: cross-entropy}",
+      "{method: subset}",
+  };
+  static const char *const names[] = {"random", "lhs",        "sobol",
+                                      "form",   "importance", "cross-entropy",
+                                      "subset"};
+  for (int i = 0; i < 7; i++) {
+    write_plain("{a: 1, c: {type: constant, value: 2}}", analyses[i]);
+    char msg[300];
+    snprintf(msg, sizeof msg,
+             "every variable is a constant, so method %s has nothing random "
+             "to work on; give at least one variable a distribution",
+             names[i]);
+    refused_by_both(located(2, "variables", msg));
+  }
+}
+
+Test(badinput, sobol_with_more_variables_than_its_table) {
+  /* BK_SOBOL_MAXDIM (21201) + 1 random variables. */
+  char *vars = malloc(21202 * 48 + 16);
+  size_t n = (size_t)sprintf(vars, "{");
+  for (int i = 0; i <= 21201; i++)
+    n += (size_t)sprintf(vars + n, "%sa%d: {type: normal, mean: 0, sd: 1}",
+                         i ? ", " : "", i);
+  sprintf(vars + n, "}");
+  write_file("s.yaml",
+             "variables: %s\n"
+             "limit_state: \"3 - a0\"\n"
+             "analysis: {method: sobol, samples: 16}\n"
+             "run: {folder: out}\n",
+             vars);
+  free(vars);
+  refused_by_both(located(3, "sobol",
+                          "sobol supports at most 21201 random variables "
+                          "(the study has 21202); use lhs or random"));
+}
+
+Test(badinput, sobol_with_more_points_per_replicate_than_its_indices) {
+  write_plain(ONE_VAR, "{method: sobol, samples: 1e10, replicates: 2}");
+  refused_by_both(located(
+      4, "1e10",
+      "sobol takes at most 4294967296 points per replicate (got 5000000000: "
+      "analysis.samples 10000000000 over 2 replicates); give more "
+      "replicates or fewer samples"));
+}
+
+Test(badinput, lhs_max_evaluations_below_one_replicate) {
+  write_plain(ONE_VAR, "{method: lhs, samples: 100, replicates: 4, "
+                       "max_evaluations: 10}");
+  refused_by_both(located(
+      4, "10}",
+      "analysis.max_evaluations (10) is below one replicate (25 points: "
+      "analysis.samples 100 over 4 replicates), so nothing would run; raise "
+      "it"));
+}
+
+Test(badinput, form_max_evaluations_below_one_iteration) {
+  write_plain(ONE_VAR, "{method: form, max_evaluations: 1}");
+  refused_by_both(
+      located(4, "1}",
+              "analysis.max_evaluations (1) is below one FORM iteration (2 "
+              "evaluations: the point and its forward differences), so the "
+              "design-point search cannot start; raise it"));
+  /* Importance sampling without a centre searches it with FORM. */
+  write_plain(ONE_VAR, "{method: importance, max_evaluations: 2, "
+                       "form: {differences: central}}");
+  refused_by_both(
+      located(4, "2,",
+              "analysis.max_evaluations (2) is below one FORM iteration (3 "
+              "evaluations: the point and its central differences), so the "
+              "design-point search cannot start; raise it"));
+}
+
+Test(badinput, importance_center_outside_the_distribution) {
+  write_plain("{a: {type: lognormal, mean: 3, sd: 1}}",
+              "{method: importance, importance: {center: {a: -1}}}");
+  refused_by_both(located(4, "-1",
+                          "analysis.importance.center: a = -1 lies outside "
+                          "the range of its lognormal distribution; give a "
+                          "value it can take"));
+}
+
+Test(badinput, cross_entropy_needs_two_samples_and_room_for_two_batches) {
+  write_plain(ONE_VAR, "{method: cross-entropy, samples: 1}");
+  refused_by_both(located(4, "1}",
+                          "cross-entropy needs analysis.samples of at least "
+                          "2 (points per step)"));
+  write_plain(ONE_VAR, "{method: cross-entropy, samples: 100, "
+                       "max_evaluations: 150}");
+  refused_by_both(located(
+      4, "150}",
+      "analysis.max_evaluations (150) leaves no room for cross-entropy "
+      "with 100 points per step: one adaptation step and one final batch "
+      "need 200; raise it"));
+  /* The default max_evaluations (200000): the error points at samples. */
+  write_plain(ONE_VAR, "{method: cross-entropy, samples: 150000}");
+  refused_by_both(located(
+      4, "150000}",
+      "analysis.max_evaluations (200000, the default) leaves no room for "
+      "cross-entropy with 150000 points per step: one adaptation step and "
+      "one final batch need 300000; give a larger analysis.max_evaluations "
+      "or fewer samples"));
+}
+
+Test(badinput, subset_needs_seeds_and_room_for_one_level) {
+  write_plain(ONE_VAR, "{method: subset, samples: 4}");
+  refused_by_both(
+      located(4, "4}",
+              "subset simulation needs analysis.samples * analysis.subset.p0 "
+              "between 1 and the samples (got 4 samples, p0 0.1); give more "
+              "samples"));
+  write_plain(ONE_VAR, "{method: subset, samples: 1, subset: {p0: 0.5}}");
+  refused_by_both(
+      located(4, "1,",
+              "subset simulation needs analysis.samples * analysis.subset.p0 "
+              "between 1 and the samples (got 1 samples, p0 0.5); give more "
+              "samples"));
+  write_plain(ONE_VAR, "{method: subset, samples: 100, max_evaluations: 50}");
+  refused_by_both(
+      located(4, "50}",
+              "analysis.max_evaluations (50) is below one level of subset "
+              "simulation (analysis.samples, 100 points); raise it"));
+}
+
+/* The model section: files that brink writes into each run folder. */
+Test(badinput, model_files_that_cannot_go_into_a_run_folder) {
+  char p[600];
+  snprintf(p, sizeof p, "%s/adir", dir);
+  cr_assert_eq(mkdir(p, 0755), 0);
+  write_file("mesh.inp", "*NODE\n");
+  write_study("  command:", "  copy: [adir]\n  command:");
+  refused_by_both(located(8, "adir",
+                          "'adir' is a folder; model.copy takes files (name "
+                          "each file the model needs)"));
+  write_study("to: in.txt}", "to: sub/in.txt}");
+  refused_by_both(located(7, "sub/in.txt",
+                          "'sub/in.txt' must be a plain file name: decks are "
+                          "written at the top of each run folder, which has "
+                          "no subfolders"));
+  write_study("to: in.txt}]", "to: in.txt}, {template: deck.txt, to: in.txt}]");
+  refused_by_both(located(7, "in.txt}]",
+                          "two files named 'in.txt' go into each run folder "
+                          "(the deck from 'deck.txt' is one); give each its "
+                          "own name"));
+  write_study("to: in.txt}", "to: stdout}");
+  refused_by_both(located(7, "stdout",
+                          "'stdout' is the file brink captures the model's "
+                          "standard output into; choose another name"));
+  write_study("to: in.txt}]\n", "to: mesh.inp}]\n  copy: [mesh.inp]\n");
+  refused_by_both(located(8, "mesh.inp]",
+                          "two files named 'mesh.inp' go into each run "
+                          "folder (the deck from 'deck.txt' is one); give "
+                          "each its own name"));
+  snprintf(p, sizeof p, "%s/b", dir);
+  cr_assert_eq(mkdir(p, 0755), 0);
+  write_file("b/mesh.inp", "*NODE\n");
+  write_study("  command:", "  copy: [mesh.inp, b/mesh.inp]\n  command:");
+  refused_by_both(located(8, "b/mesh.inp",
+                          "'mesh.inp' and 'b/mesh.inp' would both be copied "
+                          "as 'mesh.inp' into each run folder; give each "
+                          "file its own name"));
+  /* A program run from the run folder must be a file that goes there. */
+  write_study("command: ['", "command: [./solve.sh, '");
+  refused_by_both(located(8, "./solve.sh",
+                          "program './solve.sh' is run from each run folder, "
+                          "but no file named 'solve.sh' goes there; give "
+                          "the program's full path, or copy it with "
+                          "model.copy and run it through its interpreter, "
+                          "e.g. command: [sh, solve.sh]"));
+  write_study("command: ['", "command: [./in.txt, '");
+  refused_by_both(located(8, "./in.txt",
+                          "program './in.txt' is the deck rendered from "
+                          "'deck.txt', which is written without execute "
+                          "permission; run it through its interpreter, e.g. "
+                          "command: [sh, in.txt]"));
+  write_study("command: ['", "command: [bin/solve, '");
+  refused_by_both(located(8, "bin/solve",
+                          "program 'bin/solve' would be looked for in a "
+                          "subfolder of each run folder, and run folders "
+                          "have none; give its full path"));
+  /* Were already load-time checks; `check` refuses them too. */
+  write_study("  command:", "  copy: [nosuch.inp]\n  command:");
+  refused_by_both(located(8, "nosuch.inp",
+                          "cannot find 'nosuch.inp' to copy into each run "
+                          "folder"));
+  write_study("template: deck.txt", "template: nosuch.txt");
+  refused_by_both(located(7, "nosuch.txt",
+                          "cannot read template 'nosuch.txt': no such file "
+                          "or directory"));
+}
+
+/* --shard refusals depend on the study and the option: they come before
+ * anything is written. */
+Test(badinput, shard_refusals_write_nothing) {
+  write_plain(ONE_VAR, "{method: form}");
+  int rc = brink("run s.yaml --shard 0/2");
+  char *err = read_file("err.txt");
+  cr_assert_eq(rc, 2, "exit %d: %s", rc, err);
+  cr_assert(strstr(err, "brink: --shard works with the sampling methods "
+                        "(random, lhs, sobol) only: form chooses"),
+            "%s", err);
+  cr_assert(!exists("out"));
+  write_plain(ONE_VAR, "{method: random, samples: 10}");
+  rc = brink("run s.yaml --shard 0/2");
+  err = read_file("err.txt");
+  cr_assert_eq(rc, 2, "exit %d: %s", rc, err);
+  cr_assert_str_eq(err, "brink: --shard needs a study with a model section "
+                        "(without one, a study runs in process and keeps no "
+                        "records to merge)\n");
+  cr_assert(!exists("out"));
 }

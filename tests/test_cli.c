@@ -27,7 +27,7 @@ static void teardown(void) {
   cr_assert_eq(system(cmd), 0);
 }
 
-TestSuite(cli, .init = setup, .fini = teardown, .timeout = 120);
+TestSuite(cli, .init = setup, .fini = teardown);
 
 static const char *exe(void) {
   const char *e = getenv("BRINK_EXE");

@@ -35,7 +35,7 @@ static void teardown(void) {
   cr_assert_eq(system(cmd), 0);
 }
 
-TestSuite(commands, .init = setup, .fini = teardown, .timeout = 300);
+TestSuite(commands, .init = setup, .fini = teardown);
 
 static const char *env(const char *name) {
   const char *e = getenv(name);
@@ -253,8 +253,7 @@ Test(commands, status_while_a_run_is_in_progress) {
     execl("/bin/sh", "sh", "-c", cmd, (char *)NULL);
     _exit(127);
   }
-  /* Wait (bounded by the test's timeout, not by a clock) for the first
-   * records, then ask. */
+  /* Wait for the first records (at most 2000 polls), then ask. */
   int seen = 0;
   for (int i = 0; i < 2000 && !seen; i++) {
     char *l = read_file("out/linear/records.log");
@@ -285,6 +284,68 @@ Test(commands, status_while_a_run_is_in_progress) {
   cr_assert(strstr(out, "finished"), "%s", out);
   cr_assert(strstr(out, "24 of 24 planned"), "%s", out);
   cr_assert(strstr(out, "model errors   0"), "%s", out);
+}
+
+/* A run folder whose study cannot be found: status says so plainly and
+ * how to point it to the study, and shows no estimate (the method, and so
+ * what failures / runs means, is unknown). */
+Test(commands, status_without_the_study_says_so) {
+  write_model_study("ok", "method: random, samples: 12", "");
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(sh("mkdir -p far/a/b/c && mv out/linear far/a/b/c/run && "
+                  "rm far/a/b/c/run/report.json"),
+               0);
+  cr_assert_eq(brink("status far/a/b/c/run"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, "Run folder far/a/b/c/run\n"
+                        "  study          not found: no report.json here "
+                        "names it, and no *.yaml up to\n"
+                        "                 three folders above has this run "
+                        "folder; give it as\n"
+                        "                 `brink status STUDY.yaml` for the "
+                        "plan, the estimate and the\n"
+                        "                 time to go\n"),
+            "%s", out);
+  cr_assert(strstr(out, "evaluations    12 recorded"), "%s", out);
+  cr_assert(!strstr(out, "estimate Pf"), "%s", out);
+  /* With the study, the sampling estimate is shown. */
+  cr_assert_eq(sh("mv far/a/b/c/run out/linear"), 0);
+  cr_assert_eq(brink("status study.yaml"), 0, "%s", read_file("err.txt"));
+  out = read_file("out.txt");
+  cr_assert(strstr(out, "Study linear, folder "), "%s", out);
+  cr_assert(strstr(out, "running estimate Pf = "), "%s", out);
+}
+
+/* --mode array runs `brink run --shard`, which refuses a study without a
+ * model section: submit refuses it first, before it writes anything. */
+Test(commands, submit_array_needs_a_model_section) {
+  write_file("s.yaml", "variables: {a: {type: normal, mean: 3, sd: 1}}\n"
+                       "limit_state: a\n"
+                       "analysis: {method: random, samples: 10}\n"
+                       "run: {folder: out/s}\n");
+  cr_assert_eq(brink("submit s.yaml --scheduler slurm --mode array"), 2);
+  cr_assert(strstr(read_file("err.txt"),
+                   "brink: submit: --mode array runs brink run --shard, "
+                   "which needs a study with a model section"),
+            "%s", read_file("err.txt"));
+  cr_assert_neq(sh("test -e out"), 0, "a run folder was made");
+}
+
+/* submit --go reads the job id from the scheduler's first line, however
+ * much the scheduler prints after it (a full pipe must not block it). */
+Test(commands, submit_go_takes_the_first_line_of_a_talkative_scheduler) {
+  write_model_study("ok", "method: random, samples: 10", "");
+  cr_assert_eq(sh("mkdir bin && printf '#!/bin/sh\\necho \"4242;c1\"\\n"
+                  "head -c 300000 /dev/zero | tr \"\\\\0\" x\\n' "
+                  "> bin/sbatch && chmod +x bin/sbatch"),
+               0);
+  int rc = sh("PATH=\"$PWD/bin:$PATH\" '%s' submit study.yaml --scheduler "
+              "slurm --go >out.txt 2>err.txt </dev/null",
+              env("BRINK_EXE"));
+  cr_assert_eq(rc, 0, "%s", read_file("err.txt"));
+  cr_assert_str_eq(read_file("out.txt"), "4242\n");
+  cr_assert(strstr(read_file("err.txt"), "as job 4242"), "%s",
+            read_file("err.txt"));
 }
 
 Test(commands, check_try_with_a_model_that_works) {
@@ -346,6 +407,53 @@ Test(commands, init_writes_starter_studies_that_check) {
     cr_assert_eq(brink("check f/study.yaml --try"), 0, "%s",
                  read_file("out.txt"));
   cr_assert_eq(brink("init x --nonsense"), 2);
+}
+
+/* The manual page and the top-level help agree with each command's own
+ * --help: every option a command's help names (each word starting with
+ * '-') is in brink.1, and the top-level help shows each command with the
+ * argument its usage line gives. */
+Test(commands, manual_and_top_level_help_match_each_command) {
+  const char *cmds[] = {"run",  "check", "report", "status", "export",
+                        "init", "plan",  "submit", "merge"};
+  char p[700];
+  snprintf(p, sizeof p, "%s/brink.1", env("BRINK_SOURCE_ROOT"));
+  FILE *f = fopen(p, "r");
+  cr_assert(f, "%s", p);
+  static char man[1 << 16];
+  size_t n = fread(man, 1, sizeof man - 1, f);
+  fclose(f);
+  man[n] = '\0';
+  /* roff writes '-' as "\-" */
+  char *w = man;
+  for (char *r = man; *r; r++)
+    if (!(r[0] == '\\' && r[1] == '-'))
+      *w++ = *r;
+  *w = '\0';
+  cr_assert_eq(brink("--help"), 0);
+  char top[8192];
+  snprintf(top, sizeof top, "%s", read_file("out.txt"));
+  for (size_t i = 0; i < sizeof cmds / sizeof cmds[0]; i++) {
+    char a[64];
+    snprintf(a, sizeof a, "%s --help", cmds[i]);
+    cr_assert_eq(brink(a), 0, "%s", cmds[i]);
+    char *help = read_file("out.txt");
+    /* "usage: brink CMD ARG ..." */
+    char arg[64] = "";
+    cr_assert_eq(sscanf(help, "usage: brink %*s %63s", arg), 1, "%s", help);
+    arg[strcspn(arg, "|")] = '\0';
+    char want[160];
+    snprintf(want, sizeof want, "  %s %s", cmds[i], arg);
+    cr_assert(strstr(top, want), "top-level help lacks '%s':\n%s", want, top);
+    for (const char *q = help; (q = strstr(q, " -")) != NULL; q++) {
+      char opt[64];
+      if (sscanf(q + 1, "%63[-a-z]", opt) != 1 || strlen(opt) < 2 ||
+          strcmp(opt, "--") == 0)
+        continue;
+      cr_assert(strstr(man, opt), "brink.1 lacks %s of `brink %s`", opt,
+                cmds[i]);
+    }
+  }
 }
 
 Test(commands, every_command_has_help) {

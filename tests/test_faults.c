@@ -36,7 +36,7 @@ static void teardown(void) {
   itest_teardown();
 }
 
-TestSuite(faults, .init = itest_setup, .fini = teardown, .timeout = 300);
+TestSuite(faults, .init = itest_setup, .fini = teardown);
 
 /* A study of two standard normal inputs through the test model in `mode`;
  * `extra_model` and `run` are added to the model and run sections. */

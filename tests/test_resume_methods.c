@@ -22,8 +22,7 @@
 
 #include "helpers/itest.h"
 
-TestSuite(resume_methods, .init = itest_setup, .fini = itest_teardown,
-          .timeout = 300);
+TestSuite(resume_methods, .init = itest_setup, .fini = itest_teardown);
 
 /* ---- FORM and importance sampling ------------------------------------ */
 

@@ -20,8 +20,7 @@
 
 #include "helpers/itest.h"
 
-TestSuite(resume_subset, .init = itest_setup, .fini = itest_teardown,
-          .timeout = 300);
+TestSuite(resume_subset, .init = itest_setup, .fini = itest_teardown);
 
 /* Three inputs through the test model, g = 2.5 - (a + b + c) / sqrt(3)
  * from the model plus a bend in the limit state. */

@@ -25,8 +25,9 @@
 
 #include "helpers/itest.h"
 
-TestSuite(run_model, .init = itest_setup, .fini = itest_teardown,
-          .timeout = 300);
+/* No per-test timeout: on a loaded machine these runs of real processes
+ * take any time; meson's timeout guards against a hang. */
+TestSuite(run_model, .init = itest_setup, .fini = itest_teardown);
 
 /* A study of two standard normal inputs: g = beta - (a + b)/sqrt(2), so
  * Pf = Phi(-beta) exactly (Cornell 1969, linear limit state in normals). */
@@ -151,13 +152,15 @@ Test(run_model, missing_program_and_missing_output_file) {
             "%s", read_file("err.txt"));
   cr_assert(!exists("sp"));
   free(fixed);
-  /* Found at load time but not runnable from the run folder: a
-   * spawn-failed fault for every run. */
+  /* A path relative to the run folder that leaves it cannot be checked
+   * at load time (the model's folders are made at run time): a
+   * spawn-failed fault for every run. (One inside the run folder must
+   * name a copied file: docs/study-file.md, tests/test_badinput.c.) */
   write_study("r.yaml", "sp2", "random", 2, "ok", "");
   t = read_file("r.yaml");
   at = strstr(t, env("BRINK_TEST_MODEL"));
   fixed = malloc(strlen(t) + 64);
-  snprintf(fixed, strlen(t) + 64, "%.*s./missing/solver%s", (int)(at - t), t,
+  snprintf(fixed, strlen(t) + 64, "%.*s../missing/solver%s", (int)(at - t), t,
            at + strlen(env("BRINK_TEST_MODEL")));
   write_file("r.yaml", "%s", fixed);
   cr_assert_eq(brink("run r.yaml"), 1);
@@ -309,10 +312,17 @@ Test(run_model, calculix_example_matches_the_cantilever_formula) {
   if (system("command -v ccx >/dev/null 2>&1") != 0)
     cr_skip_test("ccx (Debian package calculix-ccx) is not installed");
   char cmd[2048];
+  /* The example as shipped, but 4 replicates of 50 runs instead of 8 of
+   * 100: the interval still holds the exact value, at a quarter of the
+   * solver runs. */
   snprintf(cmd, sizeof cmd,
            "cp -r '%s/examples/canopy-outrigger' '%s/ex' && "
-           "sed -i 's#^  folder: .*#  folder: out#' '%s/ex/study.yaml'",
-           env("BRINK_SOURCE_ROOT"), dir, dir);
+           "sed -i -e 's#^  folder: .*#  folder: out#' "
+           "-e 's#^  samples: 800#  samples: 200#' "
+           "-e 's#^  replicates: 8#  replicates: 4#' '%s/ex/study.yaml' && "
+           "grep -q '^  samples: 200' '%s/ex/study.yaml' && "
+           "grep -q '^  replicates: 4' '%s/ex/study.yaml'",
+           env("BRINK_SOURCE_ROOT"), dir, dir, dir, dir);
   cr_assert_eq(system(cmd), 0);
   cr_assert_eq(brink("run ex/study.yaml --quiet"), 0, "%s",
                read_file("err.txt"));
@@ -325,7 +335,7 @@ Test(run_model, calculix_example_matches_the_cantilever_formula) {
   snprintf(cmd, sizeof cmd,
            "/usr/bin/python3 -c \"import json,sys\n"
            "d=json.load(open(sys.argv[1]))\n"
-           "assert d['evaluations']==800 and d['model_errors']==0, d\n"
+           "assert d['evaluations']==200 and d['model_errors']==0, d\n"
            "assert d['ci'][0] <= %.10f <= d['ci'][1], (d['pf'], d['ci'])\n"
            "\" '%s/ex/out/report.json'",
            exact, dir);

@@ -47,8 +47,7 @@ static int load(const char *yaml, bk_study_t **s, bk_error_t *err) {
 }
 
 /* Loads a study that must fail and checks line, column and message. */
-static void expect_error(const char *yaml, int line, int col,
-                         const char *msg) {
+static void expect_error(const char *yaml, int line, int col, const char *msg) {
   bk_study_t *s = (bk_study_t *)1;
   bk_error_t err;
   int rc = load(yaml, &s, &err);
@@ -159,8 +158,7 @@ Test(study, duplicated_key) {
                     "  x: {type: normal, mean: 1, sd: 1}\n"
                     "  x: {type: normal, mean: 2, sd: 1}\n"
                     "limit_state: x\n",
-               5, 3,
-               "duplicate key 'x' in variables (first given on line 4)");
+               5, 3, "duplicate key 'x' in variables (first given on line 4)");
 }
 
 Test(study, wrong_type_for_number) {
@@ -369,8 +367,75 @@ Test(study, paths_are_relative_to_the_study_and_normalized) {
                 &s, &err);
   cr_assert_eq(rc, 0, "%s", err.msg);
   char want[600];
-  snprintf(want, sizeof want, "%.*s/out/b",
-           (int)(strrchr(dir, '/') - dir), dir);
+  snprintf(want, sizeof want, "%.*s/out/b", (int)(strrchr(dir, '/') - dir),
+           dir);
   cr_assert_str_eq(s->run.folder, want);
   bk_study_free(s);
+}
+
+/* ---- the documentation of the study file ---------------------------- */
+
+typedef struct {
+  const char *doc;
+  char missing[4096];
+  int nkeys;
+} doc_check_t;
+
+static void check_key(const char *key, void *data) {
+  doc_check_t *c = data;
+  char quoted[160];
+  snprintf(quoted, sizeof quoted, "`%s`", key);
+  c->nkeys++;
+  if (!strstr(c->doc, quoted)) {
+    strncat(c->missing, " ", sizeof c->missing - strlen(c->missing) - 1);
+    strncat(c->missing, key, sizeof c->missing - strlen(c->missing) - 1);
+  }
+}
+
+/* Every key the loader accepts (its own key lists, bk_study_keys) appears
+ * in docs/study-file.md as `the.dotted.path`, and so does every method
+ * and distribution name. */
+Test(study, every_key_is_documented) {
+  char p[1024];
+  snprintf(p, sizeof p, "%s/docs/study-file.md", getenv("BRINK_SOURCE_ROOT"));
+  FILE *f = fopen(p, "r");
+  cr_assert(f, "cannot open %s", p);
+  static char doc[1 << 18];
+  size_t n = fread(doc, 1, sizeof doc - 1, f);
+  fclose(f);
+  doc[n] = '\0';
+  doc_check_t c = {doc, "", 0};
+  bk_study_keys(check_key, &c);
+  cr_assert_gt(c.nkeys, 50);
+  for (int m = 0; m < BK_METHOD__COUNT; m++)
+    check_key(bk_method_name((bk_method_kind_t)m), &c);
+  for (int d = 0; d < BK_DIST__COUNT; d++)
+    check_key(bk_dist_name((bk_dist_kind_t)d), &c);
+  cr_assert_str_eq(c.missing, "", "not in docs/study-file.md:%s", c.missing);
+}
+
+/* The key lists are the loader's own: a key missing from them is refused,
+ * and each listed one is accepted where it stands. */
+Test(study, the_key_lists_are_the_ones_the_loader_uses) {
+  bk_study_t *s;
+  bk_error_t err;
+  int rc = load("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                "limit_state: x\n"
+                "analysis:\n"
+                "  method: form\n"
+                "  form: {step: 1e-3, differences: central, max_iterations: "
+                "50, tolerance: 1e-4, sorm: true}\n"
+                "  importance: {center: {x: 1}}\n"
+                "  cross_entropy: {components: 2, rho: 0.2, max_steps: 5}\n"
+                "  subset: {p0: 0.2, max_levels: 5}\n"
+                "run: {folder: out, slots: 1, scratch: /tmp}\n",
+                &s, &err);
+  cr_assert_eq(rc, 0, "%d:%d: %s", err.line, err.col, err.msg);
+  bk_study_free(s);
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "analysis: {subset: {p1: 0.2}}\n",
+               3, 21,
+               "unknown key 'p1' in analysis.subset; expected one of: p0, "
+               "max_levels");
 }

@@ -41,7 +41,7 @@ static const char usage_text[] =
     "  report FOLDER|STUDY  the result of a run (--json, --html FILE)\n"
     "  export FOLDER|STUDY  every evaluation as a table (--csv, --json-lines)\n"
     "  submit STUDY.yaml    a job script for a cluster scheduler\n"
-    "  merge                combine the records of shards\n"
+    "  merge STUDY.yaml     combine the records of shards (run --shard)\n"
     "  help [COMMAND]       show help for a command\n"
     "\n"
     "A first study: brink init my-study --script, then\n"

@@ -50,7 +50,7 @@ static void print_tail(const char *dir, const char *name, int lines) {
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", dir, name);
-  FILE *f = fopen(p.data, "r");
+  FILE *f = p.data ? fopen(p.data, "r") : NULL;
   bk_buf_close(&p);
   if (!f)
     return;
@@ -68,7 +68,7 @@ static void print_tail(const char *dir, const char *name, int lines) {
   if (n)
     printf("  last lines of %s%s:\n", name, from ? "" : " (all of it)");
   for (size_t i = from; i < n; i++)
-    printf("  | %s\n", ring[i % 64]);
+    printf("  | %s\n", ring[i % 64] ? ring[i % 64] : "(out of memory)");
   for (size_t i = 0; i < 64; i++)
     bk_free(ring[i]);
 }
@@ -77,7 +77,7 @@ static void print_head(const char *dir, const char *name, int lines) {
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", dir, name);
-  FILE *f = fopen(p.data, "r");
+  FILE *f = p.data ? fopen(p.data, "r") : NULL;
   bk_buf_close(&p);
   if (!f)
     return;
@@ -98,7 +98,10 @@ static int try_model(const bk_study_t *s, const double *med) {
   const char *tmp = getenv("TMPDIR");
   bk_buf_t dir;
   bk_buf_init(&dir);
-  bk_buf_printf(&dir, "%s/brink-try-XXXXXX", tmp && *tmp ? tmp : "/tmp");
+  if (bk_buf_printf(&dir, "%s/brink-try-XXXXXX", tmp && *tmp ? tmp : "/tmp")) {
+    fprintf(stderr, "brink: out of memory\n");
+    return BK_EXIT_RUNTIME;
+  }
   if (!mkdtemp(dir.data)) {
     fprintf(stderr, "brink: cannot make a scratch folder %s: %s\n", dir.data,
             strerror(errno));
@@ -112,10 +115,10 @@ static int try_model(const bk_study_t *s, const double *med) {
   bk_buf_t lp, wd;
   bk_buf_init(&lp);
   bk_buf_init(&wd);
-  bk_buf_printf(&lp, "%s/records.log", dir.data);
-  bk_buf_printf(&wd, "%s/work", dir.data);
+  int oom = bk_buf_printf(&lp, "%s/records.log", dir.data) |
+            bk_buf_printf(&wd, "%s/work", dir.data);
   const char **yn = bk_calloc(s->model.noutputs + 1, sizeof *yn);
-  for (size_t i = 0; i < s->model.noutputs; i++)
+  for (size_t i = 0; yn && i < s->model.noutputs; i++)
     yn[i] = s->model.outputs[i].name;
   bk_fingerprint_part_t part = {"study", s->digest_study};
   bk_records_opts_t ro = {.path = lp.data,
@@ -135,6 +138,13 @@ static int try_model(const bk_study_t *s, const double *med) {
   int exit_code = BK_EXIT_DONE;
   double *y = bk_calloc(s->model.noutputs + 1, sizeof *y);
   double *x = bk_calloc(s->nvars + 1, sizeof *x);
+  bk_buf_t rd;
+  bk_buf_init(&rd);
+  if (oom || !yn || !y || !x) {
+    fprintf(stderr, "brink: out of memory\n");
+    exit_code = BK_EXIT_RUNTIME;
+    goto out;
+  }
   memcpy(x, med, s->nvars * sizeof *x);
   int rc = bk__cli_make_dirs(wd.data);
   if (rc == 0)
@@ -159,9 +169,8 @@ static int try_model(const bk_study_t *s, const double *med) {
   }
   char run[64];
   bk_dispatch_folder_name("try/0", run, sizeof run);
-  bk_buf_t rd;
-  bk_buf_init(&rd);
-  bk_buf_printf(&rd, "%s/%s", wd.data, run);
+  if (rc == 0 && bk_buf_printf(&rd, "%s/%s", wd.data, run))
+    rc = bk_error_set(&err, BK_ENOMEM, NULL, 0, 0, "out of memory");
   if (rc) {
     if (err.msg[0])
       bk__cli_print_error(&err);
@@ -199,7 +208,9 @@ static int try_model(const bk_study_t *s, const double *med) {
       bk_buf_printf(&p, "%s/%s", rd.data, o->from_stdout ? "stdout" : o->file);
       double v = NAN;
       char why[256] = "";
-      int f = bk_extract_file(o->re, p.data, o->match, &v, why, sizeof why);
+      int f =
+          p.data ? bk_extract_file(o->re, p.data, o->match, &v, why, sizeof why)
+                 : BK_ENOMEM;
       if (f == BK_FAULT_NONE)
         printf("    %-14s = %.10g   (from %s)\n", o->name, v,
                o->from_stdout ? "stdout" : o->file);
@@ -272,6 +283,11 @@ int bk__cmd_check(int argc, char **argv) {
   printf("  %-14s %-17s %14s %14s %14s\n", "name", "distribution", "mean", "sd",
          "median");
   double *med = bk_calloc(s->nvars + s->model.noutputs + 1, sizeof *med);
+  if (!med) {
+    fprintf(stderr, "brink: out of memory\n");
+    bk_study_free(s);
+    return BK_EXIT_RUNTIME;
+  }
   for (size_t i = 0; i < s->nvars; i++) {
     const bk_dist_t *d = &s->vars[i].dist;
     med[i] = bk_dist_median(d);

@@ -22,7 +22,7 @@
 #include "study/study.h"
 
 static const char export_help[] =
-    "usage: brink export FOLDER|STUDY.yaml (--csv | --json-lines) [-o FILE]\n"
+    "usage: brink export FOLDER|STUDY.yaml [--csv | --json-lines] [-o FILE]\n"
     "\n"
     "Writes one row per recorded evaluation, in the order the runs finished:\n"
     "key, the variables, the model outputs, g (named limit_state when a\n"
@@ -33,8 +33,8 @@ static const char export_help[] =
     "given. Safe to use while the study runs.\n"
     "\n"
     "  --csv          comma-separated values with a header line (default)\n"
-    "  --json-lines   one JSON object per line\n"
-    "  -o FILE        write to FILE\n";
+    "  --json-lines   one JSON object per line (also --jsonl)\n"
+    "  -o FILE        write to FILE (also --output FILE)\n";
 
 typedef struct {
   FILE *f;

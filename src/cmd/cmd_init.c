@@ -106,7 +106,11 @@ static int copy_one(const char *from, const char *to, const char *name,
   if (!in)
     return -errno;
   struct stat st;
-  fstat(fileno(in), &st);
+  if (fstat(fileno(in), &st) != 0) {
+    int e = -errno;
+    fclose(in);
+    return e;
+  }
   int fd = open(to, O_WRONLY | O_CREAT | O_EXCL | O_CLOEXEC, st.st_mode & 0777);
   if (fd < 0) {
     int e = -errno;
@@ -114,6 +118,12 @@ static int copy_one(const char *from, const char *to, const char *name,
     return e;
   }
   FILE *out = fdopen(fd, "w");
+  if (!out) {
+    int e = -errno;
+    close(fd);
+    fclose(in);
+    return e;
+  }
   char line[4096];
   int named = 0;
   while (fgets(line, sizeof line, in)) {
@@ -201,8 +211,10 @@ int bk__cmd_init(int argc, char **argv) {
       continue;
     bk_buf_t to;
     bk_buf_init(&to);
-    bk_buf_printf(&to, "%s/%s", folder, e->d_name);
-    if (access(to.data, F_OK) == 0) {
+    if (bk_buf_printf(&to, "%s/%s", folder, e->d_name)) {
+      fprintf(stderr, "brink: out of memory\n");
+      clash = 1;
+    } else if (access(to.data, F_OK) == 0) {
       fprintf(stderr,
               "brink: %s exists; init never overwrites. Choose a "
               "new folder, or move the file away\n",
@@ -227,11 +239,14 @@ int bk__cmd_init(int argc, char **argv) {
     bk_buf_t from, to;
     bk_buf_init(&from);
     bk_buf_init(&to);
-    bk_buf_printf(&from, "%s/%s", src, e->d_name);
-    bk_buf_printf(&to, "%s/%s", folder, e->d_name);
-    rc = copy_one(from.data, to.data, e->d_name, name);
+    if (bk_buf_printf(&from, "%s/%s", src, e->d_name) ||
+        bk_buf_printf(&to, "%s/%s", folder, e->d_name))
+      rc = BK_ENOMEM;
+    else
+      rc = copy_one(from.data, to.data, e->d_name, name);
     if (rc) {
-      fprintf(stderr, "brink: cannot write %s: %s\n", to.data, bk_strerror(rc));
+      fprintf(stderr, "brink: cannot write %s/%s: %s\n", folder, e->d_name,
+              bk_strerror(rc));
       exit_code = BK_EXIT_RUNTIME;
     } else {
       printf("  %s\n", to.data);

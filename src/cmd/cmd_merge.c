@@ -26,7 +26,7 @@
 #include "study/study.h"
 
 static const char merge_help[] =
-    "usage: brink merge STUDY.yaml [--quiet]\n"
+    "usage: brink merge STUDY.yaml [-q | --quiet]\n"
     "\n"
     "Combines the shard logs of the study's run folder\n"
     "(records-shard-I-of-N.log, written by `brink run --shard I/N`) into\n"

@@ -35,8 +35,11 @@ static const char status_help[] =
     "failure probability, model errors by kind, throughput, the estimated\n"
     "time to go, and whether a brink is running on the folder now.\n"
     "Read-only: safe while `brink run` works on the same folder.\n"
-    "Give the study file when the folder is not in its default place\n"
-    "(runs/NAME beside the study), so that the plan is known.\n";
+    "Given a folder, the study is found through report.json or as a *.yaml\n"
+    "up to three folders above whose run folder it is; when none is found,\n"
+    "status says so and shows only what the records tell. Give the study\n"
+    "file when the folder is not in its default place (runs/NAME beside\n"
+    "the study), so that the plan and the estimate are known.\n";
 
 #define RECENT 200
 
@@ -85,22 +88,23 @@ static bk_study_t *find_study(const char *folder) {
     return NULL;
   bk_buf_t dir;
   bk_buf_init(&dir);
-  bk_buf_puts(&dir, want);
-  for (int up = 0; up < 3 && !s; up++) {
-    bk_buf_puts(&dir, "/..");
+  int oom = bk_buf_puts(&dir, want);
+  for (int up = 0; up < 3 && !s && !oom; up++) {
+    if ((oom = bk_buf_puts(&dir, "/..")) != 0)
+      break;
     DIR *d = opendir(dir.data);
     struct dirent *e;
-    while (d && !s && (e = readdir(d)) != NULL) {
+    while (d && !s && !oom && (e = readdir(d)) != NULL) {
       size_t len = strlen(e->d_name);
       if (len < 6 || strcmp(e->d_name + len - 5, ".yaml") != 0)
         continue;
       bk_buf_t f;
       bk_buf_init(&f);
       char *real = realpath(dir.data, NULL);
-      bk_buf_printf(&f, "%s/%s", real ? real : dir.data, e->d_name);
+      oom = bk_buf_printf(&f, "%s/%s", real ? real : dir.data, e->d_name);
       free(real);
       bk_error_clear(&err);
-      if (bk_study_load(f.data, &s, &err) == 0) {
+      if (!oom && bk_study_load(f.data, &s, &err) == 0) {
         char *got = realpath(s->run.folder, NULL);
         if (!got || strcmp(got, want) != 0) {
           bk_study_free(s);
@@ -201,6 +205,11 @@ int bk__cmd_status(int argc, char **argv) {
     if (rc)
       return rc;
     folder = bk_strdup(s->run.folder);
+    if (!folder) {
+      bk_study_free(s);
+      fprintf(stderr, "brink: out of memory\n");
+      return BK_EXIT_RUNTIME;
+    }
   } else {
     struct stat st;
     if (stat(target, &st) != 0 || !S_ISDIR(st.st_mode)) {
@@ -212,21 +221,43 @@ int bk__cmd_status(int argc, char **argv) {
       return BK_EXIT_USAGE;
     }
     folder = bk_strdup(target);
+    if (!folder) {
+      fprintf(stderr, "brink: out of memory\n");
+      return BK_EXIT_RUNTIME;
+    }
     s = find_study(folder);
   }
-  bk_buf_t lp;
+  bk_buf_t lp, rj;
   bk_buf_init(&lp);
-  bk_buf_printf(&lp, "%s/records.log", folder);
+  bk_buf_init(&rj);
+  tally_t *t = bk_calloc(1, sizeof *t);
+  if (bk_buf_printf(&lp, "%s/records.log", folder) ||
+      bk_buf_printf(&rj, "%s/report.json", folder) || !t) {
+    fprintf(stderr, "brink: out of memory\n");
+    bk_free(t);
+    bk_buf_close(&lp);
+    bk_buf_close(&rj);
+    bk_free(folder);
+    bk_study_free(s);
+    return BK_EXIT_RUNTIME;
+  }
   char who[300];
   int held = lock_holder(lp.data, who, sizeof who);
-  bk_buf_t rj;
-  bk_buf_init(&rj);
-  bk_buf_printf(&rj, "%s/report.json", folder);
   int finished = is_regular_file(rj.data);
   bk_buf_close(&rj);
 
-  printf("Study %s, folder %s\n", s ? s->name : "(study file not found)",
-         folder);
+  if (s)
+    printf("Study %s, folder %s\n", s->name, folder);
+  else
+    printf("Run folder %s\n"
+           "  study          not found: no report.json here names it, and no "
+           "*.yaml up to\n"
+           "                 three folders above has this run folder; give "
+           "it as\n"
+           "                 `brink status STUDY.yaml` for the plan, the "
+           "estimate and the\n"
+           "                 time to go\n",
+           folder);
   if (held == 1)
     printf("  state          running (brink %s holds the lock)\n", who);
   else if (held == -1)
@@ -246,6 +277,7 @@ int bk__cmd_status(int argc, char **argv) {
            "progress shows only\n                 in the terminal of the "
            "run%s\n",
            finished ? "; the result is in report.json" : "");
+    bk_free(t);
     bk_free(folder);
     bk_buf_close(&lp);
     bk_study_free(s);
@@ -256,7 +288,6 @@ int bk__cmd_status(int argc, char **argv) {
   bk_error_t err;
   bk_error_clear(&err);
   int rc = bk_records_open(&rec, &ro, &err);
-  tally_t *t = bk_calloc(1, sizeof *t);
   if (rc == 0)
     rc = bk_records_scan(rec, on_record, t);
   int exit_code = BK_EXIT_DONE;
@@ -275,9 +306,11 @@ int bk__cmd_status(int argc, char **argv) {
              (unsigned long long)plan, 100.0 * (double)t->n / (double)plan);
     else
       printf("  evaluations    %llu recorded\n", (unsigned long long)t->n);
-    int sampling = !s || s->analysis.method == BK_METHOD_RANDOM ||
-                   s->analysis.method == BK_METHOD_LHS ||
-                   s->analysis.method == BK_METHOD_SOBOL;
+    /* failures / runs estimates Pf only for crude and stratified
+     * sampling; without the study the method is not known. */
+    int sampling = s && (s->analysis.method == BK_METHOD_RANDOM ||
+                         s->analysis.method == BK_METHOD_LHS ||
+                         s->analysis.method == BK_METHOD_SOBOL);
     printf("  failures       %llu (g <= 0)", (unsigned long long)t->failed);
     if (sampling && t->ok)
       printf("; running estimate Pf = %.3e", (double)t->failed / (double)t->ok);
@@ -329,9 +362,6 @@ int bk__cmd_status(int argc, char **argv) {
       }
     }
   }
-  if (!s)
-    printf("  (give the study file for the plan and the time to go: brink "
-           "status STUDY.yaml)\n");
   bk_free(t);
   bk_records_close(rec);
   bk_buf_close(&lp);

@@ -142,7 +142,8 @@ static int render(const char *tpl, const var_t *vars, bk_buf_t *out) {
   const char *line = tpl;
   bk_buf_t l;
   bk_buf_init(&l);
-  while (*line) {
+  int bad = 0; /* an append failed: the script would be incomplete */
+  while (*line && !bad) {
     const char *eol = strchr(line, '\n');
     size_t len = eol ? (size_t)(eol - line + 1) : strlen(line);
     bk_buf_reset(&l);
@@ -160,23 +161,27 @@ static int render(const char *tpl, const var_t *vars, bk_buf_t *out) {
           if (!val || !*val)
             drop = 1;
           else
-            bk_buf_puts(&l, val);
+            bad |= bk_buf_puts(&l, val);
           i = (size_t)(close + 2 - line);
           continue;
         }
       }
-      bk_buf_putc(&l, line[i]);
+      bad |= bk_buf_putc(&l, line[i]);
       i++;
     }
     if (!drop && l.data)
-      bk_buf_append(out, l.data, l.len);
+      bad |= bk_buf_append(out, l.data, l.len);
     line += len;
   }
   bk_buf_close(&l);
-  return out->data ? 0 : BK_ENOMEM;
+  if (!bad && !out->data)
+    bad = bk_buf_puts(out, "");
+  return bad ? BK_ENOMEM : 0;
 }
 
-static char *read_text(const char *path) {
+/* The text of `path`, or NULL when it cannot be read (*oom set when
+ * memory ran out). */
+static char *read_text(const char *path, int *oom) {
   FILE *f = fopen(path, "r");
   if (!f)
     return NULL;
@@ -184,18 +189,27 @@ static char *read_text(const char *path) {
   bk_buf_init(&b);
   char chunk[4096];
   size_t n;
-  while ((n = fread(chunk, 1, sizeof chunk, f)) > 0)
-    bk_buf_append(&b, chunk, n);
+  int rc = 0;
+  while (rc == 0 && (n = fread(chunk, 1, sizeof chunk, f)) > 0)
+    rc = bk_buf_append(&b, chunk, n);
+  if (rc == 0 && ferror(f))
+    rc = BK_EIO;
   fclose(f);
-  if (!b.data)
-    bk_buf_puts(&b, "");
+  if (rc == 0 && !b.data)
+    rc = bk_buf_puts(&b, "");
+  if (rc) {
+    *oom = rc == BK_ENOMEM;
+    bk_buf_close(&b);
+    return NULL;
+  }
   return b.data;
 }
 
 /* Finds cluster/NAME: $BRINK_CLUSTER_DIR, the cluster/ folder beside the
  * executable's folder (a build inside the source tree), the source tree
  * and the installed copy. */
-static char *find_template(const char *name, char *where, size_t cap) {
+static char *find_template(const char *name, char *where, size_t cap,
+                           int *oom) {
   bk_buf_t dirs;
   bk_buf_init(&dirs);
   const char *env = getenv("BRINK_CLUSTER_DIR");
@@ -212,13 +226,13 @@ static char *find_template(const char *name, char *where, size_t cap) {
                     exe);
     }
   }
-  bk_buf_puts(&dirs, BK_CLUSTER_DIRS);
+  *oom = bk_buf_puts(&dirs, BK_CLUSTER_DIRS) != 0;
   char *text = NULL;
   char *save = NULL;
-  for (char *d = strtok_r(dirs.data, ":", &save); d && !text;
-       d = strtok_r(NULL, ":", &save)) {
+  for (char *d = *oom ? NULL : strtok_r(dirs.data, ":", &save);
+       d && !text && !*oom; d = strtok_r(NULL, ":", &save)) {
     snprintf(where, cap, "%s/%s", d, name);
-    text = read_text(where);
+    text = read_text(where, oom);
   }
   bk_buf_close(&dirs);
   return text;
@@ -238,14 +252,22 @@ static int parse_count(const char *opt, const char *v, long lo, long *out) {
 }
 
 /* Runs `cmd` (argv) and returns its first output line in out; 0 or an exit
- * code. */
+ * code. Both ends of the pipe are closed on every path, and output beyond
+ * `cap` is read and dropped, so the child never blocks on a full pipe. */
 static int run_capture(char *const cmd[], char *out, size_t cap) {
   int fd[2];
-  if (pipe(fd) != 0)
+  out[0] = '\0';
+  if (pipe(fd) != 0) {
+    fprintf(stderr, "brink: cannot run %s: %s\n", cmd[0], strerror(errno));
     return BK_EXIT_RUNTIME;
+  }
   pid_t pid = fork();
-  if (pid < 0)
+  if (pid < 0) {
+    fprintf(stderr, "brink: cannot run %s: %s\n", cmd[0], strerror(errno));
+    close(fd[0]);
+    close(fd[1]);
     return BK_EXIT_RUNTIME;
+  }
   if (pid == 0) {
     dup2(fd[1], 1);
     close(fd[0]);
@@ -256,9 +278,18 @@ static int run_capture(char *const cmd[], char *out, size_t cap) {
   }
   close(fd[1]);
   size_t n = 0;
-  ssize_t r;
-  while (n + 1 < cap && (r = read(fd[0], out + n, cap - 1 - n)) > 0)
-    n += (size_t)r;
+  for (;;) {
+    char sink[512];
+    int full = n + 1 >= cap;
+    ssize_t r = full ? read(fd[0], sink, sizeof sink)
+                     : read(fd[0], out + n, cap - 1 - n);
+    if (r < 0 && errno == EINTR)
+      continue;
+    if (r <= 0)
+      break;
+    if (!full)
+      n += (size_t)r;
+  }
   out[n] = '\0';
   close(fd[0]);
   int st;
@@ -372,6 +403,15 @@ int bk__cmd_submit(int argc, char **argv) {
     bk_study_free(s);
     return BK_EXIT_USAGE;
   }
+  if (array && !s->model.present) {
+    fprintf(stderr,
+            "brink: submit: --mode array runs brink run --shard, which needs "
+            "a study with a model section (without one, a study runs in "
+            "process and keeps no records to merge): use --mode mpi, or run "
+            "it on one node\n");
+    bk_study_free(s);
+    return BK_EXIT_USAGE;
+  }
   if ((rc = bk__cli_make_dirs(s->run.folder)) != 0) {
     fprintf(stderr, "brink: cannot create the run folder %s: %s\n",
             s->run.folder, bk_strerror(rc));
@@ -441,7 +481,13 @@ int bk__cmd_submit(int argc, char **argv) {
 
   char tname[64], where[PATH_MAX + 80];
   snprintf(tname, sizeof tname, "%s-%s.sh", sched, mode);
-  char *tpl = find_template(tname, where, sizeof where);
+  int oom = 0;
+  char *tpl = find_template(tname, where, sizeof where, &oom);
+  if (!tpl && oom) {
+    fprintf(stderr, "brink: out of memory\n");
+    bk_study_free(s);
+    return BK_EXIT_RUNTIME;
+  }
   if (!tpl) {
     fprintf(stderr,
             "brink: submit: the job-script template cluster/%s was not found "
@@ -452,8 +498,14 @@ int bk__cmd_submit(int argc, char **argv) {
   }
   bk_buf_t out;
   bk_buf_init(&out);
-  render(tpl, vars, &out);
+  rc = render(tpl, vars, &out);
   bk_free(tpl);
+  if (rc) {
+    fprintf(stderr, "brink: out of memory\n");
+    bk_buf_close(&out);
+    bk_study_free(s);
+    return BK_EXIT_RUNTIME;
+  }
   bk_error_t err;
   bk_error_clear(&err);
   if (bk__cli_write_atomic(s->run.folder, script_name, &out, &err)) {

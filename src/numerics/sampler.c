@@ -39,7 +39,7 @@
 #define LHS_MAXPOINTS (UINT64_C(1) << 53)
 
 #define SOBOL_BITS      32
-#define SOBOL_MAXPOINTS (UINT64_C(1) << SOBOL_BITS)
+#define SOBOL_MAXPOINTS BK_SOBOL_MAXPOINTS /* 1 << SOBOL_BITS */
 
 static uint64_t seed_stream_key(uint64_t seed, uint64_t stream, uint64_t tag) {
   return bk_rng_mix64(seed ^ bk_rng_mix64(stream ^ tag));

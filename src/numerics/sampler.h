@@ -38,6 +38,8 @@ typedef enum {
 
 /* The largest Sobol dimension supported. */
 #define BK_SOBOL_MAXDIM 21201
+/* Sobol points per design: indices are 32-bit. */
+#define BK_SOBOL_MAXPOINTS (UINT64_C(1) << 32)
 
 /* Value type; valid after a successful bk_sampler_init. */
 typedef struct {

@@ -25,6 +25,7 @@
 
 #include "base/alloc.h"
 #include "base/buf.h"
+#include "numerics/sampler.h"
 
 typedef struct {
   const char *path;
@@ -41,6 +42,63 @@ static const char *const method_names[BK_METHOD__COUNT] = {
 
 const char *bk_method_name(bk_method_kind_t m) {
   return m < BK_METHOD__COUNT ? method_names[m] : "unknown";
+}
+
+/* ---- the keys a study file may hold --------------------------------- */
+
+/* One list per mapping, NULL-terminated; check_keys refuses any other key,
+ * and bk_study_keys hands the same lists to the test that every key is
+ * documented in docs/study-file.md. */
+static const char *const keys_root[] = {"name",         "seed",  "variables",
+                                        "correlations", "model", "limit_state",
+                                        "analysis",     "run",   NULL};
+static const char *const keys_model[] = {
+    "files",   "copy",    "command",  "env",
+    "timeout", "retries", "on_error", "max_error_fraction",
+    "outputs", "keep",    NULL};
+static const char *const keys_deck[] = {"template", "to", NULL};
+static const char *const keys_output[] = {"file", "stdout", "pattern", "match",
+                                          NULL};
+static const char *const keys_analysis[] = {
+    "method",          "samples",       "replicates", "target_cov",
+    "max_evaluations", "target_beta",   "ci_level",   "form",
+    "importance",      "cross_entropy", "subset",     NULL};
+static const char *const keys_form[] = {
+    "step", "differences", "max_iterations", "tolerance", "sorm", NULL};
+static const char *const keys_importance[] = {"center", NULL};
+static const char *const keys_ce[] = {"components", "rho", "max_steps", NULL};
+static const char *const keys_subset[] = {"p0", "max_levels", NULL};
+static const char *const keys_run[] = {"folder", "slots", "scratch", NULL};
+
+static const struct {
+  const char *prefix; /* the mapping's path; NAME stands for any name */
+  const char *const *keys;
+} key_lists[] = {
+    {"", keys_root},
+    {"model.", keys_model},
+    {"model.files[].", keys_deck},
+    {"model.outputs.NAME.", keys_output},
+    {"analysis.", keys_analysis},
+    {"analysis.form.", keys_form},
+    {"analysis.importance.", keys_importance},
+    {"analysis.cross_entropy.", keys_ce},
+    {"analysis.subset.", keys_subset},
+    {"run.", keys_run},
+};
+
+void bk_study_keys(bk_study_key_cb cb, void *data) {
+  char key[128];
+  for (size_t i = 0; i < sizeof key_lists / sizeof key_lists[0]; i++)
+    for (const char *const *k = key_lists[i].keys; *k; k++) {
+      snprintf(key, sizeof key, "%s%s", key_lists[i].prefix, *k);
+      cb(key, data);
+    }
+  cb("variables.NAME.type", data);
+  for (int p = 0; p < BK_PARAM__COUNT; p++) {
+    snprintf(key, sizeof key, "variables.NAME.%s",
+             bk_param_name((bk_param_t)p));
+    cb(key, data);
+  }
 }
 
 /* ---- digest --------------------------------------------------------- */
@@ -81,6 +139,10 @@ static int fail_at(loader_t *L, const yaml_mark_t *m, const char *fmt, ...) {
 }
 
 #define FAIL(L, node, ...) fail_at((L), &(node)->start_mark, __VA_ARGS__)
+
+static int nomem(loader_t *L) {
+  return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
+}
 
 static yaml_node_t *node_at(loader_t *L, int id) {
   return yaml_document_get_node(&L->doc, id);
@@ -347,6 +409,8 @@ static int load_variable(loader_t *L, yaml_node_t *k, yaml_node_t *v,
                 "only letters, digits and '_'",
                 name);
   var->name = bk_strdup(name);
+  if (!var->name)
+    return nomem(L);
   var->line = (int)k->start_mark.line + 1;
   bk_dist_spec_t spec;
   memset(&spec, 0, sizeof spec);
@@ -545,6 +609,8 @@ static int build_transform(loader_t *L, yaml_node_t *cn) {
   bk_free(d);
   if (rc == 0)
     return 0;
+  if (rc == BK_ENOMEM)
+    return nomem(L);
   if (cn && bad >= 0 && (size_t)bad < s->ncorr) {
     yaml_node_t *it = node_at(L, cn->data.sequence.items.start[bad]);
     return FAIL(L, it, "correlation of %s and %s: %s",
@@ -575,6 +641,8 @@ static int load_string_list(loader_t *L, yaml_node_t *n, const char *what,
     if ((rc = want_text(L, it, what, &t)))
       return rc;
     v[i] = bk_strdup(t);
+    if (!v[i])
+      return nomem(L);
     *count = i + 1;
   }
   return 0;
@@ -592,8 +660,6 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
   m->outputs = bk_calloc(n ? n : 1, sizeof *m->outputs);
   if (!m->outputs)
     return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
-  static const char *const keys[] = {"file", "stdout", "pattern", "match",
-                                     NULL};
   for (yaml_node_pair_t *p = on->data.mapping.pairs.start;
        p < on->data.mapping.pairs.top; p++) {
     yaml_node_t *k = node_at(L, p->key), *v = node_at(L, p->value);
@@ -610,10 +676,12 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
                   "another name",
                   name);
     o->name = bk_strdup(name);
+    if (!o->name)
+      return nomem(L);
     char where[160];
     snprintf(where, sizeof where, "output '%s'", name);
     if ((rc = want_mapping(L, v, where)) ||
-        (rc = check_keys(L, v, where, keys)))
+        (rc = check_keys(L, v, where, keys_output)))
       return rc;
     yaml_node_t *fn = lookup(L, v, "file"), *sn = lookup(L, v, "stdout");
     yaml_node_t *pn = lookup(L, v, "pattern"), *mn = lookup(L, v, "match");
@@ -646,6 +714,8 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
                     "folder (no leading '/' and no '..')",
                     t);
       o->file = bk_strdup(t);
+      if (!o->file)
+        return nomem(L);
     }
     if (!pn)
       return FAIL(L, v,
@@ -656,9 +726,14 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
     if ((rc = want_text(L, pn, "pattern", &pat)))
       return rc;
     o->pattern = bk_strdup(pat);
+    if (!o->pattern)
+      return nomem(L);
     char msg[256] = "";
     size_t off = 0;
-    if (bk_pattern_compile(pat, &o->re, msg, sizeof msg, &off)) {
+    int prc = bk_pattern_compile(pat, &o->re, msg, sizeof msg, &off);
+    if (prc == BK_ENOMEM)
+      return nomem(L);
+    if (prc) {
       yaml_mark_t mk;
       scalar_offset_mark(L, pn, off, &mk);
       return fail_at(L, &mk, "invalid pattern for output '%s': %s", name, msg);
@@ -684,6 +759,32 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
   return 0;
 }
 
+/* The file `name`, which brink writes into each run folder (a deck, or a
+ * copied file; the first `ndecks` decks are loaded), must not be one that
+ * brink writes already: each is made afresh with O_EXCL, so a second file of
+ * the same name would stop the run at its first evaluation. */
+static int check_run_file_name(loader_t *L, yaml_node_t *at, const char *name,
+                               size_t ndecks) {
+  const bk_model_t *m = &L->s->model;
+  if (strcmp(name, "stdout") == 0 || strcmp(name, "stderr") == 0)
+    return FAIL(L, at,
+                "'%s' is the file brink captures the model's standard %s "
+                "into; choose another name",
+                name, name[3] == 'o' ? "output" : "error");
+  for (size_t i = 0; i < ndecks && i < m->ndecks; i++)
+    if (m->decks[i].to && strcmp(m->decks[i].to, name) == 0)
+      return FAIL(L, at,
+                  "two files named '%s' go into each run folder (the deck "
+                  "from '%s' is one); give each its own name",
+                  name, m->decks[i].template_name);
+  return 0;
+}
+
+static const char *base_name(const char *p) {
+  const char *slash = strrchr(p, '/');
+  return slash ? slash + 1 : p;
+}
+
 static int load_decks(loader_t *L, yaml_node_t *fn) {
   bk_model_t *m = &L->s->model;
   int rc = want_sequence(L, fn, "model.files");
@@ -694,12 +795,11 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
   m->decks = bk_calloc(n ? n : 1, sizeof *m->decks);
   if (!m->decks)
     return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
-  static const char *const keys[] = {"template", "to", NULL};
   bk_names_t names = {(const char *const *)L->s->var_names, L->s->nvars};
   for (size_t i = 0; i < n; i++) {
     yaml_node_t *it = node_at(L, fn->data.sequence.items.start[i]);
     if ((rc = want_mapping(L, it, "each entry of model.files")) ||
-        (rc = check_keys(L, it, "an entry of model.files", keys)))
+        (rc = check_keys(L, it, "an entry of model.files", keys_deck)))
       return rc;
     yaml_node_t *tn = lookup(L, it, "template"), *to = lookup(L, it, "to");
     if (!tn)
@@ -710,6 +810,8 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
       return rc;
     d->template_name = bk_strdup(t);
     d->template_path = resolve_path(L->s->dir, t);
+    if (!d->template_name || !d->template_path)
+      return nomem(L);
     const char *dest = NULL;
     if (to && (rc = want_text(L, to, "to", &dest)))
       return rc;
@@ -721,20 +823,37 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
                   "'%s' must be a file name inside the run folder (no "
                   "leading '/' and no '..')",
                   dest);
+    if (strchr(dest, '/'))
+      return FAIL(L, to,
+                  "'%s' must be a plain file name: decks are written at the "
+                  "top of each run folder, which has no subfolders",
+                  dest);
+    if ((rc = check_run_file_name(L, to ? to : tn, dest, i)))
+      return rc;
     d->to = bk_strdup(dest);
+    if (!d->to)
+      return nomem(L);
     char *text = NULL;
     size_t len = 0;
     int frc = read_file(d->template_path, &text, &len);
+    if (frc == BK_ENOMEM)
+      return nomem(L);
     if (frc)
       return FAIL(L, tn, "cannot read template '%s': %s", t, bk_strerror(frc));
     char hex[33];
     bk_digest_hex(text, len, hex);
     d->digest = bk_strdup(hex);
+    if (!d->digest) {
+      bk_free(text);
+      return nomem(L);
+    }
     bk_error_t terr;
     bk_error_clear(&terr);
     int prc =
         bk_template_parse(d->template_path, text, len, &names, &d->tpl, &terr);
     bk_free(text);
+    if (prc == BK_ENOMEM)
+      return nomem(L);
     if (prc) {
       /* The template's own location is the useful one. */
       *L->err = terr;
@@ -743,6 +862,41 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
     }
   }
   return 0;
+}
+
+/* A relative program path with a '/' is resolved in each run folder, which
+ * holds only the decks and the copied files, without subfolders: unless it
+ * climbs out with "..", it must name a copied file ("./run.sh"). A deck
+ * cannot be run, as it is written without execute permission. */
+static int check_run_folder_program(loader_t *L, yaml_node_t *n,
+                                    const char *prog) {
+  const bk_model_t *m = &L->s->model;
+  const char *name = prog;
+  while (strncmp(name, "./", 2) == 0)
+    name += 2;
+  if (strncmp(name, "../", 3) == 0)
+    return 0;
+  if (strchr(name, '/'))
+    return FAIL(L, n,
+                "program '%s' would be looked for in a subfolder of each run "
+                "folder, and run folders have none; give its full path",
+                prog);
+  for (size_t i = 0; i < m->ndecks; i++)
+    if (strcmp(m->decks[i].to, name) == 0)
+      return FAIL(L, n,
+                  "program '%s' is the deck rendered from '%s', which is "
+                  "written without execute permission; run it through its "
+                  "interpreter, e.g. command: [sh, %s]",
+                  prog, m->decks[i].template_name, name);
+  for (size_t i = 0; i < m->ncopy; i++)
+    if (strcmp(base_name(m->copy[i]), name) == 0)
+      return 0;
+  return FAIL(L, n,
+              "program '%s' is run from each run folder, but no file named "
+              "'%s' goes there; give the program's full path, or copy it "
+              "with model.copy and run it through its interpreter, e.g. "
+              "command: [sh, %s]",
+              prog, name, name);
 }
 
 /* A program named without a '/' must be on PATH, and an absolute path
@@ -755,7 +909,7 @@ static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
     return 0;
   }
   if (strchr(prog, '/'))
-    return 0;
+    return check_run_folder_program(L, n, prog);
   const char *path = getenv("PATH");
   if (!path || !*path)
     path = "/usr/local/bin:/usr/bin:/bin";
@@ -780,12 +934,8 @@ static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
 
 static int load_model(loader_t *L, yaml_node_t *mn) {
   bk_model_t *m = &L->s->model;
-  static const char *const keys[] = {
-      "files",   "copy",    "command",  "env",
-      "timeout", "retries", "on_error", "max_error_fraction",
-      "outputs", "keep",    NULL};
   int rc = want_mapping(L, mn, "model");
-  if (rc || (rc = check_keys(L, mn, "model", keys)))
+  if (rc || (rc = check_keys(L, mn, "model", keys_model)))
     return rc;
   m->present = 1;
   m->max_error_fraction = 0.05;
@@ -802,12 +952,31 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
       return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
     for (size_t i = 0; i < m->ncopy; i++) {
       m->copy[i] = resolve_path(L->s->dir, m->copy_names[i]);
+      yaml_node_t *it = node_at(L, n->data.sequence.items.start[i]);
+      if (!m->copy[i])
+        return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
       struct stat st;
-      if (stat(m->copy[i], &st) != 0) {
-        yaml_node_t *it = node_at(L, n->data.sequence.items.start[i]);
+      if (stat(m->copy[i], &st) != 0)
         return FAIL(L, it, "cannot find '%s' to copy into each run folder",
                     m->copy_names[i]);
-      }
+      if (!S_ISREG(st.st_mode))
+        return FAIL(L, it,
+                    "'%s' is %s; model.copy takes files (name each file "
+                    "the model needs)",
+                    m->copy_names[i],
+                    S_ISDIR(st.st_mode) ? "a folder" : "not a regular file");
+      if (access(m->copy[i], R_OK) != 0)
+        return FAIL(L, it, "cannot read '%s': %s", m->copy_names[i],
+                    strerror(errno));
+      const char *bn = base_name(m->copy[i]);
+      if ((rc = check_run_file_name(L, it, bn, m->ndecks)))
+        return rc;
+      for (size_t j = 0; j < i; j++)
+        if (strcmp(base_name(m->copy[j]), bn) == 0)
+          return FAIL(L, it,
+                      "'%s' and '%s' would both be copied as '%s' into each "
+                      "run folder; give each file its own name",
+                      m->copy_names[j], m->copy_names[i], bn);
     }
   }
   yaml_node_t *cn = lookup(L, mn, "command");
@@ -842,7 +1011,8 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
         return rc;
       bk_buf_t b;
       bk_buf_init(&b);
-      bk_buf_printf(&b, "%s=%s", scalar(k), val);
+      if (bk_buf_printf(&b, "%s=%s", scalar(k), val))
+        return nomem(L);
       m->env[m->nenv++] = b.data;
     }
   }
@@ -948,10 +1118,8 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
   int rc;
   yaml_node_t *m, *n;
   if ((m = lookup(L, an, "form"))) {
-    static const char *const keys[] = {
-        "step", "differences", "max_iterations", "tolerance", "sorm", NULL};
     if ((rc = want_mapping(L, m, "analysis.form")) ||
-        (rc = check_keys(L, m, "analysis.form", keys)))
+        (rc = check_keys(L, m, "analysis.form", keys_form)))
       return rc;
     if ((n = lookup(L, m, "step")) &&
         (rc = want_positive(L, n, "analysis.form.step", &a->form.step)))
@@ -990,9 +1158,8 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
     }
   }
   if ((m = lookup(L, an, "importance"))) {
-    static const char *const keys[] = {"center", NULL};
     if ((rc = want_mapping(L, m, "analysis.importance")) ||
-        (rc = check_keys(L, m, "analysis.importance", keys)))
+        (rc = check_keys(L, m, "analysis.importance", keys_importance)))
       return rc;
     if ((n = lookup(L, m, "center"))) {
       bk_study_t *s = L->s;
@@ -1021,9 +1188,8 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
     }
   }
   if ((m = lookup(L, an, "cross_entropy"))) {
-    static const char *const keys[] = {"components", "rho", "max_steps", NULL};
     if ((rc = want_mapping(L, m, "analysis.cross_entropy")) ||
-        (rc = check_keys(L, m, "analysis.cross_entropy", keys)))
+        (rc = check_keys(L, m, "analysis.cross_entropy", keys_ce)))
       return rc;
     if ((n = lookup(L, m, "components")) &&
         (rc = want_int_range(L, n, "analysis.cross_entropy.components", 1, 64,
@@ -1045,9 +1211,8 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
     }
   }
   if ((m = lookup(L, an, "subset"))) {
-    static const char *const keys[] = {"p0", "max_levels", NULL};
     if ((rc = want_mapping(L, m, "analysis.subset")) ||
-        (rc = check_keys(L, m, "analysis.subset", keys)))
+        (rc = check_keys(L, m, "analysis.subset", keys_subset)))
       return rc;
     if ((n = lookup(L, m, "max_levels")) &&
         (rc = want_int_range(L, n, "analysis.subset.max_levels", 1, 100,
@@ -1068,15 +1233,11 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
 
 static int load_analysis(loader_t *L, yaml_node_t *an) {
   bk_analysis_t *a = &L->s->analysis;
-  static const char *const keys[] = {
-      "method",          "samples",       "replicates", "target_cov",
-      "max_evaluations", "target_beta",   "ci_level",   "form",
-      "importance",      "cross_entropy", "subset",     NULL};
   int rc;
   yaml_node_t *n;
   if (an) {
     if ((rc = want_mapping(L, an, "analysis")) ||
-        (rc = check_keys(L, an, "analysis", keys)))
+        (rc = check_keys(L, an, "analysis", keys_analysis)))
       return rc;
   }
   a->method = BK_METHOD_RANDOM;
@@ -1194,13 +1355,156 @@ static int load_analysis(loader_t *L, yaml_node_t *an) {
   return 0;
 }
 
+/* The key `key` itself (not its value) in mapping `m`, or NULL. */
+static yaml_node_t *key_node(loader_t *L, yaml_node_t *m, const char *key) {
+  if (!m || m->type != YAML_MAPPING_NODE)
+    return NULL;
+  for (yaml_node_pair_t *p = m->data.mapping.pairs.start;
+       p < m->data.mapping.pairs.top; p++) {
+    yaml_node_t *k = node_at(L, p->key);
+    if (k->type == YAML_SCALAR_NODE && strcmp(scalar(k), key) == 0)
+      return k;
+  }
+  return NULL;
+}
+
+/* The checks that join several keys and the methods' defaults: whatever
+ * would stop a run at its start, or let it run without giving an estimate,
+ * is refused here, so that `brink check` and `brink run` agree. Each error
+ * points at the key to change: the one given, else the section. */
+static int check_design(loader_t *L, yaml_node_t *root) {
+  bk_study_t *s = L->s;
+  const bk_analysis_t *a = &s->analysis;
+  yaml_node_t *an = lookup(L, root, "analysis");
+  yaml_node_t *sn = an ? lookup(L, an, "samples") : NULL;
+  yaml_node_t *men = an ? lookup(L, an, "max_evaluations") : NULL;
+  yaml_node_t *mn = an ? lookup(L, an, "method") : NULL;
+  yaml_node_t *at_an = an ? an : root;
+  const char *method = method_names[a->method];
+  size_t nu = bk_transform_nu(s->transform);
+  unsigned long long N = (unsigned long long)a->samples;
+  unsigned long long maxe = (unsigned long long)a->max_evaluations;
+  if (nu == 0) {
+    yaml_node_t *vk = key_node(L, root, "variables");
+    return FAIL(L, vk ? vk : root,
+                "every variable is a constant, so method %s has nothing "
+                "random to work on; give at least one variable a "
+                "distribution",
+                method);
+  }
+  switch (a->method) {
+  case BK_METHOD_LHS:
+  case BK_METHOD_SOBOL: {
+    unsigned long long per = N / a->replicates;
+    if (a->method == BK_METHOD_SOBOL && nu > BK_SOBOL_MAXDIM)
+      return FAIL(L, mn ? mn : at_an,
+                  "sobol supports at most %d random variables (the study "
+                  "has %zu); use lhs or random",
+                  BK_SOBOL_MAXDIM, nu);
+    if (a->method == BK_METHOD_SOBOL && per > BK_SOBOL_MAXPOINTS)
+      return FAIL(L, sn ? sn : at_an,
+                  "sobol takes at most %llu points per replicate (got %llu: "
+                  "analysis.samples %llu over %u replicates); give more "
+                  "replicates or fewer samples",
+                  (unsigned long long)BK_SOBOL_MAXPOINTS, per, N,
+                  a->replicates);
+    if (maxe < per)
+      return FAIL(L, men ? men : at_an,
+                  "analysis.max_evaluations (%llu) is below one replicate "
+                  "(%llu points: analysis.samples %llu over %u "
+                  "replicates), so nothing would run; raise it",
+                  maxe, per, N, a->replicates);
+    break;
+  }
+  case BK_METHOD_FORM:
+  case BK_METHOD_IMPORTANCE: {
+    if (a->method == BK_METHOD_IMPORTANCE && a->importance.has_center) {
+      yaml_node_t *im = lookup(L, an, "importance");
+      yaml_node_t *cn = lookup(L, im, "center");
+      for (yaml_node_pair_t *p = cn->data.mapping.pairs.start;
+           p < cn->data.mapping.pairs.top; p++) {
+        int i = var_index(s, scalar(node_at(L, p->key)));
+        const bk_dist_t *d = &s->vars[i].dist;
+        double x = a->importance.center[i];
+        if (d->kind != BK_DIST_CONSTANT && !isfinite(bk_dist_to_u(d, x)))
+          return FAIL(L, node_at(L, p->value),
+                      "analysis.importance.center: %s = %g lies outside "
+                      "the range of its %s distribution; give a value it "
+                      "can take",
+                      s->vars[i].name, x, bk_dist_name(d->kind));
+      }
+      break;
+    }
+    /* The design-point search needs room for one iteration: the point
+     * and its gradient (method_form.c). */
+    unsigned long long iter =
+        (unsigned long long)(a->form.central ? 2 * nu : nu) + 1;
+    if (maxe < iter)
+      return FAIL(L, men ? men : at_an,
+                  "analysis.max_evaluations (%llu) is below one FORM "
+                  "iteration (%llu evaluations: the point and its %s "
+                  "differences), so the design-point search cannot start; "
+                  "raise it",
+                  maxe, iter, a->form.central ? "central" : "forward");
+    break;
+  }
+  case BK_METHOD_CROSS_ENTROPY:
+    if (N < 2)
+      return FAIL(L, sn ? sn : at_an,
+                  "cross-entropy needs analysis.samples of at least 2 "
+                  "(points per step)");
+    /* An adaptation step and a final batch (method_cross_entropy.c). */
+    if (maxe < 2 * N)
+      return FAIL(L,
+                  men  ? men
+                  : sn ? sn
+                       : at_an,
+                  "analysis.max_evaluations (%llu%s) leaves no room for "
+                  "cross-entropy with %llu points per step: one adaptation "
+                  "step and one final batch need %llu; %s",
+                  maxe, men ? "" : ", the default", N, 2 * N,
+                  men ? "raise it"
+                      : "give a larger analysis.max_evaluations or fewer "
+                        "samples");
+    break;
+  case BK_METHOD_SUBSET: {
+    yaml_node_t *sub = an ? lookup(L, an, "subset") : NULL;
+    yaml_node_t *pn = sub ? lookup(L, sub, "p0") : NULL;
+    /* The seeds of each level (method_subset.c). */
+    unsigned long long nc =
+        (unsigned long long)floor(a->subset.p0 * (double)N + 0.5);
+    if (nc < 1 || nc >= N)
+      return FAIL(L,
+                  sn   ? sn
+                  : pn ? pn
+                       : at_an,
+                  "subset simulation needs analysis.samples * "
+                  "analysis.subset.p0 between 1 and the samples (got %llu "
+                  "samples, p0 %g); give more samples",
+                  N, a->subset.p0);
+    if (maxe < N)
+      return FAIL(L,
+                  men  ? men
+                  : sn ? sn
+                       : at_an,
+                  "analysis.max_evaluations (%llu) is below one level of "
+                  "subset simulation (analysis.samples, %llu points); "
+                  "raise it",
+                  maxe, N);
+    break;
+  }
+  default:
+    break;
+  }
+  return 0;
+}
+
 static int load_run(loader_t *L, yaml_node_t *rn) {
   bk_run_t *r = &L->s->run;
-  static const char *const keys[] = {"folder", "slots", "scratch", NULL};
   int rc;
   yaml_node_t *n;
   if (rn && ((rc = want_mapping(L, rn, "run")) ||
-             (rc = check_keys(L, rn, "run", keys))))
+             (rc = check_keys(L, rn, "run", keys_run))))
     return rc;
   long ncpu = sysconf(_SC_NPROCESSORS_ONLN);
   r->slots = ncpu > 0 ? (int)ncpu : 1;
@@ -1221,16 +1525,18 @@ static int load_run(loader_t *L, yaml_node_t *rn) {
   } else {
     bk_buf_t b;
     bk_buf_init(&b);
-    bk_buf_printf(&b, "runs/%s", L->s->name);
-    r->folder = resolve_path(L->s->dir, b.data);
+    if (bk_buf_printf(&b, "runs/%s", L->s->name) == 0)
+      r->folder = resolve_path(L->s->dir, b.data);
     bk_buf_close(&b);
   }
+  if (!r->folder)
+    return nomem(L);
   const char *scratch = "";
   if (rn && (n = lookup(L, rn, "scratch")) &&
       (rc = want_text(L, n, "run.scratch", &scratch)))
     return rc;
-  r->scratch = bk_strdup(scratch);
-  return 0;
+  r->scratch = scratch[0] ? resolve_path(L->s->dir, scratch) : bk_strdup("");
+  return r->scratch ? 0 : nomem(L);
 }
 
 /* ---- limit state ---------------------------------------------------- */
@@ -1255,6 +1561,8 @@ static int load_limit_state(loader_t *L, yaml_node_t *gn) {
   if (rc)
     return rc;
   s->limit_state = bk_strdup(text);
+  if (!s->limit_state)
+    return nomem(L);
   size_t n;
   const char **names = bk_study_g_names(s, &n);
   if (!names)
@@ -1264,6 +1572,8 @@ static int load_limit_state(loader_t *L, yaml_node_t *gn) {
   size_t off = 0;
   rc = bk_expr_compile(text, strlen(text), &tab, &s->g, msg, sizeof msg, &off);
   bk_free(names);
+  if (rc == BK_ENOMEM)
+    return nomem(L);
   if (rc) {
     yaml_mark_t mk;
     scalar_offset_mark(L, gn, off, &mk);
@@ -1280,58 +1590,61 @@ static int load_limit_state(loader_t *L, yaml_node_t *gn) {
 static int make_digests(bk_study_t *s) {
   bk_buf_t b;
   bk_buf_init(&b);
-  bk_buf_printf(&b, "seed %llu\n", (unsigned long long)s->seed);
+  int bad = 0; /* a failed append: the text is incomplete */
+  bad |= bk_buf_printf(&b, "seed %llu\n", (unsigned long long)s->seed);
   for (size_t i = 0; i < s->nvars; i++) {
     const bk_dist_t *d = &s->vars[i].dist;
-    bk_buf_printf(&b, "var %s %s", s->vars[i].name, bk_dist_name(d->kind));
+    bad |=
+        bk_buf_printf(&b, "var %s %s", s->vars[i].name, bk_dist_name(d->kind));
     for (int j = 0; j < 6; j++)
-      bk_buf_printf(&b, " %a", d->p[j]);
-    bk_buf_putc(&b, '\n');
+      bad |= bk_buf_printf(&b, " %a", d->p[j]);
+    bad |= bk_buf_putc(&b, '\n');
   }
   for (size_t i = 0; i < s->ncorr; i++)
-    bk_buf_printf(&b, "corr %s %s %a\n", s->vars[s->corr[i].a].name,
-                  s->vars[s->corr[i].b].name, s->corr[i].rho);
+    bad |= bk_buf_printf(&b, "corr %s %s %a\n", s->vars[s->corr[i].a].name,
+                         s->vars[s->corr[i].b].name, s->corr[i].rho);
   const bk_analysis_t *an = &s->analysis;
-  bk_buf_printf(&b, "g %s\nmethod %s samples %llu replicates %u\n",
-                s->limit_state, bk_method_name(an->method),
-                (unsigned long long)an->samples, an->replicates);
+  bad |= bk_buf_printf(&b, "g %s\nmethod %s samples %llu replicates %u\n",
+                       s->limit_state, bk_method_name(an->method),
+                       (unsigned long long)an->samples, an->replicates);
   if (an->method >= BK_METHOD_FORM) {
-    bk_buf_printf(&b, "form %a %d %d %a %d\n", an->form.step, an->form.central,
-                  an->form.max_iterations, an->form.tolerance, an->form.sorm);
-    bk_buf_printf(&b, "ce %d %a %d\nsubset %a %d\n",
-                  an->cross_entropy.components, an->cross_entropy.rho,
-                  an->cross_entropy.max_steps, an->subset.p0,
-                  an->subset.max_levels);
+    bad |= bk_buf_printf(&b, "form %a %d %d %a %d\n", an->form.step,
+                         an->form.central, an->form.max_iterations,
+                         an->form.tolerance, an->form.sorm);
+    bad |= bk_buf_printf(&b, "ce %d %a %d\nsubset %a %d\n",
+                         an->cross_entropy.components, an->cross_entropy.rho,
+                         an->cross_entropy.max_steps, an->subset.p0,
+                         an->subset.max_levels);
     for (size_t i = 0; an->importance.has_center && i < s->nvars; i++)
-      bk_buf_printf(&b, "center %a\n", an->importance.center[i]);
+      bad |= bk_buf_printf(&b, "center %a\n", an->importance.center[i]);
   }
-  if (!b.data)
-    return BK_ENOMEM;
   char hex[33];
-  bk_digest_hex(b.data, b.len, hex);
-  s->digest_study = bk_strdup(hex);
+  if (!bad) {
+    bk_digest_hex(b.data, b.len, hex);
+    s->digest_study = bk_strdup(hex);
+  }
   bk_buf_reset(&b);
   const bk_model_t *m = &s->model;
-  bk_buf_printf(&b, "model %d\n", m->present);
+  bad |= bk_buf_printf(&b, "model %d\n", m->present);
   for (size_t i = 0; i < m->argc; i++)
-    bk_buf_printf(&b, "arg %s\n", m->argv[i]);
+    bad |= bk_buf_printf(&b, "arg %s\n", m->argv[i]);
   for (size_t i = 0; i < m->nenv; i++)
-    bk_buf_printf(&b, "env %s\n", m->env[i]);
+    bad |= bk_buf_printf(&b, "env %s\n", m->env[i]);
   for (size_t i = 0; i < m->ndecks; i++)
-    bk_buf_printf(&b, "deck %s %s\n", m->decks[i].template_name,
-                  m->decks[i].to);
+    bad |= bk_buf_printf(&b, "deck %s %s\n", m->decks[i].template_name,
+                         m->decks[i].to);
   for (size_t i = 0; i < m->ncopy; i++)
-    bk_buf_printf(&b, "copy %s\n", m->copy_names[i]);
+    bad |= bk_buf_printf(&b, "copy %s\n", m->copy_names[i]);
   for (size_t i = 0; i < m->noutputs; i++)
-    bk_buf_printf(&b, "out %s %d %s %d %s\n", m->outputs[i].name,
-                  m->outputs[i].from_stdout,
-                  m->outputs[i].file ? m->outputs[i].file : "",
-                  (int)m->outputs[i].match, m->outputs[i].pattern);
-  bk_buf_printf(&b, "timeout %a\n", m->timeout);
-  if (!b.data)
-    return BK_ENOMEM;
-  bk_digest_hex(b.data, b.len, hex);
-  s->digest_model = bk_strdup(hex);
+    bad |= bk_buf_printf(&b, "out %s %d %s %d %s\n", m->outputs[i].name,
+                         m->outputs[i].from_stdout,
+                         m->outputs[i].file ? m->outputs[i].file : "",
+                         (int)m->outputs[i].match, m->outputs[i].pattern);
+  bad |= bk_buf_printf(&b, "timeout %a\n", m->timeout);
+  if (!bad) {
+    bk_digest_hex(b.data, b.len, hex);
+    s->digest_model = bk_strdup(hex);
+  }
   bk_buf_close(&b);
   return s->digest_study && s->digest_model ? 0 : BK_ENOMEM;
 }
@@ -1356,16 +1669,13 @@ static char *stem_of(const char *path) {
 
 static int load_root(loader_t *L, yaml_node_t *root) {
   bk_study_t *s = L->s;
-  static const char *const keys[] = {"name",         "seed",  "variables",
-                                     "correlations", "model", "limit_state",
-                                     "analysis",     "run",   NULL};
   int rc;
   if (root->type != YAML_MAPPING_NODE)
     return FAIL(L, root,
                 "a study file is a mapping with at least "
                 "'variables' and 'limit_state'; got %s",
                 kind_word(root));
-  if ((rc = check_keys(L, root, "the study file", keys)))
+  if ((rc = check_keys(L, root, "the study file", keys_root)))
     return rc;
   yaml_node_t *n;
   if ((n = lookup(L, root, "name"))) {
@@ -1382,6 +1692,8 @@ static int load_root(loader_t *L, yaml_node_t *root) {
   } else {
     s->name = stem_of(L->path);
   }
+  if (!s->name)
+    return nomem(L);
   s->seed = 1;
   if ((n = lookup(L, root, "seed"))) {
     const char *t;
@@ -1420,9 +1732,13 @@ static int load_root(loader_t *L, yaml_node_t *root) {
     return rc;
   if ((rc = load_analysis(L, lookup(L, root, "analysis"))))
     return rc;
+  if ((rc = check_design(L, root)))
+    return rc;
   if ((rc = load_run(L, lookup(L, root, "run"))))
     return rc;
-  return make_digests(s);
+  if (make_digests(s))
+    return nomem(L);
+  return 0;
 }
 
 int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err) {
@@ -1435,8 +1751,8 @@ int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err) {
   size_t len = 0;
   int rc = read_file(path, &text, &len);
   if (rc)
-    return bk_error_set(err, rc == BK_ENOMEM ? BK_ENOMEM : BK_ESTUDY, path, 0, 0,
-                        "cannot read the study file: %s", bk_strerror(rc));
+    return bk_error_set(err, rc == BK_ENOMEM ? BK_ENOMEM : BK_ESTUDY, path, 0,
+                        0, "cannot read the study file: %s", bk_strerror(rc));
   L.text = text;
   L.len = len;
   bk_study_t *s = bk_calloc(1, sizeof *s);
@@ -1447,6 +1763,10 @@ int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err) {
   L.s = s;
   s->path = bk_strdup(path);
   s->dir = dirname_of(path);
+  if (!s->path || !s->dir) {
+    rc = bk_error_set(err, BK_ENOMEM, path, 0, 0, "out of memory");
+    goto out;
+  }
   yaml_parser_t parser;
   yaml_parser_initialize(&parser);
   yaml_parser_set_input_string(&parser, (const unsigned char *)text, len);

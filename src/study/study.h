@@ -163,6 +163,14 @@ int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err);
 void bk_study_free(bk_study_t *s);
 
 const char *bk_method_name(bk_method_kind_t m);
+
+/* Calls cb once for every key a study file may hold, as a dotted path from
+ * the top ("analysis.form.step"); "NAME" stands for a name the user
+ * chooses ("model.outputs.NAME.file", "variables.NAME.mean") and "[]" for
+ * an entry of a list ("model.files[].to"). The text lives until cb
+ * returns. */
+typedef void (*bk_study_key_cb)(const char *key, void *data);
+void bk_study_keys(bk_study_key_cb cb, void *data);
 /* Names bound by the limit state: variables then outputs; caller frees the
  * array (not the strings) with bk_free. */
 const char **bk_study_g_names(const bk_study_t *s, size_t *n);
