@@ -96,3 +96,38 @@ Test(plan, table_rows_and_wall_time) {
   for (int i = 0; i < BK_PLAN_ROWS; i++)
     cr_expect(isnan(rows[i].seconds));
 }
+
+/* A pilot of lhs or sobol: its own figure scales as 1/N from the pilot's
+ * replicate spread (the variance of an average of N equally spread
+ * samples, common practice), and lhs never asks more than random (Owen
+ * 1997, from memory). Here the pilot of 1024 sobol points gave cov 0.010;
+ * cov 0.005 needs four times as many. */
+Test(plan, a_pilot_scales_lhs_and_sobol) {
+  cr_expect_eq(bk_plan_scaled(1024, 0.010, 0.005), 4096);
+  cr_expect_eq(bk_plan_scaled(1000, 0.1, 0.1), 1000);
+  bk_plan_opts_t o = {.pf = 0.03,
+                      .cov = 0.005,
+                      .seconds = 1,
+                      .slots = 1,
+                      .nu = 4,
+                      .pilot_method = "sobol",
+                      .pilot_evaluations = 1024,
+                      .pilot_cov = 0.010};
+  bk_plan_row_t rows[BK_PLAN_ROWS];
+  bk_plan_compute(&o, rows);
+  cr_expect_eq(rows[2].evaluations, 4096);
+  cr_expect_eq(rows[2].seconds, 4096);
+  cr_expect_str_eq(rows[2].note, "scaled from the pilot's replicate spread");
+  /* lhs and random keep the binomial figure. */
+  cr_expect_eq(rows[1].evaluations, rows[0].evaluations);
+  /* A spread from few failures asking more than random: capped. */
+  o.pilot_method = "lhs";
+  o.pilot_cov = 1.0;
+  bk_plan_compute(&o, rows);
+  cr_expect_eq(rows[1].evaluations, rows[0].evaluations + 1);
+  /* No pilot, or a pilot of another method: unchanged. */
+  o.pilot_method = "random";
+  bk_plan_compute(&o, rows);
+  cr_expect_eq(rows[1].evaluations, rows[0].evaluations);
+  cr_expect_eq(rows[2].evaluations, rows[0].evaluations);
+}

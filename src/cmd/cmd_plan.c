@@ -9,6 +9,7 @@
  */
 #include <errno.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -34,7 +35,8 @@ static const char plan_help[] =
     "from a pilot run in the study's run folder: Pf from report.json, the\n"
     "mean seconds per evaluation from records.log. The figures are\n"
     "estimates from each estimator's variance formula (see docs/methods.md),\n"
-    "for choosing a method; writes nothing.\n"
+    "for choosing a method; writes nothing. A pilot run of lhs or sobol also\n"
+    "scales that method's figure from the spread of its replicates.\n"
     "\n"
     "  --pf P        expected failure probability (0 < P < 1)\n"
     "  --seconds S   seconds per model run\n"
@@ -42,30 +44,51 @@ static const char plan_help[] =
     "  --slots N     concurrent model runs\n"
     "  --json        print JSON instead of a table\n";
 
-/* The "pf" number of a report.json, by a small scan for the key (the
- * report is ours, one key per line). NaN when absent. */
-static double pilot_pf(const char *folder) {
+/* What a pilot's report.json says: Pf, cov, evaluations and the method,
+ * by a small scan for the top-level keys (the report is ours, one key per
+ * line, top-level keys indented by two). NaN / "" when absent. */
+typedef struct {
+  double pf, cov, evaluations;
+  char method[32];
+} pilot_t;
+
+static void pilot_read(const char *folder, pilot_t *pl) {
+  pl->pf = pl->cov = pl->evaluations = NAN;
+  pl->method[0] = '\0';
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/report.json", folder);
-  FILE *f = fopen(p.data, "r");
+  FILE *f = p.data ? fopen(p.data, "r") : NULL;
   bk_buf_close(&p);
   if (!f)
-    return NAN;
+    return;
+  static const struct {
+    const char *key;
+    size_t off;
+  } nums[] = {{"  \"pf\": ", offsetof(pilot_t, pf)},
+              {"  \"cov\": ", offsetof(pilot_t, cov)},
+              {"  \"evaluations\": ", offsetof(pilot_t, evaluations)}};
   char line[4096];
-  double pf = NAN;
   while (fgets(line, sizeof line, f)) {
-    char *k = strstr(line, "\"pf\":");
-    if (k) {
+    for (size_t i = 0; i < sizeof nums / sizeof nums[0]; i++) {
+      size_t kl = strlen(nums[i].key);
+      if (strncmp(line, nums[i].key, kl) != 0)
+        continue;
       char *end;
-      double v = strtod(k + 5, &end);
-      if (end != k + 5)
-        pf = v;
-      break;
+      double v = strtod(line + kl, &end);
+      if (end != line + kl)
+        *(double *)((char *)pl + nums[i].off) = v;
+    }
+    const char *mk = "  \"method\": \"";
+    if (strncmp(line, mk, strlen(mk)) == 0) {
+      const char *b = line + strlen(mk), *e = strchr(b, '"');
+      if (e && (size_t)(e - b) < sizeof pl->method) {
+        memcpy(pl->method, b, (size_t)(e - b));
+        pl->method[e - b] = '\0';
+      }
     }
   }
   fclose(f);
-  return pf;
 }
 
 typedef struct {
@@ -168,8 +191,10 @@ int bk__cmd_plan(int argc, char **argv) {
   if ((rc = bk__cli_load_study(path, &s)))
     return rc;
   const char *pf_from = "--pf", *sec_from = "--seconds";
+  pilot_t pilot;
+  pilot_read(s->run.folder, &pilot);
   if (isnan(pf)) {
-    pf = pilot_pf(s->run.folder);
+    pf = pilot.pf;
     pf_from = "pilot report.json";
     if (!(pf > 0 && pf < 1)) {
       fprintf(stderr,
@@ -204,6 +229,9 @@ int bk__cmd_plan(int argc, char **argv) {
       .ce_batch = s->analysis.method == BK_METHOD_CROSS_ENTROPY
                       ? (double)s->analysis.samples
                       : 500,
+      .pilot_method = pilot.method[0] ? pilot.method : NULL,
+      .pilot_evaluations = pilot.evaluations,
+      .pilot_cov = pilot.cov,
   };
   if (o.slots < 1)
     o.slots = 1;

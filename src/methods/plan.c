@@ -8,6 +8,7 @@
 #include "methods/plan.h"
 
 #include <math.h>
+#include <string.h>
 
 #include "numerics/special.h"
 
@@ -59,6 +60,10 @@ double bk_plan_form(size_t nu, int central, int iterations, int sorm) {
   return n;
 }
 
+double bk_plan_scaled(double n, double cov_pilot, double cov) {
+  return ceil(n * (cov_pilot / cov) * (cov_pilot / cov));
+}
+
 /* Wall time of `n` evaluations run `slots` at a time. */
 static double wall(double n, const bk_plan_opts_t *o) {
   if (!isfinite(o->seconds) || !isfinite(n))
@@ -80,6 +85,24 @@ void bk_plan_compute(const bk_plan_opts_t *o, bk_plan_row_t *rows) {
                             "upper bound (as random; fewer in practice)"};
   rows[2] = (bk_plan_row_t){"sobol", n_mc, wall(n_mc, o),
                             "upper bound (as random; fewer in practice)"};
+  const char *pm = o->pilot_method;
+  if (pm && o->pilot_evaluations > 0 && o->pilot_cov > 0 &&
+      isfinite(o->pilot_cov) && o->pilot_cov < 1e300) {
+    int which = strcmp(pm, "lhs") == 0 ? 1 : strcmp(pm, "sobol") == 0 ? 2 : 0;
+    if (which) {
+      double n = bk_plan_scaled(o->pilot_evaluations, o->pilot_cov, o->cov);
+      rows[which].note = "scaled from the pilot's replicate spread";
+      /* Latin hypercube sampling with n points is never worse than random
+       * sampling with n - 1 (Owen 1997, from memory): a noisy spread from
+       * few failures must not ask for more than random would. */
+      if (which == 1 && n > n_mc + 1) {
+        n = n_mc + 1;
+        rows[which].note = "as random: the pilot's spread asks no fewer";
+      }
+      rows[which].evaluations = n;
+      rows[which].seconds = wall(n, o);
+    }
+  }
   /* FORM runs its iterations one batch after another. */
   double per = o->central ? 2.0 * (double)o->nu + 1 : (double)o->nu + 1;
   double n_form = bk_plan_form(o->nu, o->central, it, o->sorm);

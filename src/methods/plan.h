@@ -27,6 +27,14 @@ typedef struct {
   double is_batch;     /* importance: evaluations between checks */
   double ce_rho;       /* cross-entropy: elite quantile */
   double ce_batch;     /* cross-entropy: evaluations per step */
+  /* A pilot run of lhs or sobol (method NULL when none): its evaluations
+   * and the cov its replicate spread gave. Their figure then scales the
+   * pilot, N = N_pilot (cov_pilot / cov)^2: the variance of these designs
+   * falls at least as 1/N, faster than the binomial formula says for
+   * random sampling, so the binomial count overstates what they need. */
+  const char *pilot_method;
+  double pilot_evaluations;
+  double pilot_cov;
 } bk_plan_opts_t;
 
 /* One row of the plan. */
@@ -52,6 +60,9 @@ double bk_plan_is(double pf, double cov);
  * total N m and sets *levels (may be NULL). */
 double bk_plan_subset(double pf, double cov, double p0, double gamma,
                       int *levels);
+/* Evaluations a design needs for cov, scaled from a pilot of n
+ * evaluations that gave cov_pilot: ceil(n (cov_pilot / cov)^2). */
+double bk_plan_scaled(double n, double cov_pilot, double cov);
 /* FORM: (nu + 1) forward or (2 nu + 1) central points per iteration times
  * the iterations, plus 2 (nu - 1)^2 curvature points for SORM. */
 double bk_plan_form(size_t nu, int central, int iterations, int sorm);
