@@ -172,6 +172,31 @@ Test(cli, check_prints_the_model) {
   cr_assert(!exists("out"), "check writes nothing");
 }
 
+/* What `samples` means for the adaptive methods, and the likely total:
+ * subset simulation runs `samples` per level, about log10(1/Pf) levels at
+ * p0 = 0.1 (Au & Beck 2001). */
+Test(cli, check_says_what_samples_means) {
+  write_file("ss.yaml", "name: ss\n"
+                        "variables:\n  a: {type: normal, mean: 0, sd: 1}\n"
+                        "limit_state: 4 - a\n"
+                        "analysis: {method: subset, samples: 2000}\n");
+  cr_assert_eq(brink("check ss.yaml"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, "2000 points per level (analysis.samples)"), "%s",
+            out);
+  cr_assert(strstr(out, "Pf 1e-4 takes about 4 levels = 8000 evaluations"),
+            "%s", out);
+  write_file("ce.yaml", "name: ce\n"
+                        "variables:\n  a: {type: normal, mean: 0, sd: 1}\n"
+                        "limit_state: 4 - a\n"
+                        "analysis: {method: cross-entropy, samples: 300}\n");
+  cr_assert_eq(brink("check ce.yaml"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("out.txt"),
+                   "300 points per step (analysis.samples): up to 30 "
+                   "adaptation steps"),
+            "%s", read_file("out.txt"));
+}
+
 /* The first SIGINT stops cleanly: exit 3, a line saying how to resume, no
  * report; running again completes. */
 Test(cli, interrupt_exits_3_and_says_how_to_resume) {

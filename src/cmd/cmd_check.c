@@ -376,6 +376,24 @@ int bk__cmd_check(int argc, char **argv) {
              "evaluations in all\n",
              (unsigned long long)a->samples,
              (unsigned long long)a->max_evaluations);
+  } else if (a->method == BK_METHOD_SUBSET) {
+    /* Each level divides Pf by about 1/p0, so Pf ~ p0^k takes k levels of
+     * `samples` each. */
+    double n = (double)a->samples, p0 = a->subset.p0;
+    printf("  %llu points per level (analysis.samples); each level divides "
+           "Pf by about %g,\n  so Pf 1e-%d takes about %.0f levels = %.0f "
+           "evaluations, Pf 1e-%d about %.0f;\n  at most %d levels and %llu "
+           "evaluations\n",
+           (unsigned long long)a->samples, 1 / p0, 4, ceil(4 / -log10(p0)),
+           n * ceil(4 / -log10(p0)), 8, n * ceil(8 / -log10(p0)),
+           a->subset.max_levels, (unsigned long long)a->max_evaluations);
+  } else if (a->method == BK_METHOD_CROSS_ENTROPY) {
+    printf("  %llu points per step (analysis.samples): up to %d adaptation "
+           "steps,\n  then batches of %llu until the cov is reached; at most "
+           "%llu evaluations\n",
+           (unsigned long long)a->samples, a->cross_entropy.max_steps,
+           (unsigned long long)a->samples,
+           (unsigned long long)a->max_evaluations);
   } else {
     printf("  up to %llu evaluations\n",
            (unsigned long long)(a->samples && a->samples < a->max_evaluations
