@@ -403,6 +403,10 @@ Test(commands, init_writes_starter_studies_that_check) {
                read_file("out.txt"));
   cr_assert_eq(brink("init f --fe"), 0);
   cr_assert_eq(brink("check f/study.yaml"), 0, "%s", read_file("err.txt"));
+  /* The starter's comments name the run folder the study writes. */
+  cr_assert(strstr(read_file("f/study.yaml"), "brink report runs/f --html"),
+            "%s", read_file("f/study.yaml"));
+  cr_assert(strstr(read_file("out.txt"), "runs/f"));
   if (access("/usr/bin/ccx", X_OK) == 0)
     cr_assert_eq(brink("check f/study.yaml --try"), 0, "%s",
                  read_file("out.txt"));

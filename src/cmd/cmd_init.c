@@ -124,17 +124,29 @@ static int copy_one(const char *from, const char *to, const char *name,
     fclose(in);
     return e;
   }
-  char line[4096];
+  /* The study is named after its folder, and the template's own name in
+   * its comments (the run folder runs/NAME they point to) follows. */
+  int is_study = study_name && strcmp(name, "study.yaml") == 0;
+  char line[4096], old[128] = "";
+  while (is_study && !old[0] && fgets(line, sizeof line, in))
+    if (strncmp(line, "name: ", 6) == 0)
+      sscanf(line + 6, "%127s", old);
+  rewind(in);
   int named = 0;
   while (fgets(line, sizeof line, in)) {
-    /* The study is named after its folder. */
-    if (!named && study_name && strcmp(name, "study.yaml") == 0 &&
-        strncmp(line, "name: ", 6) == 0) {
+    if (is_study && !named && strncmp(line, "name: ", 6) == 0) {
       fprintf(out, "name: %s\n", study_name);
       named = 1;
       continue;
     }
-    fputs(line, out);
+    const char *p = line, *hit;
+    size_t ol = strlen(old);
+    while (is_study && ol && line[0] == '#' && (hit = strstr(p, old))) {
+      fwrite(p, 1, (size_t)(hit - p), out);
+      fputs(study_name, out);
+      p = hit + ol;
+    }
+    fputs(p, out);
   }
   fclose(in);
   return fclose(out) == 0 ? 0 : -errno;
