@@ -390,6 +390,49 @@ Test(method_form, faulted_gradient_points_are_retried_then_reported) {
   bk_study_free(s);
 }
 
+/* With a model, FORM obeys model.max_error_fraction like every method
+ * (mctx.h): one faulted gradient point among the dozen evaluations of the
+ * search is above the default 5%, and the run stops with a message naming
+ * the fault kind and its first key; allowed 20%, the same search ends
+ * normally. (The spy evaluates the limit state itself; the model section
+ * only makes the study one with a model.) */
+Test(method_form, the_error_limit_applies_to_form) {
+  const char *study = "variables:\n"
+                      "  a: {type: normal, mean: 0, sd: 1}\n"
+                      "  b: {type: normal, mean: 0, sd: 1}\n"
+                      "model:\n"
+                      "  command: ['true']\n"
+                      "  outputs: {y: {file: out.txt, pattern: 'y = (\\S+)'}}\n"
+                      "  max_error_fraction: %s\n"
+                      "limit_state: 3 - b + 0.1*a^2\n"
+                      "analysis: {method: form}\n";
+  bk_study_t *s = study_from(study, "0.05");
+  spy_t sp = {.s = s, .fault_prefix = "form/i1", .fault_index = 2};
+  bk_evaluator_t ev = {spy_batch, &sp};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), BK_EMODEL);
+  cr_expect(strstr(err.msg, "1 of "), "%s", err.msg);
+  cr_expect(strstr(err.msg, "model runs failed"), "%s", err.msg);
+  cr_expect(strstr(err.msg, "most ended in exit-code (1), the first at "
+                            "form/i1/2"),
+            "%s", err.msg);
+  cr_expect_eq(r.model_errors, 1);
+  bk_result_close(&r);
+  bk_study_free(s);
+
+  s = study_from(study, "0.2");
+  spy_t sp2 = {.s = s, .fault_prefix = "form/i1", .fault_index = 2};
+  bk_evaluator_t ev2 = {spy_batch, &sp2};
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev2, NULL, &r, &err), 0, "%s", err.msg);
+  cr_expect(r.dp.converged && fabs(r.dp.beta - 3) < 1e-6);
+  cr_expect_eq(r.model_errors, 1);
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
 /* An iteration cap that stops a nonlinear search: the result says NOT
  * converged, warns, and still carries the last iterate. */
 Test(method_form, non_convergence_is_reported) {

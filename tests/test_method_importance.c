@@ -15,6 +15,7 @@
 #include <string.h>
 #include <unistd.h>
 
+#include "base/fault.h"
 #include "methods/method.h"
 #include "numerics/special.h"
 #include "study/study.h"
@@ -312,6 +313,54 @@ Test(method_importance, a_second_design_point_is_reported) {
   cr_expect(fabs(r.dp.beta - 4) < 1e-6);
   cr_expect(has_warning(&r, "nearer than the centre"));
   cr_expect(has_warning(&r, "FORM and importance sampling disagree"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* An evaluator that evaluates the limit state in process and faults every
+ * tenth importance sample ("is/0", "is/10", ...). */
+static int faulty_is_batch(bk_evaluator_t *ev, const char *prefix,
+                           bk_point_t *pts, size_t n, bk_error_t *err) {
+  (void)err;
+  const bk_study_t *s = ev->data;
+  for (size_t i = 0; i < n; i++) {
+    pts[i].g = bk_expr_eval(s->g, pts[i].x);
+    pts[i].fault = BK_FAULT_NONE;
+    if (strcmp(prefix, "is") == 0 && pts[i].index % 10 == 0) {
+      pts[i].g = NAN;
+      pts[i].fault = BK_FAULT_SIGNAL;
+    }
+  }
+  return 0;
+}
+
+/* The FORM phase and the sampling share one method context, so the error
+ * limit counts the whole run (mctx.h): 10 faulted samples in the first
+ * batch of 100, over FORM's 8 evaluations and those 100, is above the
+ * default 5% and stops the run, the message counting all 108 and naming
+ * the first faulted key. */
+Test(method_importance, the_error_limit_counts_form_and_sampling) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "  c: {type: normal, mean: 0, sd: 1}\n"
+                             "model:\n"
+                             "  command: ['true']\n"
+                             "  outputs: {y: {file: out.txt, pattern: "
+                             "'y = (\\S+)'}}\n"
+                             "limit_state: 4 - (a + b + c)/sqrt(3)\n"
+                             "analysis: {method: importance, samples: 100}\n");
+  bk_evaluator_t ev = {faulty_is_batch, s};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), BK_EMODEL);
+  cr_expect_eq(r.evaluations, 108);
+  cr_expect_eq(r.model_errors, 10);
+  cr_expect(strstr(err.msg, "10 of 108 model runs failed (9.3%"), "%s",
+            err.msg);
+  cr_expect(strstr(err.msg, "most ended in signal (10), the first at is/0"),
+            "%s", err.msg);
   bk_result_close(&r);
   bk_study_free(s);
 }

@@ -44,7 +44,7 @@ int bk_mctx_reserve(bk_mctx_t *m, size_t n) {
   m->ys = ny ? bk_calloc(n * ny, sizeof *m->ys) : NULL;
   if (!m->pts || !m->xs || (ny && !m->ys)) {
     bk_mctx_close(m);
-    return bk_error_set(m->err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+    return bk_mctx_nomem(m);
   }
   for (size_t i = 0; i < n; i++) {
     m->pts[i].x = m->xs + i * nv;
@@ -138,6 +138,10 @@ double bk_mctx_g(const bk_mctx_t *m, size_t i) {
 void bk_mctx_progress(bk_mctx_t *m) {
   if (m->opts && m->opts->progress)
     m->opts->progress(m->opts->progress_data, m->res, m->planned);
+}
+
+int bk_mctx_nomem(bk_mctx_t *m) {
+  return bk_error_set(m->err, BK_ENOMEM, NULL, 0, 0, "out of memory");
 }
 
 int bk_mctx_finish(bk_mctx_t *m) {

@@ -79,6 +79,9 @@ double bk_mctx_g(const bk_mctx_t *m, size_t i);
 /* Reports progress (res as it stands) to the caller's callback. */
 void bk_mctx_progress(bk_mctx_t *m);
 
+/* Sets err to "out of memory" and returns BK_ENOMEM. */
+int bk_mctx_nomem(bk_mctx_t *m);
+
 /* The error-limit rule at the end of a method, whatever the count.
  * Returns 0 or BK_EMODEL with err set. */
 int bk_mctx_finish(bk_mctx_t *m);

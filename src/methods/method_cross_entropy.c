@@ -37,21 +37,18 @@
  *
  * SPDX-License-Identifier: MIT
  */
+#include <assert.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include "base/alloc.h"
-#include "base/fault.h"
+#include "methods/mctx.h"
 #include "methods/method_impl.h"
+#include "methods/weighted.h"
 #include "numerics/rng.h"
 #include "numerics/special.h"
-#include "base/stop.h"
-
-/* The error fraction limit is applied after this many evaluations (as in
- * method_mc.c). */
-#define MIN_FOR_ERROR_LIMIT 20
 /* EM: iterations and relative tolerance on the weighted log-likelihood. */
 #define EM_MAX_ITER 200
 #define EM_TOL      1e-9
@@ -251,31 +248,14 @@ static int set_component(gm_t *g, size_t c, const double *x, const double *w,
   return 0;
 }
 
-/* Fits g (up to kmax components) to m points x with weights w (summing to
- * a positive number) by weighted EM. Starting point: the first centre is
- * the point of largest weight (lowest index on ties), each next one the
- * point farthest from the centres so far; points go to their nearest
- * centre, each cluster gives a component. Work space: r (m * kmax), cov
- * (nu * nu), tmp (nu), lc (kmax). Returns 0 or -1 when no component can be
- * formed. */
-static int gm_fit(gm_t *g, size_t kmax, const double *x, const double *w,
-                  size_t m, double *r, double *cov, double *tmp, double *lc,
-                  int *iterations) {
-  size_t nu = g->nu;
-  size_t npos = 0;
-  for (size_t i = 0; i < m; i++)
-    npos += w[i] > 0;
-  size_t k = kmax < npos ? kmax : npos;
-  if (k == 0)
-    return -1;
-  *iterations = 0;
-  if (k == 1) {
-    g->k = 1;
-    g->pi[0] = 1;
-    return set_component(g, 0, x, w, m, cov);
-  }
-  /* Farthest-point seeding; column 0 of r holds each point's nearest
-   * centre so far. */
+/* The EM's starting point for k >= 2 components: farthest-point seeding
+ * (the first centre is the point of largest weight, lowest index on ties;
+ * each next one the positive-weight point farthest from the centres so
+ * far), then every point goes wholly to its nearest centre, as row i of r
+ * (stride kmax). Deterministic in index order. Returns 0 or -2 when out of
+ * memory. */
+static int seed_clusters(size_t nu, size_t k, size_t kmax, const double *x,
+                         const double *w, size_t m, double *r) {
   size_t *centre = (size_t *)bk_calloc(k, sizeof *centre);
   double *dmin = bk_calloc(m, sizeof *dmin);
   if (!centre || !dmin) {
@@ -290,6 +270,7 @@ static int gm_fit(gm_t *g, size_t kmax, const double *x, const double *w,
   centre[0] = best;
   for (size_t i = 0; i < m; i++)
     dmin[i] = INFINITY;
+  /* Column 0 of r holds each point's nearest centre so far. */
   for (size_t j = 1; j <= k; j++) {
     const double *cj = x + centre[j - 1] * nu;
     size_t far = 0;
@@ -300,7 +281,7 @@ static int gm_fit(gm_t *g, size_t kmax, const double *x, const double *w,
         d2 += (x[i * nu + d] - cj[d]) * (x[i * nu + d] - cj[d]);
       if (d2 < dmin[i]) {
         dmin[i] = d2;
-        r[i * kmax] = (double)(j - 1); /* nearest centre so far */
+        r[i * kmax] = (double)(j - 1);
       }
       if (w[i] > 0 && dmin[i] > fd) {
         fd = dmin[i];
@@ -310,7 +291,6 @@ static int gm_fit(gm_t *g, size_t kmax, const double *x, const double *w,
     if (j < k)
       centre[j] = far;
   }
-  /* Hard assignment into responsibilities. */
   for (size_t i = 0; i < m; i++) {
     size_t a = (size_t)r[i * kmax];
     for (size_t c = 0; c < k; c++)
@@ -318,61 +298,106 @@ static int gm_fit(gm_t *g, size_t kmax, const double *x, const double *w,
   }
   bk_free(centre);
   bk_free(dmin);
+  return 0;
+}
+
+/* M-step: each component of g from the points weighted by w times its
+ * responsibilities (wc: m doubles of work space); components with a
+ * mixture weight below MIN_COMPONENT_WEIGHT, or none to form, are dropped
+ * and the columns of r follow. Returns the components kept, then in
+ * g->k. */
+static size_t em_maximise(gm_t *g, size_t kmax, const double *x,
+                          const double *w, size_t m, double sw, double *r,
+                          double *wc, double *cov) {
+  size_t kk = 0;
+  for (size_t c = 0; c < g->k; c++) {
+    double s = 0;
+    for (size_t i = 0; i < m; i++) {
+      wc[i] = w[i] * r[i * kmax + c];
+      s += wc[i];
+    }
+    if (!(s / sw >= MIN_COMPONENT_WEIGHT))
+      continue;
+    if (set_component(g, kk, x, wc, m, cov))
+      continue;
+    g->pi[kk] = s / sw;
+    /* Move this component's responsibilities to column kk. */
+    if (kk != c)
+      for (size_t i = 0; i < m; i++)
+        r[i * kmax + kk] = r[i * kmax + c];
+    kk++;
+  }
+  if (kk == 0)
+    return 0;
+  g->k = kk;
+  double spi = 0;
+  for (size_t c = 0; c < g->k; c++)
+    spi += g->pi[c];
+  for (size_t c = 0; c < g->k; c++)
+    g->pi[c] /= spi;
+  return kk;
+}
+
+/* E-step: the responsibilities r of the components for every point, and
+ * the weighted mean log-likelihood, returned. */
+static double em_expect(const gm_t *g, size_t kmax, const double *x,
+                        const double *w, size_t m, double sw, double *r,
+                        double *tmp, double *lc) {
+  double ll = 0;
+  for (size_t i = 0; i < m; i++) {
+    double lh = gm_logpdf(g, x + i * g->nu, tmp, lc);
+    for (size_t c = 0; c < g->k; c++)
+      r[i * kmax + c] = isfinite(lh) ? exp(lc[c] - lh) : 1.0 / g->k;
+    if (w[i] > 0)
+      ll += w[i] * lh;
+  }
+  return ll / sw;
+}
+
+/* Fits g (up to kmax components) to m points x with weights w (summing to
+ * a positive number) by weighted EM from seed_clusters, until the
+ * log-likelihood changes by less than EM_TOL relative or EM_MAX_ITER.
+ * Work space: r (m * kmax), cov (nu * nu), tmp (nu), lc (kmax). Returns
+ * 0, -1 when no component can be formed, or -2 when out of memory. */
+static int gm_fit(gm_t *g, size_t kmax, const double *x, const double *w,
+                  size_t m, double *r, double *cov, double *tmp, double *lc,
+                  int *iterations) {
+  size_t npos = 0;
+  for (size_t i = 0; i < m; i++)
+    npos += w[i] > 0;
+  size_t k = kmax < npos ? kmax : npos;
+  if (k == 0)
+    return -1;
+  *iterations = 0;
+  if (k == 1) {
+    g->k = 1;
+    g->pi[0] = 1;
+    return set_component(g, 0, x, w, m, cov);
+  }
+  if (seed_clusters(g->nu, k, kmax, x, w, m, r))
+    return -2;
   double *wc = bk_calloc(m, sizeof *wc);
   if (!wc)
     return -2;
   double prev = -INFINITY;
   g->k = k;
+  int rc = 0;
   for (int it = 0; it < EM_MAX_ITER; it++) {
-    /* M-step. */
     double sw = 0;
     for (size_t i = 0; i < m; i++)
       sw += w[i];
-    size_t kk = 0;
-    for (size_t c = 0; c < g->k; c++) {
-      double s = 0;
-      for (size_t i = 0; i < m; i++) {
-        wc[i] = w[i] * r[i * kmax + c];
-        s += wc[i];
-      }
-      if (!(s / sw >= MIN_COMPONENT_WEIGHT))
-        continue;
-      if (set_component(g, kk, x, wc, m, cov))
-        continue;
-      g->pi[kk] = s / sw;
-      /* Move this component's responsibilities to column kk. */
-      if (kk != c)
-        for (size_t i = 0; i < m; i++)
-          r[i * kmax + kk] = r[i * kmax + c];
-      kk++;
+    if (em_maximise(g, kmax, x, w, m, sw, r, wc, cov) == 0) {
+      rc = -1;
+      break;
     }
-    if (kk == 0) {
-      bk_free(wc);
-      return -1;
-    }
-    g->k = kk;
-    double spi = 0;
-    for (size_t c = 0; c < g->k; c++)
-      spi += g->pi[c];
-    for (size_t c = 0; c < g->k; c++)
-      g->pi[c] /= spi;
     *iterations = it + 1;
-    /* E-step and weighted log-likelihood. */
-    double ll = 0;
-    for (size_t i = 0; i < m; i++) {
-      double lh = gm_logpdf(g, x + i * nu, tmp, lc);
-      for (size_t c = 0; c < g->k; c++)
-        r[i * kmax + c] = isfinite(lh) ? exp(lc[c] - lh) : 1.0 / g->k;
-      if (w[i] > 0)
-        ll += w[i] * lh;
-    }
-    ll /= sw;
+    double ll = em_expect(g, kmax, x, w, m, sw, r, tmp, lc);
     if (g->k == 1 || fabs(ll - prev) <= EM_TOL * (1 + fabs(ll)))
       break;
     prev = ll;
   }
   bk_free(wc);
-  return 0;
+  return rc;
 }
 
 /* Covariance smoothing (Rubinstein & Kroese 2004, smoothed updating): each
@@ -426,89 +451,68 @@ static void gm_smooth(gm_t *to, const double *pool, double *cov, double alpha) {
   }
 }
 
+/* One run. The adaptation batch: us (N * nu) points, logw their
+ * log phi(u) - log h(u), geff their g after the on_error policy (NaN: left
+ * out). The elite set: ex (N * nu) points with weights ew. h is the
+ * current density, hn the next one being fitted. */
 typedef struct {
-  const bk_study_t *s;
-  bk_evaluator_t *ev;
-  const bk_method_opts_t *opts;
-  bk_result_t *res;
-  bk_error_t *err;
-  size_t nu, nbatch;
-  bk_point_t *pts;
-  double *xs, *ys;
-  double *us;   /* nbatch * nu u-space points of the batch */
-  double *logw; /* nbatch: log phi(u) - log h(u) */
-  double *geff; /* nbatch: g after the on_error policy (NaN: left out) */
+  bk_mctx_t ctx;
+  size_t nu, N, K;
+  gm_t h, hn;
+  double *us, *logw, *geff;
+  double *sorted, *ex, *ew;
+  double *resp; /* N * K responsibilities of the EM */
+  double *cov;  /* 3 nu * nu: covariance, saved factor, pooled covariance */
   double *tmp, *lc, *z;
-  uint64_t total_n, total_e;
+  /* The adaptation so far. */
+  int steps, reached;
+  double gamma;
 } ce_t;
 
-static void progress(ce_t *m, uint64_t planned) {
-  if (m->opts && m->opts->progress)
-    m->opts->progress(m->opts->progress_data, m->res, planned);
-}
-
-static int check_error_limit(ce_t *m, int final) {
-  const bk_model_t *md = &m->s->model;
-  if (m->total_n == 0 || (!final && m->total_n < MIN_FOR_ERROR_LIMIT))
-    return 0;
-  if (!md->present && m->total_e < m->total_n)
-    return 0;
-  double frac = (double)m->total_e / (double)m->total_n;
-  if (frac > md->max_error_fraction)
-    return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
-                        "%llu of %llu model runs failed (%.1f%%, above "
-                        "model.max_error_fraction %g); the records say why "
-                        "and the run folders are kept. Fix the model and "
-                        "run again to resume",
-                        (unsigned long long)m->total_e,
-                        (unsigned long long)m->total_n, 100 * frac,
-                        md->max_error_fraction);
+static int ce_alloc(ce_t *ce) {
+  size_t N = ce->N, nu = ce->nu, K = ce->K;
+  ce->us = bk_calloc(N * nu, sizeof *ce->us);
+  ce->logw = bk_calloc(N, sizeof *ce->logw);
+  ce->geff = bk_calloc(N, sizeof *ce->geff);
+  ce->sorted = bk_calloc(N, sizeof *ce->sorted);
+  ce->ex = bk_calloc(N * nu, sizeof *ce->ex);
+  ce->ew = bk_calloc(N, sizeof *ce->ew);
+  ce->resp = bk_calloc(N * K, sizeof *ce->resp);
+  ce->cov = bk_calloc(3 * nu * nu, sizeof *ce->cov);
+  ce->tmp = bk_calloc(nu, sizeof *ce->tmp);
+  ce->z = bk_calloc(nu, sizeof *ce->z);
+  ce->lc = bk_calloc(K, sizeof *ce->lc);
+  if (!ce->us || !ce->logw || !ce->geff || !ce->sorted || !ce->ex || !ce->ew ||
+      !ce->resp || !ce->cov || !ce->tmp || !ce->z || !ce->lc ||
+      gm_init(&ce->h, nu, K) || gm_init(&ce->hn, nu, K) ||
+      bk_mctx_reserve(&ce->ctx, N))
+    return bk_mctx_nomem(&ce->ctx);
   return 0;
 }
 
-/* Draws and evaluates n points of density h under key prefix `prefix`,
- * indices from `first`, filling us, logw and geff. */
-static int run_batch(ce_t *m, const gm_t *h, const char *prefix, uint64_t first,
-                     size_t n) {
-  const bk_study_t *s = m->s;
-  size_t nu = m->nu, ny = s->model.noutputs;
-  uint64_t stream = bk_rng_stream(prefix);
-  for (size_t i = 0; i < n; i++) {
-    bk_point_t *p = &m->pts[i];
-    double *u = m->us + i * nu;
-    p->index = first + i;
-    p->x = m->xs + i * s->nvars;
-    p->y = ny ? m->ys + i * ny : NULL;
-    gm_sample(h, s->seed, stream, p->index, u, m->z);
-    m->logw[i] = log_phi(u, nu) - gm_logpdf(h, u, m->tmp, m->lc);
-    bk_transform_u_to_x(s->transform, u, p->x);
-    p->g = NAN;
-    p->fault = BK_FAULT_NONE;
-  }
-  int rc = m->ev->batch(m->ev, prefix, m->pts, n, m->err);
-  if (rc)
-    return rc;
-  for (size_t i = 0; i < n; i++) {
-    const bk_point_t *p = &m->pts[i];
-    m->total_n++;
-    if (p->fault != BK_FAULT_NONE) {
-      m->total_e++;
-      if (s->model.on_error == BK_ON_ERROR_ABORT)
-        return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
-                            "model error (%s) at %s/%llu and model.on_error "
-                            "is abort",
-                            bk_fault_name(p->fault), prefix,
-                            (unsigned long long)p->index);
-      m->geff[i] = s->model.on_error == BK_ON_ERROR_FAIL ? -INFINITY : NAN;
-    } else {
-      m->geff[i] = p->g;
-    }
-  }
-  m->res->evaluations = m->total_n;
-  m->res->model_errors = m->total_e;
-  if (bk_stop_requested())
-    return BK_ESTOPPED;
-  return check_error_limit(m, 0);
+static void ce_free(ce_t *ce) {
+  gm_close(&ce->h);
+  gm_close(&ce->hn);
+  bk_free(ce->us);
+  bk_free(ce->logw);
+  bk_free(ce->geff);
+  bk_free(ce->sorted);
+  bk_free(ce->ex);
+  bk_free(ce->ew);
+  bk_free(ce->resp);
+  bk_free(ce->cov);
+  bk_free(ce->tmp);
+  bk_free(ce->z);
+  bk_free(ce->lc);
+}
+
+/* Point `index` of the current density h (see gm_sample) and its
+ * log-weight log phi(u) - log h(u). */
+static double draw_mixture(void *data, uint64_t stream, uint64_t index,
+                           double *u) {
+  ce_t *ce = data;
+  gm_sample(&ce->h, ce->ctx.s->seed, stream, index, u, ce->z);
+  return log_phi(u, ce->nu) - gm_logpdf(&ce->h, u, ce->tmp, ce->lc);
 }
 
 static int cmp_double(const void *a, const void *b) {
@@ -516,306 +520,233 @@ static int cmp_double(const void *a, const void *b) {
   return (x > y) - (x < y);
 }
 
-/* Fills the estimate of the weighted estimator from its sums. */
-static void weighted_estimate(uint64_t n, uint64_t k, double s1, double s2,
-                              double level, bk_estimate_t *e) {
-  memset(e, 0, sizeof *e);
-  e->n = n;
-  e->failures = k;
-  e->ci_level = level;
-  e->ci_method = "normal (weighted)";
-  double nn = (double)n;
-  double pf = n ? s1 / nn : NAN;
-  double var = n > 1 ? (s2 / nn - pf * pf) / (nn - 1) : INFINITY;
-  if (var < 0)
-    var = 0;
-  double sd = sqrt(var);
-  e->pf = pf;
-  e->cov = pf > 0 ? sd / pf : INFINITY;
-  double zq = bk_norm_icdf(0.5 + level / 2);
-  e->ci[0] = pf - zq * sd > 0 ? pf - zq * sd : 0;
-  e->ci[1] = pf + zq * sd;
-  if (k == 0) {
-    e->ci[0] = 0;
-    e->ci[1] = NAN;
+/* The step's threshold: the rho-quantile of the valid g of the batch,
+ * raised to 0 (then the adaptation has reached the failure domain). */
+static int threshold(ce_t *ce, int t) {
+  size_t nv = 0;
+  for (size_t i = 0; i < ce->N; i++)
+    if (!isnan(ce->geff[i]))
+      ce->sorted[nv++] = ce->geff[i];
+  if (nv == 0)
+    return bk_error_set(ce->ctx.err, BK_EMODEL, NULL, 0, 0,
+                        "every evaluation of adaptation step %d failed; "
+                        "the cross-entropy method cannot go on",
+                        t);
+  qsort(ce->sorted, nv, sizeof *ce->sorted, cmp_double);
+  size_t q = (size_t)ceil(ce->ctx.s->analysis.cross_entropy.rho * (double)nv);
+  if (q < 1)
+    q = 1;
+  ce->gamma = ce->sorted[q - 1];
+  if (ce->gamma <= 0) {
+    ce->gamma = 0;
+    ce->reached = 1;
   }
-  e->ci_exact[0] = e->ci[0];
-  e->ci_exact[1] = e->ci[1];
-  e->beta = bk_beta_from_pf(pf);
-  e->beta_ci[0] = bk_beta_from_pf(e->ci[1]);
-  e->beta_ci[1] = bk_beta_from_pf(e->ci[0]);
+  return 0;
+}
+
+/* The elite set: the points at or below the threshold, in index order,
+ * with weights phi / h scaled by the largest (so the largest is 1).
+ * Returns their count. */
+static size_t elite_set(ce_t *ce) {
+  size_t nu = ce->nu, ne = 0;
+  double lmax = -INFINITY;
+  for (size_t i = 0; i < ce->N; i++)
+    if (!isnan(ce->geff[i]) && ce->geff[i] <= ce->gamma && ce->logw[i] > lmax)
+      lmax = ce->logw[i];
+  for (size_t i = 0; i < ce->N; i++) {
+    if (isnan(ce->geff[i]) || ce->geff[i] > ce->gamma)
+      continue;
+    memcpy(ce->ex + ne * nu, ce->us + i * nu, nu * sizeof *ce->ex);
+    ce->ew[ne] = exp(ce->logw[i] - lmax);
+    ne++;
+  }
+  return ne;
+}
+
+/* Fits the next density to the ne elite points and, when the fit forms,
+ * smooths it towards the current one and makes it current. Returns 0 or
+ * BK_ENOMEM with err set. */
+static int refit(ce_t *ce, size_t ne) {
+  size_t nu = ce->nu;
+  int iters;
+  int frc = gm_fit(&ce->hn, ce->K, ce->ex, ce->ew, ne, ce->resp, ce->cov,
+                   ce->tmp, ce->lc, &iters);
+  if (frc == -2)
+    return bk_mctx_nomem(&ce->ctx);
+  if (frc != 0)
+    return 0;
+  double *pool = ce->cov + 2 * nu * nu;
+  gm_pooled(&ce->h, pool);
+  /* Fewer effective elite points than dimensions give a covariance whose
+   * eigenvalues scatter widely; lean on the previous density the more,
+   * the fewer points there are per dimension. */
+  double a1 = 0, a2 = 0;
+  for (size_t i = 0; i < ne; i++) {
+    a1 += ce->ew[i];
+    a2 += ce->ew[i] * ce->ew[i];
+  }
+  double neff = a1 * a1 / a2;
+  double alpha = ALPHA * neff / (neff + (double)nu);
+  gm_smooth(&ce->hn, pool, ce->cov, alpha);
+  gm_t sw = ce->h;
+  ce->h = ce->hn;
+  ce->hn = sw;
+  return 0;
+}
+
+/* Adaptation step t: one batch "ce/s<t>" from h, its threshold, the elite
+ * set and the next density. */
+static int adapt_step(ce_t *ce, int t) {
+  bk_mctx_t *m = &ce->ctx;
+  char prefix[48];
+  snprintf(prefix, sizeof prefix, "ce/s%d", t);
+  int rc = bk_weighted_batch(m, prefix, 0, ce->N, draw_mixture, ce, ce->us,
+                             ce->logw);
+  if (rc)
+    return rc;
+  for (size_t i = 0; i < ce->N; i++)
+    ce->geff[i] = bk_mctx_g(m, i);
+  if ((rc = threshold(ce, t)) || (rc = refit(ce, elite_set(ce))))
+    return rc;
+  ce->steps = t + 1;
+  if (bk_result_detailf(m->res, ce->gamma, "threshold step %d", t))
+    return bk_mctx_nomem(m);
+  m->res->est.pf = NAN;
+  m->res->est.cov = NAN;
+  m->planned = m->n + ce->N;
+  bk_mctx_progress(m);
+  return 0;
+}
+
+/* The adaptation: steps until the threshold reaches 0, max_steps, or too
+ * little of max_evaluations is left for a step and a final batch. */
+static int adapt(ce_t *ce) {
+  bk_mctx_t *m = &ce->ctx;
+  const bk_analysis_t *a = &m->s->analysis;
+  bk_result_t *res = m->res;
+  ce->gamma = INFINITY;
+  int rc;
+  for (int t = 0; t < a->cross_entropy.max_steps && !ce->reached; t++) {
+    if (m->n + 2 * (uint64_t)ce->N > a->max_evaluations)
+      break;
+    if ((rc = adapt_step(ce, t)))
+      return rc;
+  }
+  if (bk_result_detail(res, "adaptation steps", ce->steps) ||
+      bk_result_detail(res, "mixture components", (double)ce->h.k))
+    return bk_mctx_nomem(m);
+  if (ce->reached)
+    return 0;
+  if (ce->steps == 0)
+    return bk_error_set(m->err, BK_EINVAL, m->s->path, 0, 0,
+                        "analysis.max_evaluations (%llu) leaves no room for "
+                        "cross-entropy with %zu points per step; raise it",
+                        (unsigned long long)a->max_evaluations, ce->N);
+  if (bk_result_warn(res,
+                     "the adaptation stopped after %d steps with the "
+                     "threshold at %g, not 0: the sampling density may miss "
+                     "part of the failure domain (raise "
+                     "analysis.cross_entropy.max_steps or analysis.samples)",
+                     ce->steps, ce->gamma))
+    return bk_mctx_nomem(m);
+  return 0;
+}
+
+/* The final density is widened: its covariances are scaled by
+ * 1 + 1/sqrt(nu). A fitted Gaussian has lighter tails than the optimal
+ * density whenever the failure domain is curved in u-space (e.g. a sum
+ * of skewed variables), and the weights of points in those tails make
+ * the variance estimate too small; widening bounds them, at a cost that
+ * stays small in high dimension (the factor tends to 1). On the sum of
+ * 20 exponentials it raised the interval coverage from about 75% to 90%
+ * and lowered the evaluations needed. */
+static void widen(gm_t *h) {
+  size_t nu = h->nu;
+  double f = 1 + 1 / sqrt((double)nu);
+  for (size_t c = 0; c < h->k; c++) {
+    for (size_t q = 0; q < nu * nu; q++)
+      h->L[c * nu * nu + q] *= sqrt(f);
+    h->logdet[c] += (double)nu * log(f);
+  }
+}
+
+/* The estimation with the final density (weighted.h), its details and
+ * warnings. */
+static int estimate(ce_t *ce) {
+  bk_mctx_t *m = &ce->ctx;
+  bk_result_t *res = m->res;
+  bk_weighted_t w = {
+      .prefix = "ce/final", .batch = ce->N, .draw = draw_mixture, .data = ce};
+  int rc = bk_weighted_run(m, &w);
+  if (rc)
+    return rc;
+  uint64_t k = w.est.k;
+  double ess = bk_estimate_wsum_ess(&w.est);
+  if (bk_result_detail(res, "final samples", (double)w.n) ||
+      bk_result_detail(res, "effective sample size", ess))
+    return bk_mctx_nomem(m);
+  /* With a well-fitted density the weights of the failing points are all
+   * close to Pf, and the effective sample size is close to their count;
+   * a few dozen effective points are too few for the variance estimate. */
+  if (k > 0 && (ess < 0.01 * (double)k || ess < 30))
+    rc = bk_result_warn(
+        res,
+        "the importance weights are degenerate: the %llu failing "
+        "points count as %.1f (effective sample size), so the "
+        "interval is unreliable; the sampling density does not match "
+        "the failure domain (try more "
+        "analysis.cross_entropy.components or analysis.samples)",
+        (unsigned long long)k, ess);
+  if (k == 0)
+    rc = bk_result_warn(res,
+                        "no failure was seen in %llu final "
+                        "samples; Pf is not estimated",
+                        (unsigned long long)w.n);
+  if (rc)
+    return bk_mctx_nomem(m);
+  return 0;
 }
 
 int bk__method_cross_entropy(const bk_study_t *s, bk_evaluator_t *ev,
                              const bk_method_opts_t *opts, bk_result_t *res,
                              bk_error_t *err) {
   const bk_analysis_t *a = &s->analysis;
-  ce_t m;
-  memset(&m, 0, sizeof m);
-  m.s = s;
-  m.ev = ev;
-  m.opts = opts;
-  m.res = res;
-  m.err = err;
-  m.nu = bk_transform_nu(s->transform);
-  if (m.nu == 0)
-    return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "every variable is a constant: there is nothing to "
-                        "sample; give at least one variable a distribution");
-  size_t nu = m.nu, N = (size_t)a->samples;
-  size_t K = (size_t)a->cross_entropy.components;
-  if (N < 2)
-    return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "cross-entropy needs analysis.samples of at least 2 "
-                        "(points per step; 500 by default)");
-  m.nbatch = N;
-  size_t ny = s->model.noutputs;
-  gm_t h, hn;
-  memset(&h, 0, sizeof h);
-  memset(&hn, 0, sizeof hn);
-  m.pts = bk_calloc(N, sizeof *m.pts);
-  m.xs = bk_calloc(N * (s->nvars ? s->nvars : 1), sizeof *m.xs);
-  m.ys = ny ? bk_calloc(N * ny, sizeof *m.ys) : NULL;
-  m.us = bk_calloc(N * nu, sizeof *m.us);
-  m.logw = bk_calloc(N, sizeof *m.logw);
-  m.geff = bk_calloc(N, sizeof *m.geff);
-  m.tmp = bk_calloc(nu, sizeof *m.tmp);
-  m.z = bk_calloc(nu, sizeof *m.z);
-  m.lc = bk_calloc(K, sizeof *m.lc);
-  double *sorted = bk_calloc(N, sizeof *sorted);
-  double *ex = bk_calloc(N * nu, sizeof *ex);
-  double *ew = bk_calloc(N, sizeof *ew);
-  double *resp = bk_calloc(N * K, sizeof *resp);
-  double *cov = bk_calloc(3 * nu * nu, sizeof *cov);
-  int rc = 0;
-  if (!m.pts || !m.xs || (ny && !m.ys) || !m.us || !m.logw || !m.geff ||
-      !m.tmp || !m.z || !m.lc || !sorted || !ex || !ew || !resp || !cov ||
-      gm_init(&h, nu, K) || gm_init(&hn, nu, K)) {
-    rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  ce_t ce;
+  memset(&ce, 0, sizeof ce);
+  bk_mctx_init(&ce.ctx, s, ev, opts, res, err);
+  ce.nu = ce.ctx.nu;
+  ce.N = (size_t)a->samples;
+  ce.K = (size_t)a->cross_entropy.components;
+  /* The loader refuses a study of constants only and fewer than 2 points
+   * per step. */
+  assert(ce.nu > 0 && ce.N >= 2);
+  int rc = ce_alloc(&ce);
+  if (rc)
     goto out;
-  }
-  gm_standard(&h);
-  res->stop_reason = "target_cov reached";
+  gm_standard(&ce.h);
   /* Each step fits nu (nu + 3) / 2 parameters per component from about
    * rho * N points. Measured on the sum of 20 exponentials (bench_rare):
    * 500 points per step needed over 100000 evaluations and mis-stated the
    * interval, 1500 to 2000 about 12000; hence the advice of 100 per
    * dimension. */
-  if (N < 100 * nu &&
-      (rc = bk_result_warn(
-           res,
-           "analysis.samples (%zu points per step) is small for %zu random "
-           "variables: each step fits a full covariance from about %.0f "
-           "points; use at least %zu",
-           N, nu, a->cross_entropy.rho * (double)N, 100 * nu)))
-    goto nomem;
-
-  /* Adaptation. */
-  int steps = 0, reached = 0;
-  double gamma = INFINITY;
-  char prefix[48];
-  for (int t = 0; t < a->cross_entropy.max_steps; t++) {
-    if (m.total_n + 2 * (uint64_t)N > a->max_evaluations)
-      break;
-    snprintf(prefix, sizeof prefix, "ce/s%d", t);
-    if ((rc = run_batch(&m, &h, prefix, 0, N)))
-      goto out;
-    size_t nv = 0;
-    for (size_t i = 0; i < N; i++)
-      if (!isnan(m.geff[i]))
-        sorted[nv++] = m.geff[i];
-    if (nv == 0) {
-      rc = bk_error_set(err, BK_EMODEL, NULL, 0, 0,
-                        "every evaluation of adaptation step %d failed; "
-                        "the cross-entropy method cannot go on",
-                        t);
-      goto out;
-    }
-    qsort(sorted, nv, sizeof *sorted, cmp_double);
-    size_t q = (size_t)ceil(a->cross_entropy.rho * (double)nv);
-    if (q < 1)
-      q = 1;
-    gamma = sorted[q - 1];
-    if (gamma <= 0) {
-      gamma = 0;
-      reached = 1;
-    }
-    /* Elite set with weights phi / h_t, scaled by the largest. */
-    size_t ne = 0;
-    double lmax = -INFINITY;
-    for (size_t i = 0; i < N; i++)
-      if (!isnan(m.geff[i]) && m.geff[i] <= gamma && m.logw[i] > lmax)
-        lmax = m.logw[i];
-    for (size_t i = 0; i < N; i++) {
-      if (isnan(m.geff[i]) || m.geff[i] > gamma)
-        continue;
-      memcpy(ex + ne * nu, m.us + i * nu, nu * sizeof *ex);
-      ew[ne] = exp(m.logw[i] - lmax);
-      ne++;
-    }
-    int iters;
-    int frc = gm_fit(&hn, K, ex, ew, ne, resp, cov, m.tmp, m.lc, &iters);
-    if (frc == -2) {
-      rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
-      goto out;
-    }
-    steps = t + 1;
-    char label[64];
-    snprintf(label, sizeof label, "threshold step %d", t);
-    if ((rc = bk_result_detail(res, label, gamma)))
-      goto nomem;
-    if (frc == 0) {
-      gm_pooled(&h, cov + 2 * nu * nu);
-      /* Fewer effective elite points than dimensions give a covariance
-       * whose eigenvalues scatter widely; lean on the previous density
-       * the more, the fewer points there are per dimension. */
-      double a1 = 0, a2 = 0;
-      for (size_t i = 0; i < ne; i++) {
-        a1 += ew[i];
-        a2 += ew[i] * ew[i];
-      }
-      double neff = a1 * a1 / a2;
-      double alpha = ALPHA * neff / (neff + (double)nu);
-      gm_smooth(&hn, cov + 2 * nu * nu, cov, alpha);
-      gm_t sw = h;
-      h = hn;
-      hn = sw;
-    }
-    res->est.pf = NAN;
-    res->est.cov = NAN;
-    progress(&m, m.total_n + N);
-    if (reached)
-      break;
+  if (ce.N < 100 * ce.nu &&
+      bk_result_warn(res,
+                     "analysis.samples (%zu points per step) is small for %zu "
+                     "random variables: each step fits a full covariance "
+                     "from about %.0f points; use at least %zu",
+                     ce.N, ce.nu, a->cross_entropy.rho * (double)ce.N,
+                     100 * ce.nu)) {
+    rc = bk_mctx_nomem(&ce.ctx);
+    goto out;
   }
-  if ((rc = bk_result_detail(res, "adaptation steps", steps)) ||
-      (rc = bk_result_detail(res, "mixture components", (double)h.k)))
-    goto nomem;
-  if (!reached) {
-    if (steps == 0) {
-      rc = bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "analysis.max_evaluations (%llu) leaves no room for "
-                        "cross-entropy with %zu points per step; raise it",
-                        (unsigned long long)a->max_evaluations, N);
-      goto out;
-    }
-    if ((rc = bk_result_warn(
-             res,
-             "the adaptation stopped after %d steps with the threshold at "
-             "%g, not 0: the sampling density may miss part of the failure "
-             "domain (raise analysis.cross_entropy.max_steps or "
-             "analysis.samples)",
-             steps, gamma)))
-      goto nomem;
-  }
-
-  /* The final density is widened: its covariances are scaled by
-   * 1 + 1/sqrt(nu). A fitted Gaussian has lighter tails than the optimal
-   * density whenever the failure domain is curved in u-space (e.g. a sum
-   * of skewed variables), and the weights of points in those tails make
-   * the variance estimate too small; widening bounds them, at a cost that
-   * stays small in high dimension (the factor tends to 1). On the sum of
-   * 20 exponentials it raised the interval coverage from about 75% to 90%
-   * and lowered the evaluations needed. */
-  double widen = 1 + 1 / sqrt((double)nu);
-  for (size_t c = 0; c < h.k; c++) {
-    for (size_t q = 0; q < nu * nu; q++)
-      h.L[c * nu * nu + q] *= sqrt(widen);
-    h.logdet[c] += (double)nu * log(widen);
-  }
-  /* Estimation. */
-  double s1 = 0, s2 = 0, se = 0, sw1 = 0, sw2 = 0;
-  uint64_t n = 0, k = 0, e = 0, nfinal = 0, ntot = 0;
-  int fail_mode = s->model.on_error == BK_ON_ERROR_FAIL;
-  for (;;) {
-    uint64_t left = a->max_evaluations - m.total_n;
-    if (left == 0) {
-      res->stop_reason = "max_evaluations reached before target_cov";
-      break;
-    }
-    size_t nb = left < N ? (size_t)left : N;
-    if ((rc = run_batch(&m, &h, "ce/final", nfinal, nb)))
-      goto out;
-    nfinal += nb;
-    for (size_t i = 0; i < nb; i++) {
-      double w = exp(m.logw[i]);
-      int faulty = m.pts[i].fault != BK_FAULT_NONE;
-      ntot++;
-      if (faulty) {
-        e++;
-        se += w;
-        if (!fail_mode)
-          continue;
-      }
-      n++;
-      if (m.geff[i] <= 0) {
-        k++;
-        s1 += w;
-        s2 += w * w;
-        sw1 += w;
-        sw2 += w * w;
-      }
-    }
-    weighted_estimate(n, k, s1, s2, a->ci_level, &res->est);
-    res->est.n = n;
-    if (e && !fail_mode) {
-      res->pf_bounds[0] = s1 / (double)ntot;
-      res->pf_bounds[1] = (s1 + se) / (double)ntot;
-    } else {
-      res->pf_bounds[0] = res->est.pf;
-      res->pf_bounds[1] = res->est.pf;
-    }
-    res->excluded = fail_mode ? 0 : e;
-    if ((rc = bk_result_push_history(res)))
-      goto nomem;
-    progress(&m, m.total_n + (res->est.cov <= a->target_cov ? 0 : N));
-    if (res->est.cov <= a->target_cov)
-      break;
-  }
-  double ess = sw2 > 0 ? sw1 * sw1 / sw2 : 0;
-  if ((rc = bk_result_detail(res, "final samples", (double)nfinal)) ||
-      (rc = bk_result_detail(res, "effective sample size", ess)))
-    goto nomem;
-  /* With a well-fitted density the weights of the failing points are all
-   * close to Pf, and the effective sample size is close to their count;
-   * a few dozen effective points are too few for the variance estimate. */
-  if (k > 0 && (ess < 0.01 * (double)k || ess < 30))
-    if ((rc = bk_result_warn(
-             res,
-             "the importance weights are degenerate: the %llu failing "
-             "points count as %.1f (effective sample size), so the "
-             "interval is unreliable; the sampling density does not match "
-             "the failure domain (try more "
-             "analysis.cross_entropy.components or analysis.samples)",
-             (unsigned long long)k, ess)))
-      goto nomem;
-  if (k == 0)
-    if ((rc = bk_result_warn(res,
-                              "no failure was seen in %llu final "
-                              "samples; Pf is not estimated",
-                              (unsigned long long)nfinal)))
-      goto nomem;
-  rc = check_error_limit(&m, 1);
-  goto out;
-nomem:
-  rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  if ((rc = adapt(&ce)))
+    goto out;
+  widen(&ce.h);
+  if ((rc = estimate(&ce)))
+    goto out;
+  rc = bk_mctx_finish(&ce.ctx);
 out:
-  res->evaluations = m.total_n;
-  res->model_errors = m.total_e;
-  gm_close(&h);
-  gm_close(&hn);
-  bk_free(m.pts);
-  bk_free(m.xs);
-  bk_free(m.ys);
-  bk_free(m.us);
-  bk_free(m.logw);
-  bk_free(m.geff);
-  bk_free(m.tmp);
-  bk_free(m.z);
-  bk_free(m.lc);
-  bk_free(sorted);
-  bk_free(ex);
-  bk_free(ew);
-  bk_free(resp);
-  bk_free(cov);
+  bk_mctx_close(&ce.ctx);
+  ce_free(&ce);
   return rc;
 }

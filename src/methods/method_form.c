@@ -17,15 +17,16 @@
  *
  * SPDX-License-Identifier: MIT
  */
+#include <assert.h>
 #include <math.h>
 #include <stdio.h>
 #include <string.h>
 
 #include "base/alloc.h"
 #include "base/fault.h"
+#include "methods/mctx.h"
 #include "methods/method_impl.h"
 #include "numerics/special.h"
-#include "base/stop.h"
 
 /* Iterates stay inside this radius in u-space: Phi(-20) is about 3e-89, so
  * a design point further out means no failure worth reporting. */
@@ -40,21 +41,25 @@
 /* Gradient retries with half the step after a faulted gradient point. */
 #define GRAD_RETRIES 3
 
+/* The state of one search. Vectors have nu entries: u, grad, alpha are
+ * the accepted iterate, its gradient and -grad / |grad|; cand and cgrad
+ * the candidate and its gradient; d the step from prev, the iterate the
+ * line search starts from; tmp one point of a batch. x holds nvars. */
 typedef struct {
-  const bk_study_t *s;
-  bk_evaluator_t *ev;
-  const bk_method_opts_t *opts;
-  bk_result_t *res;
-  bk_error_t *err;
+  bk_mctx_t *m;
+  const bk_form_opts_t *fo;
   size_t nu, nd; /* u dimension; difference points per gradient */
-  bk_point_t *pts;
-  double *xs, *ys, *us; /* cap points */
-  uint64_t *idx;
-  double *g;
-  int *fault;
-  size_t cap;
-  uint64_t failures;
-  uint64_t planned;
+  double *work;  /* owns every vector below */
+  double *u, *grad, *alpha, *cand, *cgrad, *d, *prev, *tmp, *x;
+  double g, g_scale, beta, gnorm; /* at the accepted iterate */
+  /* Line search: the merit at prev, its slope along d, the merit's
+   * weight c on |g|, and the step length lambda. */
+  double merit0, slope, c, lambda;
+  int halvings, have_prev;
+  int converged, iterations;
+  int capped;         /* stopped by max_iterations or max_evaluations */
+  const char *why;    /* why the search ended without converging */
+  uint64_t failures0; /* failures of the context before the search */
 } form_t;
 
 static double dot(const double *a, const double *b, size_t n) {
@@ -64,75 +69,12 @@ static double dot(const double *a, const double *b, size_t n) {
   return s;
 }
 
-static int grow(form_t *f, size_t n) {
-  if (n <= f->cap)
-    return 0;
-  size_t ny = f->s->model.noutputs;
-  bk_free(f->pts);
-  bk_free(f->xs);
-  bk_free(f->ys);
-  bk_free(f->us);
-  bk_free(f->idx);
-  bk_free(f->g);
-  bk_free(f->fault);
-  f->pts = bk_calloc(n, sizeof *f->pts);
-  f->idx = bk_calloc(n, sizeof *f->idx);
-  f->g = bk_calloc(n, sizeof *f->g);
-  f->fault = bk_calloc(n, sizeof *f->fault);
-  f->xs = bk_calloc(n * (f->s->nvars ? f->s->nvars : 1), sizeof *f->xs);
-  f->ys = ny ? bk_calloc(n * ny, sizeof *f->ys) : NULL;
-  f->us = bk_calloc(n * f->nu, sizeof *f->us);
-  f->cap = n;
-  if (!f->pts || !f->xs || (ny && !f->ys) || !f->us || !f->idx || !f->g ||
-      !f->fault) {
-    f->cap = 0;
-    return bk_error_set(f->err, BK_ENOMEM, NULL, 0, 0, "out of memory");
-  }
-  return 0;
-}
-
-/* Evaluates the n points f->us[0..n) (u-space) under prefix/idx[i],
- * writing g[i] (NaN on a fault) and fault[i]. Counts evaluations, failures
- * and model errors; with on_error abort a fault is an error naming the
- * key. */
-static int evaluate(form_t *f, const char *prefix, const uint64_t *idx,
-                    size_t n, double *g, int *fault) {
-  const bk_study_t *s = f->s;
-  size_t ny = s->model.noutputs;
-  for (size_t i = 0; i < n; i++) {
-    bk_point_t *p = &f->pts[i];
-    p->index = idx[i];
-    p->x = f->xs + i * s->nvars;
-    p->y = ny ? f->ys + i * ny : NULL;
-    bk_transform_u_to_x(s->transform, f->us + i * f->nu, p->x);
-    p->g = NAN;
-    p->fault = BK_FAULT_NONE;
-  }
-  int rc = f->ev->batch(f->ev, prefix, f->pts, n, f->err);
-  if (rc)
-    return rc;
-  f->res->evaluations += n;
-  for (size_t i = 0; i < n; i++) {
-    const bk_point_t *p = &f->pts[i];
-    fault[i] = p->fault;
-    g[i] = p->fault ? NAN : p->g;
-    if (p->fault) {
-      f->res->model_errors++;
-      if (s->model.on_error == BK_ON_ERROR_ABORT)
-        return bk_error_set(f->err, BK_EMODEL, NULL, 0, 0,
-                            "model error (%s) at %s/%llu and model.on_error "
-                            "is abort",
-                            bk_fault_name(p->fault), prefix,
-                            (unsigned long long)p->index);
-    } else if (p->g <= 0) {
-      f->failures++;
-    }
-  }
-  if (f->opts && f->opts->progress)
-    f->opts->progress(f->opts->progress_data, f->res, f->planned);
-  if (bk_stop_requested())
-    return BK_ESTOPPED;
-  return 0;
+/* Evaluates points [0, n) of the context's batch and reports progress. */
+static int evaluate(form_t *f, const char *prefix, size_t n) {
+  int rc = bk_mctx_evaluate(f->m, prefix, n);
+  if (rc == 0)
+    bk_mctx_progress(f->m);
+  return rc;
 }
 
 /* The gradient at u by differences under `prefix`, points from index 1.
@@ -143,51 +85,48 @@ static int evaluate(form_t *f, const char *prefix, const uint64_t *idx,
  * fails, naming the key. */
 static int gradient(form_t *f, const char *prefix, const double *u, int with0,
                     double *g0, int *fault0, double *grad) {
+  bk_mctx_t *m = f->m;
   size_t nu = f->nu, nd = f->nd;
-  int rc = grow(f, nd + 1);
+  int rc = bk_mctx_reserve(m, nd + 1);
   if (rc)
     return rc;
-  uint64_t *idx = f->idx;
-  double *g = f->g;
-  int *fault = f->fault;
-  double h = f->s->analysis.form.step;
+  double h = f->fo->step;
   for (int r = 0; r <= GRAD_RETRIES; r++, h /= 2) {
     size_t o = with0 && r == 0 ? 1 : 0;
-    if (o) {
-      memcpy(f->us, u, nu * sizeof *u);
-      idx[0] = 0;
-    }
+    if (o)
+      bk_mctx_set_u(m, 0, 0, u);
     for (size_t j = 0; j < nd; j++) {
-      double *p = f->us + (o + j) * nu;
-      memcpy(p, u, nu * sizeof *p);
-      p[j % nu] += j < nu ? h : -h;
-      idx[o + j] = 1 + (uint64_t)r * nd + j;
+      memcpy(f->tmp, u, nu * sizeof *u);
+      f->tmp[j % nu] += j < nu ? h : -h;
+      bk_mctx_set_u(m, o + j, 1 + (uint64_t)r * nd + j, f->tmp);
     }
-    if ((rc = evaluate(f, prefix, idx, o + nd, g, fault)))
+    if ((rc = evaluate(f, prefix, o + nd)))
       return rc;
+    const bk_point_t *p = m->pts;
     if (o) {
-      *g0 = g[0];
-      *fault0 = fault[0];
-      if (fault[0])
+      *fault0 = p[0].fault;
+      *g0 = p[0].fault ? NAN : p[0].g;
+      if (p[0].fault)
         return 0;
     }
     size_t bad = nd;
     for (size_t j = 0; j < nd && bad == nd; j++)
-      if (fault[o + j])
+      if (p[o + j].fault)
         bad = j;
     if (bad == nd) {
-      const double *gd = g + o;
+      const bk_point_t *pd = p + o;
       for (size_t j = 0; j < nu; j++)
-        grad[j] = nd > nu ? (gd[j] - gd[nu + j]) / (2 * h) : (gd[j] - *g0) / h;
+        grad[j] =
+            nd > nu ? (pd[j].g - pd[nu + j].g) / (2 * h) : (pd[j].g - *g0) / h;
       return 0;
     }
     if (r == GRAD_RETRIES)
-      return bk_error_set(f->err, BK_EMODEL, NULL, 0, 0,
+      return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
                           "FORM: the model failed (%s) at the gradient point "
                           "%s/%llu, also after %d retries with smaller "
                           "steps; the records say why",
-                          bk_fault_name(fault[o + bad]), prefix,
-                          (unsigned long long)idx[o + bad], GRAD_RETRIES);
+                          bk_fault_name(p[o + bad].fault), prefix,
+                          (unsigned long long)p[o + bad].index, GRAD_RETRIES);
   }
   return 0;
 }
@@ -228,33 +167,11 @@ static void jacobi_eigenvalues(double *a, size_t n, double *ev) {
     ev[i] = a[i * n + i];
 }
 
-/* Breitung's SORM at the design point u* = beta alpha: an orthonormal
- * basis r_1..r_m (m = nu - 1) of the tangent plane by Gram-Schmidt from
- * alpha and the unit vectors, the Hessian of g in that basis by second
- * differences as one batch "form/h", the curvature matrix H / |grad g|,
- * its eigenvalues kappa_i, and Pf = Phi(-beta) prod (1 + beta kappa_i)^-1/2
- * (Breitung 1984). */
-static int sorm(form_t *f, const double *u, double g0, const double *alpha,
-                double gnorm, double beta) {
-  size_t nu = f->nu, m = nu - 1;
-  bk_result_t *res = f->res;
-  if (m == 0) {
-    res->dp.pf_sorm = res->dp.pf_form;
-    return 0;
-  }
-  int rc;
-  double *basis = bk_calloc(nu * nu, sizeof *basis);
-  double *hm = bk_calloc(m * m, sizeof *hm);
-  double *kappa = bk_calloc(m, sizeof *kappa);
-  size_t npts = 2 * m + 2 * m * (m - 1);
-  uint64_t *idx = bk_calloc(npts, sizeof *idx);
-  double *g = bk_calloc(npts, sizeof *g);
-  int *fault = bk_calloc(npts, sizeof *fault);
-  if (!basis || !hm || !kappa || !idx || !g || !fault) {
-    rc = bk_error_set(f->err, BK_ENOMEM, NULL, 0, 0, "out of memory");
-    goto out;
-  }
-  /* Row 0 is alpha, rows 1..m the tangent basis. */
+/* An orthonormal basis of u-space into the rows of basis (nu x nu): row 0
+ * is alpha (a unit vector), rows 1..nu-1 span the tangent plane, by
+ * Gram-Schmidt (twice, for accuracy) from the unit vectors, skipping those
+ * nearly parallel to the rows so far. */
+static void tangent_basis(const double *alpha, size_t nu, double *basis) {
   memcpy(basis, alpha, nu * sizeof *basis);
   size_t nb = 1;
   for (size_t e = 0; e < nu && nb < nu; e++) {
@@ -274,18 +191,21 @@ static int sorm(form_t *f, const double *u, double g0, const double *alpha,
       v[i] /= nv;
     nb++;
   }
-  if ((rc = grow(f, npts)))
-    goto out;
-  /* Points: u +- h r_i (2 m), then u + h (+-r_i +-r_j) for i < j. Second
-   * differences amplify noise by 1/h^2, so the step is ten times the
-   * gradient step. */
-  double h = 10 * f->s->analysis.form.step;
-  size_t k = 0;
+}
+
+/* Sets the curvature batch around u with step h along the tangent rows
+ * r_1..r_m of basis: u +- h r_i (2 m points), then u + h (+-r_i +-r_j)
+ * for i < j (4 each), key indices in that order. Returns the count. */
+static size_t curvature_points(form_t *f, const double *u, const double *basis,
+                               double h) {
+  size_t nu = f->nu, m = nu - 1, k = 0;
+  double *p = f->tmp;
   for (size_t i = 0; i < m; i++)
     for (int sg = 1; sg >= -1; sg -= 2, k++) {
       const double *r = basis + (1 + i) * nu;
       for (size_t d = 0; d < nu; d++)
-        f->us[k * nu + d] = u[d] + sg * h * r[d];
+        p[d] = u[d] + sg * h * r[d];
+      bk_mctx_set_u(f->m, k, k, p);
     }
   for (size_t i = 0; i < m; i++)
     for (size_t j = i + 1; j < m; j++)
@@ -293,35 +213,74 @@ static int sorm(form_t *f, const double *u, double g0, const double *alpha,
         for (int sj = 1; sj >= -1; sj -= 2, k++) {
           const double *ri = basis + (1 + i) * nu, *rj = basis + (1 + j) * nu;
           for (size_t d = 0; d < nu; d++)
-            f->us[k * nu + d] = u[d] + h * (si * ri[d] + sj * rj[d]);
+            p[d] = u[d] + h * (si * ri[d] + sj * rj[d]);
+          bk_mctx_set_u(f->m, k, k, p);
         }
-  for (size_t i = 0; i < npts; i++)
-    idx[i] = i;
-  if ((rc = evaluate(f, "form/h", idx, npts, g, fault)))
-    goto out;
-  for (size_t i = 0; i < npts; i++)
-    if (fault[i]) {
-      bk_result_warn(res,
-                      "SORM skipped: the model failed (%s) at the curvature "
-                      "point form/h/%zu",
-                      bk_fault_name(fault[i]), i);
-      goto out;
-    }
-  k = 0;
+  return k;
+}
+
+/* The principal curvatures kappa (m values) from the evaluated curvature
+ * batch: the Hessian of g in the tangent basis by second differences
+ * (hm, m x m work space), divided by |grad g|, and its eigenvalues. */
+static void curvatures(const form_t *f, double g0, double gnorm, double h,
+                       double *hm, double *kappa) {
+  size_t m = f->nu - 1, k = 0;
+  const bk_point_t *p = f->m->pts;
   for (size_t i = 0; i < m; i++, k += 2)
-    hm[i * m + i] = (g[k] - 2 * g0 + g[k + 1]) / (h * h);
+    hm[i * m + i] = (p[k].g - 2 * g0 + p[k + 1].g) / (h * h);
   for (size_t i = 0; i < m; i++)
     for (size_t j = i + 1; j < m; j++, k += 4) {
-      double v = (g[k] - g[k + 1] - g[k + 2] + g[k + 3]) / (4 * h * h);
+      double v = (p[k].g - p[k + 1].g - p[k + 2].g + p[k + 3].g) / (4 * h * h);
       hm[i * m + j] = hm[j * m + i] = v;
     }
   for (size_t i = 0; i < m * m; i++)
     hm[i] /= gnorm;
   jacobi_eigenvalues(hm, m, kappa);
+}
+
+/* Breitung's SORM at the converged design point u* = beta alpha: the
+ * tangent basis, the Hessian of g in it as one batch "form/h", the
+ * curvatures kappa_i, and Pf = Phi(-beta) prod (1 + beta kappa_i)^-1/2
+ * (Breitung 1984) into res->dp.pf_sorm, the curvatures as details. A
+ * faulted curvature point, or some 1 + beta kappa_i <= 0, leaves pf_sorm
+ * NaN with a warning saying why. */
+static int sorm(form_t *f) {
+  size_t nu = f->nu, m = nu - 1;
+  bk_result_t *res = f->m->res;
+  if (m == 0) {
+    res->dp.pf_sorm = res->dp.pf_form;
+    return 0;
+  }
+  int rc;
+  double *basis = bk_calloc(nu * nu, sizeof *basis);
+  double *hm = bk_calloc(m * m, sizeof *hm);
+  double *kappa = bk_calloc(m, sizeof *kappa);
+  if (!basis || !hm || !kappa) {
+    rc = bk_mctx_nomem(f->m);
+    goto out;
+  }
+  tangent_basis(f->alpha, nu, basis);
+  if ((rc = bk_mctx_reserve(f->m, 2 * m + 2 * m * (m - 1))))
+    goto out;
+  /* Second differences amplify noise by 1/h^2, so the step is ten times
+   * the gradient step. */
+  double h = 10 * f->fo->step;
+  size_t npts = curvature_points(f, f->u, basis, h);
+  if ((rc = evaluate(f, "form/h", npts)))
+    goto out;
+  for (size_t i = 0; i < npts; i++)
+    if (f->m->pts[i].fault) {
+      bk_result_warn(res,
+                     "SORM skipped: the model failed (%s) at the curvature "
+                     "point form/h/%zu",
+                     bk_fault_name(f->m->pts[i].fault), i);
+      goto out;
+    }
+  curvatures(f, f->g, f->gnorm, h, hm, kappa);
   double factor = 1;
   int valid = 1;
   for (size_t i = 0; i < m; i++) {
-    double t = 1 + beta * kappa[i];
+    double t = 1 + f->beta * kappa[i];
     if (!(t > 0))
       valid = 0;
     else
@@ -331,22 +290,16 @@ static int sorm(form_t *f, const double *u, double g0, const double *alpha,
     res->dp.pf_sorm = res->dp.pf_form * factor;
   } else {
     bk_result_warn(res, "SORM (Breitung) does not apply: a principal "
-                         "curvature kappa has 1 + beta kappa <= 0 (the failure "
-                         "surface bends round the origin more tightly than "
-                         "the beta sphere); use a sampling method");
+                        "curvature kappa has 1 + beta kappa <= 0 (the failure "
+                        "surface bends round the origin more tightly than "
+                        "the beta sphere); use a sampling method");
   }
-  for (size_t i = 0; i < m; i++) {
-    char label[64];
-    snprintf(label, sizeof label, "curvature %zu", i + 1);
-    bk_result_detail(res, label, kappa[i]);
-  }
+  for (size_t i = 0; i < m; i++)
+    bk_result_detailf(res, kappa[i], "curvature %zu", i + 1);
 out:
   bk_free(basis);
   bk_free(hm);
   bk_free(kappa);
-  bk_free(idx);
-  bk_free(g);
-  bk_free(fault);
   return rc;
 }
 
@@ -355,10 +308,10 @@ out:
  * Kiureghian 2005, from memory); gamma = alpha without correlations.
  * Column i of L^-1 is the u of the point with z = e_i, found through the
  * transform itself since u depends linearly on z. */
-static void importance_factors(form_t *f, const double *alpha) {
-  const bk_study_t *s = f->s;
+static void importance_factors(form_t *f) {
+  const bk_study_t *s = f->m->s;
   size_t nu = f->nu, nv = s->nvars;
-  double *x = f->xs, *col = f->us, *a2 = f->res->dp.alpha2;
+  double *x = f->x, *col = f->tmp, *a2 = f->m->res->dp.alpha2;
   double sum = 0;
   size_t ui = 0;
   for (size_t i = 0; i < nv; i++) {
@@ -374,7 +327,7 @@ static void importance_factors(form_t *f, const double *alpha) {
         x[k] = bk_dist_from_u(d, uk++ == ui ? 1.0 : 0.0);
     }
     bk_transform_x_to_u(s->transform, x, col);
-    double gmm = dot(alpha, col, nu);
+    double gmm = dot(f->alpha, col, nu);
     a2[i] = gmm * gmm;
     sum += a2[i];
     ui++;
@@ -383,207 +336,254 @@ static void importance_factors(form_t *f, const double *alpha) {
     a2[i] /= sum;
 }
 
-int bk__form_search(const bk_study_t *s, bk_evaluator_t *ev,
-                    const bk_method_opts_t *opts, bk_result_t *res,
-                    bk_error_t *err) {
-  form_t f;
-  memset(&f, 0, sizeof f);
-  f.s = s;
-  f.ev = ev;
-  f.opts = opts;
-  f.res = res;
-  f.err = err;
-  f.nu = bk_transform_nu(s->transform);
-  const bk_form_opts_t *fo = &s->analysis.form;
-  size_t nu = f.nu;
-  if (nu == 0)
-    return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "every variable is a constant: there is no design "
-                        "point to search; give at least one variable a "
-                        "distribution");
-  f.nd = fo->central ? 2 * nu : nu;
-  f.planned = (uint64_t)fo->max_iterations * (f.nd + 1);
-  int rc = bk_result_design_point(res, nu, s->nvars);
+/* Whether the budget allows another iteration; when not, says why. */
+static int budget_left(form_t *f) {
+  const bk_study_t *s = f->m->s;
+  if (f->iterations >= f->fo->max_iterations)
+    f->why = "max_iterations reached";
+  else if (f->m->n + f->nd + 1 > s->analysis.max_evaluations)
+    f->why = "max_evaluations reached";
+  else
+    return 1;
+  f->capped = 1;
+  return 0;
+}
+
+/* Evaluates the candidate as point 0 of batch `prefix`. A full step
+ * evaluates it together with its gradient points (one batch, the usual
+ * case); during a line search it goes alone, and the gradient follows if
+ * it is accepted. *gc is its g (NaN on a fault), *fault0 its fault. */
+static int evaluate_candidate(form_t *f, const char *prefix, int speculative,
+                              double *gc, int *fault0) {
+  if (speculative)
+    return gradient(f, prefix, f->cand, 1, gc, fault0, f->cgrad);
+  int rc = bk_mctx_reserve(f->m, 1);
   if (rc)
-    return bk_error_set(err, rc, NULL, 0, 0, "out of memory");
-  double *work = bk_calloc(7 * nu, sizeof *work);
-  if (!work || grow(&f, f.nd + 1)) {
-    rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
-    goto out;
+    return rc;
+  bk_mctx_set_u(f->m, 0, 0, f->cand);
+  if ((rc = evaluate(f, prefix, 1)))
+    return rc;
+  *fault0 = f->m->pts[0].fault;
+  *gc = *fault0 ? NAN : f->m->pts[0].g;
+  return 0;
+}
+
+/* After a rejected candidate: halves the step from the accepted iterate.
+ * Returns 0, with the reason set, once MAX_HALVINGS are spent. */
+static int shorten_step(form_t *f) {
+  if (++f->halvings > MAX_HALVINGS) {
+    f->why = "the line search found no step that lowers the merit function";
+    return 0;
   }
-  double *u = work, *grad = work + nu, *alpha = work + 2 * nu;
-  double *cand = work + 3 * nu, *d = work + 4 * nu, *cgrad = work + 5 * nu;
-  double *prev = work + 6 * nu;
-  double g = NAN, g_scale = 1, beta = NAN, gnorm = NAN;
-  double merit0 = 0, slope = 0, c = 0, lambda = 1;
-  int halvings = 0, have_prev = 0, converged = 0, iterations = 0;
-  int capped = 0;         /* stopped by max_iterations or max_evaluations */
-  const char *why = NULL; /* why the search ended without converging */
+  f->lambda /= 2;
+  for (size_t i = 0; i < f->nu; i++)
+    f->cand[i] = f->prev[i] + f->lambda * f->d[i];
+  return 1;
+}
+
+/* Makes the candidate (with g = gc and its gradient in cgrad) the
+ * iterate: alpha, beta and the convergence test, on |g| relative to g at
+ * the medians and on the distance of u from the line of the gradient.
+ * Returns 1 when the search ends here (converged, or a gradient that
+ * vanishes, with the reason set). */
+static int accept_candidate(form_t *f, double gc) {
+  size_t nu = f->nu;
+  memcpy(f->u, f->cand, nu * sizeof *f->u);
+  memcpy(f->grad, f->cgrad, nu * sizeof *f->grad);
+  f->g = gc;
+  f->iterations++;
+  f->have_prev = 1;
+  f->halvings = 0;
+  f->gnorm = sqrt(dot(f->grad, f->grad, nu));
+  if (!(f->gnorm > 0) || !isfinite(f->gnorm)) {
+    f->why = "the gradient of g vanishes at the iterate, so there is no "
+             "direction towards failure";
+    return 1;
+  }
+  for (size_t i = 0; i < nu; i++)
+    f->alpha[i] = -f->grad[i] / f->gnorm;
+  f->beta = dot(f->alpha, f->u, nu);
+  double off = 0;
+  for (size_t i = 0; i < nu; i++) {
+    double t = f->u[i] - f->beta * f->alpha[i];
+    off += t * t;
+  }
+  if (fabs(f->g) / f->g_scale <= f->fo->tolerance &&
+      sqrt(off) <= f->fo->tolerance) {
+    f->converged = 1;
+    return 1;
+  }
+  return 0;
+}
+
+/* The next full step from the iterate: the HL-RF direction to the foot of
+ * the linearised surface, kept inside the R_MAX ball, and the merit
+ * function's value and slope there for the line search. */
+static void plan_step(form_t *f) {
+  size_t nu = f->nu;
+  double *u = f->u, *grad = f->grad, *d = f->d, *cand = f->cand;
+  double g = f->g, gnorm = f->gnorm;
+  double t = (dot(grad, u, nu) - g) / (gnorm * gnorm);
+  for (size_t i = 0; i < nu; i++)
+    d[i] = t * grad[i] - u[i];
+  for (size_t i = 0; i < nu; i++)
+    cand[i] = u[i] + d[i];
+  double rc2 = sqrt(dot(cand, cand, nu));
+  if (rc2 > R_MAX) {
+    for (size_t i = 0; i < nu; i++) {
+      cand[i] *= R_MAX / rc2;
+      d[i] = cand[i] - u[i];
+    }
+  }
+  /* Merit m(u) = |u|^2 / 2 + c |g(u)| with c > |u| / |grad g| (Zhang &
+   * Der Kiureghian 1997); adding the linearised distance |g| / |grad g|
+   * makes the full step from the origin acceptable on a linear limit
+   * state and keeps c |g| independent of the units of g. */
+  double nuu = sqrt(dot(u, u, nu));
+  f->c = 2 * (nuu + fabs(g) / gnorm) / gnorm;
+  f->merit0 = 0.5 * nuu * nuu + f->c * fabs(g);
+  double sg = g > 0 ? 1 : (g < 0 ? -1 : 0);
+  f->slope = 0;
+  for (size_t i = 0; i < nu; i++)
+    f->slope += (u[i] + f->c * sg * grad[i]) * d[i];
+  if (f->slope > 0)
+    f->slope = 0;
+  f->lambda = 1;
+  memcpy(f->prev, u, nu * sizeof *f->prev);
+}
+
+/* The iteration (see the file comment and docs/methods.md): returns 0 when
+ * it ended, converged or not (f says how), or a negative code with err
+ * set. */
+static int iterate(form_t *f) {
   char prefix[48];
-  memset(cand, 0, nu * sizeof *cand); /* start at the medians, u = 0 */
-  for (uint64_t k = 0;; k++) {
-    if (iterations >= fo->max_iterations) {
-      why = "max_iterations reached";
-      capped = 1;
-      break;
-    }
-    if (res->evaluations + f.nd + 1 > s->analysis.max_evaluations) {
-      why = "max_evaluations reached";
-      capped = 1;
-      break;
-    }
+  for (uint64_t k = 0; budget_left(f); k++) {
     snprintf(prefix, sizeof prefix, "form/i%llu", (unsigned long long)k);
-    /* Point 0 is the candidate. A full step evaluates it together with
-     * its gradient points (one batch, the usual case); during a line
-     * search it goes alone, and the gradient follows if it is accepted. */
-    int speculative = halvings == 0;
+    int speculative = f->halvings == 0;
     int fault0 = 0;
     double gc = NAN;
-    if (speculative) {
-      rc = gradient(&f, prefix, cand, 1, &gc, &fault0, cgrad);
-    } else {
-      uint64_t i0 = 0;
-      memcpy(f.us, cand, nu * sizeof *cand);
-      rc = evaluate(&f, prefix, &i0, 1, &gc, &fault0);
-    }
+    int rc = evaluate_candidate(f, prefix, speculative, &gc, &fault0);
     if (rc)
-      goto out;
-    double mc = 0.5 * dot(cand, cand, nu) + c * fabs(gc);
-    if (!have_prev) {
-      if (fault0) {
-        rc = bk_error_set(err, BK_EMODEL, NULL, 0, 0,
-                          "FORM: the model failed (%s) at the medians (key "
-                          "%s/0); the search cannot start",
-                          bk_fault_name(fault0), prefix);
-        goto out;
-      }
-      g_scale = gc != 0 && isfinite(gc) ? fabs(gc) : 1;
-    } else if (fault0 || !(mc <= merit0 + ARMIJO * lambda * slope)) {
+      return rc;
+    double mc = 0.5 * dot(f->cand, f->cand, f->nu) + f->c * fabs(gc);
+    if (!f->have_prev) {
+      if (fault0)
+        return bk_error_set(f->m->err, BK_EMODEL, NULL, 0, 0,
+                            "FORM: the model failed (%s) at the medians (key "
+                            "%s/0); the search cannot start",
+                            bk_fault_name(fault0), prefix);
+      f->g_scale = gc != 0 && isfinite(gc) ? fabs(gc) : 1;
+    } else if (fault0 || !(mc <= f->merit0 + ARMIJO * f->lambda * f->slope)) {
       /* Rejected: halve the step from the accepted iterate. */
-      if (++halvings > MAX_HALVINGS) {
-        why = "the line search found no step that lowers the merit "
-              "function";
-        break;
-      }
-      lambda /= 2;
-      for (size_t i = 0; i < nu; i++)
-        cand[i] = prev[i] + lambda * d[i];
+      if (!shorten_step(f))
+        return 0;
       continue;
     }
-    if (!speculative && (rc = gradient(&f, prefix, cand, 0, &gc, NULL, cgrad)))
-      goto out;
-    memcpy(u, cand, nu * sizeof *u);
-    memcpy(grad, cgrad, nu * sizeof *grad);
-    g = gc;
-    iterations++;
-    have_prev = 1;
-    halvings = 0;
-    gnorm = sqrt(dot(grad, grad, nu));
-    if (!(gnorm > 0) || !isfinite(gnorm)) {
-      why = "the gradient of g vanishes at the iterate, so there is no "
-            "direction towards failure";
-      break;
-    }
-    for (size_t i = 0; i < nu; i++)
-      alpha[i] = -grad[i] / gnorm;
-    beta = dot(alpha, u, nu);
-    double off = 0;
-    for (size_t i = 0; i < nu; i++) {
-      double t = u[i] - beta * alpha[i];
-      off += t * t;
-    }
-    if (fabs(g) / g_scale <= fo->tolerance && sqrt(off) <= fo->tolerance) {
-      converged = 1;
-      break;
-    }
-    /* HL-RF direction: to the foot of the linearised surface. */
-    double t = (dot(grad, u, nu) - g) / (gnorm * gnorm);
-    for (size_t i = 0; i < nu; i++)
-      d[i] = t * grad[i] - u[i];
-    /* Keep the step inside the R_MAX ball. */
-    for (size_t i = 0; i < nu; i++)
-      cand[i] = u[i] + d[i];
-    double rc2 = sqrt(dot(cand, cand, nu));
-    if (rc2 > R_MAX) {
-      for (size_t i = 0; i < nu; i++) {
-        cand[i] *= R_MAX / rc2;
-        d[i] = cand[i] - u[i];
-      }
-    }
-    /* Merit m(u) = |u|^2 / 2 + c |g(u)| with c > |u| / |grad g| (Zhang &
-     * Der Kiureghian 1997); adding the linearised distance |g| / |grad g|
-     * makes the full step from the origin acceptable on a linear limit
-     * state and keeps c |g| independent of the units of g. */
-    double nuu = sqrt(dot(u, u, nu));
-    c = 2 * (nuu + fabs(g) / gnorm) / gnorm;
-    merit0 = 0.5 * nuu * nuu + c * fabs(g);
-    double sg = g > 0 ? 1 : (g < 0 ? -1 : 0);
-    slope = 0;
-    for (size_t i = 0; i < nu; i++)
-      slope += (u[i] + c * sg * grad[i]) * d[i];
-    if (slope > 0)
-      slope = 0;
-    lambda = 1;
-    memcpy(prev, u, nu * sizeof *prev);
+    if (!speculative &&
+        (rc = gradient(f, prefix, f->cand, 0, &gc, NULL, f->cgrad)))
+      return rc;
+    if (accept_candidate(f, gc))
+      return 0;
+    plan_step(f);
   }
-  res->est.failures += f.failures;
-  /* The result: the last accepted iterate. */
+  return 0;
+}
+
+/* The result: the last accepted iterate as res->dp, the stop reason, the
+ * warnings when it is not a design point, and SORM when asked for. */
+static int fill_design_point(form_t *f) {
+  const bk_study_t *s = f->m->s;
+  bk_result_t *res = f->m->res;
+  size_t nu = f->nu;
+  uint64_t failures = f->m->failures - f->failures0;
+  res->est.failures += failures;
   bk_design_point_t *dp = &res->dp;
-  dp->converged = converged;
-  dp->iterations = iterations;
-  memcpy(dp->u, u, nu * sizeof *u);
-  bk_transform_u_to_x(s->transform, u, dp->x);
-  if (isfinite(beta)) {
-    dp->beta = beta;
-    dp->pf_form = bk_norm_cdf(-beta);
-    importance_factors(&f, alpha);
+  dp->converged = f->converged;
+  dp->iterations = f->iterations;
+  memcpy(dp->u, f->u, nu * sizeof *f->u);
+  bk_transform_u_to_x(s->transform, f->u, dp->x);
+  if (isfinite(f->beta)) {
+    dp->beta = f->beta;
+    dp->pf_form = bk_norm_cdf(-f->beta);
+    importance_factors(f);
   } else {
     dp->beta = NAN;
     dp->pf_form = NAN;
   }
-  if (!converged) {
-    if (f.failures == 0 && !capped) {
-      bk_result_warn(res,
-                      "FORM found no failure domain: none of the %llu "
-                      "evaluations had g <= 0 (%s). The limit state may "
-                      "never fail, or fail only far out (beta > %g); check "
-                      "the limit state",
-                      (unsigned long long)res->evaluations, why, R_MAX);
-      dp->beta = NAN;
-      dp->pf_form = NAN;
-      memset(dp->alpha2, 0, s->nvars * sizeof *dp->alpha2);
-    } else {
-      bk_result_warn(res,
-                      "FORM did NOT converge (%s after %d iterations; "
-                      "tolerance %g): beta and Pf are those of the last "
-                      "iterate, not of a design point",
-                      why, iterations, fo->tolerance);
-    }
-    res->stop_reason = why;
-  } else {
+  if (f->converged) {
     res->stop_reason = "design point converged";
-    if (fo->sorm && (rc = sorm(&f, u, g, alpha, gnorm, beta)))
-      goto out;
+    return f->fo->sorm ? sorm(f) : 0;
   }
-  if (!converged && fo->sorm)
+  if (failures == 0 && !f->capped) {
+    bk_result_warn(res,
+                   "FORM found no failure domain: none of the %llu "
+                   "evaluations had g <= 0 (%s). The limit state may "
+                   "never fail, or fail only far out (beta > %g); check "
+                   "the limit state",
+                   (unsigned long long)res->evaluations, f->why, R_MAX);
+    dp->beta = NAN;
+    dp->pf_form = NAN;
+    memset(dp->alpha2, 0, s->nvars * sizeof *dp->alpha2);
+  } else {
+    bk_result_warn(res,
+                   "FORM did NOT converge (%s after %d iterations; "
+                   "tolerance %g): beta and Pf are those of the last "
+                   "iterate, not of a design point",
+                   f->why, f->iterations, f->fo->tolerance);
+  }
+  res->stop_reason = f->why;
+  if (f->fo->sorm)
     bk_result_warn(res, "SORM skipped: FORM did not converge");
-  rc = 0;
+  return 0;
+}
+
+int bk__form_search(bk_mctx_t *m) {
+  const bk_study_t *s = m->s;
+  form_t f;
+  memset(&f, 0, sizeof f);
+  f.m = m;
+  f.fo = &s->analysis.form;
+  f.nu = m->nu;
+  size_t nu = f.nu;
+  assert(nu > 0); /* the loader refuses a study of constants only */
+  f.nd = f.fo->central ? 2 * nu : nu;
+  f.failures0 = m->failures;
+  f.g = NAN;
+  f.g_scale = 1;
+  f.beta = NAN;
+  f.gnorm = NAN;
+  f.lambda = 1;
+  m->planned = (uint64_t)f.fo->max_iterations * (f.nd + 1);
+  int rc = bk_result_design_point(m->res, nu, s->nvars);
+  if (rc)
+    return bk_mctx_nomem(m);
+  f.work = bk_calloc(8 * nu + s->nvars, sizeof *f.work);
+  if (!f.work) {
+    rc = bk_mctx_nomem(m);
+    goto out;
+  }
+  double **vec[] = {&f.u,     &f.grad, &f.alpha, &f.cand,
+                    &f.cgrad, &f.d,    &f.prev,  &f.tmp};
+  for (size_t i = 0; i < sizeof vec / sizeof vec[0]; i++)
+    *vec[i] = f.work + i * nu;
+  f.x = f.work + 8 * nu;
+  /* The search starts at the medians, u = 0 (cand is zeroed). */
+  if ((rc = iterate(&f)) == 0)
+    rc = fill_design_point(&f);
 out:
-  bk_free(work);
-  bk_free(f.pts);
-  bk_free(f.xs);
-  bk_free(f.ys);
-  bk_free(f.us);
-  bk_free(f.idx);
-  bk_free(f.g);
-  bk_free(f.fault);
+  bk_free(f.work);
   return rc;
 }
 
 int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,
                     const bk_method_opts_t *opts, bk_result_t *res,
                     bk_error_t *err) {
-  int rc = bk__form_search(s, ev, opts, res, err);
+  bk_mctx_t m;
+  bk_mctx_init(&m, s, ev, opts, res, err);
+  int rc = bk__form_search(&m);
+  if (rc == 0)
+    rc = bk_mctx_finish(&m);
+  bk_mctx_close(&m);
   if (rc)
     return rc;
   bk_estimate_t *e = &res->est;

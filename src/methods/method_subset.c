@@ -35,6 +35,7 @@
  *
  * SPDX-License-Identifier: MIT
  */
+#include <assert.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -42,80 +43,84 @@
 
 #include "base/alloc.h"
 #include "base/fault.h"
+#include "methods/mctx.h"
 #include "methods/method_impl.h"
 #include "numerics/rng.h"
 #include "numerics/special.h"
-#include "base/stop.h"
 
-#define MIN_FOR_ERROR_LIMIT 20
-#define TARGET_ACCEPTANCE   0.44
-#define LAMBDA0             0.6
+#define TARGET_ACCEPTANCE 0.44
+#define LAMBDA0           0.6
 
+/* A level: N points as chains stored one after the other, chain c at
+ * rows off[c] .. off[c] + len[c] - 1 of u (N * nu) and g (N); level 0 is
+ * N chains of one point. */
 typedef struct {
-  const bk_study_t *s;
-  bk_evaluator_t *ev;
-  const bk_method_opts_t *opts;
-  bk_result_t *res;
-  bk_error_t *err;
-  size_t nu, N;
-  bk_point_t *pts;
-  double *xs, *ys;
-  uint64_t total_n, total_e, mcmc_e;
+  double *u, *g;
+  size_t *off, *len;
+} level_t;
+
+static int level_alloc(level_t *l, size_t N, size_t nu) {
+  l->u = bk_calloc(N * nu, sizeof *l->u);
+  l->g = bk_calloc(N, sizeof *l->g);
+  l->off = bk_calloc(N, sizeof *l->off);
+  l->len = bk_calloc(N, sizeof *l->len);
+  return l->u && l->g && l->off && l->len ? 0 : BK_ENOMEM;
+}
+
+static void level_free(level_t *l) {
+  bk_free(l->u);
+  bk_free(l->g);
+  bk_free(l->off);
+  bk_free(l->len);
+}
+
+/* One run: the current level, with nchains chains, and the next one being
+ * built from its seeds; the two swap when the next is complete. */
+typedef struct {
+  bk_mctx_t ctx;
+  size_t nu, N, nc; /* nc = p0 N, the points below each threshold */
+  int fail_mode;    /* on_error fail */
+  level_t cur, nx;
+  size_t nchains;
+  /* Work space: proposals (N * nu), seed spread and normals (nu), the
+   * order of the points by g and the seeds' positions (N). */
+  double *prop, *sig, *z;
+  size_t *order, *seedpos;
+  /* Level 0: faulted points and the points in its estimate. */
+  size_t e0, n0;
+  /* Over the levels so far: log of the product of the P_l, its value
+   * before the last level, the Au-Beck delta^2, the aCS scale, P_0. */
+  double logp, logreach, delta2, lambda, p_first;
+  double acc_sum;  /* accepted proposals */
+  uint64_t acc_n;  /* proposals */
+  uint64_t mcmc_e; /* proposals that ended in a model error */
+  int level, final;
+  size_t nf;             /* points of the last level with g <= 0 */
+  uint64_t final_chains; /* chains of the last level holding a failure */
 } ss_t;
 
-static int check_error_limit(ss_t *m, int final) {
-  const bk_model_t *md = &m->s->model;
-  if (m->total_n == 0 || (!final && m->total_n < MIN_FOR_ERROR_LIMIT))
-    return 0;
-  if (!md->present && m->total_e < m->total_n)
-    return 0;
-  double frac = (double)m->total_e / (double)m->total_n;
-  if (frac > md->max_error_fraction)
-    return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
-                        "%llu of %llu model runs failed (%.1f%%, above "
-                        "model.max_error_fraction %g); the records say why "
-                        "and the run folders are kept. Fix the model and "
-                        "run again to resume",
-                        (unsigned long long)m->total_e,
-                        (unsigned long long)m->total_n, 100 * frac,
-                        md->max_error_fraction);
+static int ss_alloc(ss_t *m) {
+  size_t N = m->N, nu = m->nu;
+  m->prop = bk_calloc(N * nu, sizeof *m->prop);
+  m->sig = bk_calloc(nu, sizeof *m->sig);
+  m->z = bk_calloc(nu, sizeof *m->z);
+  m->order = bk_calloc(N, sizeof *m->order);
+  m->seedpos = bk_calloc(N, sizeof *m->seedpos);
+  if (level_alloc(&m->cur, N, nu) || level_alloc(&m->nx, N, nu) || !m->prop ||
+      !m->sig || !m->z || !m->order || !m->seedpos ||
+      bk_mctx_reserve(&m->ctx, N))
+    return bk_mctx_nomem(&m->ctx);
   return 0;
 }
 
-/* Evaluates n points whose u are rows of `us`, key prefix/index[i]. */
-static int evaluate(ss_t *m, const char *prefix, const double *us,
-                    const uint64_t *index, size_t n) {
-  const bk_study_t *s = m->s;
-  size_t ny = s->model.noutputs;
-  for (size_t i = 0; i < n; i++) {
-    bk_point_t *p = &m->pts[i];
-    p->index = index[i];
-    p->x = m->xs + i * s->nvars;
-    p->y = ny ? m->ys + i * ny : NULL;
-    bk_transform_u_to_x(s->transform, us + i * m->nu, p->x);
-    p->g = NAN;
-    p->fault = BK_FAULT_NONE;
-  }
-  int rc = m->ev->batch(m->ev, prefix, m->pts, n, m->err);
-  if (rc)
-    return rc;
-  for (size_t i = 0; i < n; i++) {
-    m->total_n++;
-    if (m->pts[i].fault != BK_FAULT_NONE) {
-      m->total_e++;
-      if (s->model.on_error == BK_ON_ERROR_ABORT)
-        return bk_error_set(m->err, BK_EMODEL, NULL, 0, 0,
-                            "model error (%s) at %s/%llu and model.on_error "
-                            "is abort",
-                            bk_fault_name(m->pts[i].fault), prefix,
-                            (unsigned long long)m->pts[i].index);
-    }
-  }
-  m->res->evaluations = m->total_n;
-  m->res->model_errors = m->total_e;
-  if (bk_stop_requested())
-    return BK_ESTOPPED;
-  return check_error_limit(m, 0);
+static void ss_free(ss_t *m) {
+  level_free(&m->cur);
+  level_free(&m->nx);
+  bk_free(m->prop);
+  bk_free(m->sig);
+  bk_free(m->z);
+  bk_free(m->order);
+  bk_free(m->seedpos);
 }
 
 /* Sorting order: by g, then by position (deterministic on ties). qsort
@@ -132,12 +137,13 @@ static int cmp_order(const void *a, const void *b) {
   return (i > j) - (i < j);
 }
 
-/* gamma of Au & Beck (2001, eq. 29) for the indicator g <= b over chains
- * stored one after the other (chain c at off[c], len[c] points), with
- * P the fraction of all N points below b. Unequal chain lengths use the
+/* gamma of Au & Beck (2001, eq. 29) for the indicator g <= b over the nc
+ * chains of level l, with P the fraction of all N points below b. Unequal chain lengths use the
  * pairs that exist at each lag. */
-static double chain_gamma(const double *g, const size_t *off, const size_t *len,
-                          size_t nc, size_t N, double b, double P) {
+static double chain_gamma(const level_t *l, size_t nc, size_t N, double b,
+                          double P) {
+  const double *g = l->g;
+  const size_t *off = l->off, *len = l->len;
   size_t maxlen = 0;
   for (size_t c = 0; c < nc; c++)
     if (len[c] > maxlen)
@@ -162,337 +168,351 @@ static double chain_gamma(const double *g, const size_t *off, const size_t *len,
   return gam > 0 ? gam : 0;
 }
 
+/* Level 0: crude Monte Carlo of N points, keys "ss/l0/<i>". A faulted
+ * point is failed (g = -inf) under on_error fail, and otherwise left out:
+ * g = +inf sorts it last, so it never seeds a chain nor counts as failed,
+ * and n0 leaves it out of the level's probability. */
+static int level0(ss_t *m) {
+  bk_mctx_t *c = &m->ctx;
+  size_t N = m->N, nu = m->nu;
+  uint64_t st0 = bk_rng_stream("ss/l0");
+  for (size_t i = 0; i < N; i++) {
+    double *u = m->cur.u + i * nu;
+    bk_rng_u01_fill(c->s->seed, st0, i, 0, (uint32_t)nu, u);
+    for (size_t d = 0; d < nu; d++)
+      u[d] = bk_norm_icdf(u[d]);
+    bk_mctx_set_u(c, i, i, u);
+  }
+  int rc = bk_mctx_evaluate(c, "ss/l0", N);
+  if (rc)
+    return rc;
+  for (size_t i = 0; i < N; i++) {
+    m->cur.g[i] = c->pts[i].g;
+    if (c->pts[i].fault != BK_FAULT_NONE) {
+      m->e0++;
+      m->cur.g[i] = m->fail_mode ? -INFINITY : INFINITY;
+    }
+    m->cur.off[i] = i;
+    m->cur.len[i] = 1;
+  }
+  m->nchains = N;
+  m->n0 = m->fail_mode ? N : N - m->e0;
+  if (m->n0 == 0)
+    return bk_error_set(c->err, BK_EMODEL, NULL, 0, 0,
+                        "every evaluation of the first level failed");
+  return 0;
+}
+
+/* Orders the level's points by g (index order on ties) into m->order and
+ * counts those with g <= 0 into m->nf. */
+static void order_level(ss_t *m) {
+  size_t N = m->N;
+  for (size_t i = 0; i < N; i++)
+    m->order[i] = i;
+  sort_g = m->cur.g;
+  qsort(m->order, N, sizeof *m->order, cmp_order);
+  m->nf = 0;
+  for (size_t i = 0; i < N; i++)
+    m->nf += m->cur.g[i] <= 0;
+}
+
+/* The last level (failure domain reached, or a cap): its conditional
+ * probability of g <= 0 and gamma join the product, and the chains
+ * holding a failure are counted. nl is the level's points in the
+ * estimate. */
+static int last_level(ss_t *m, size_t nl) {
+  double P = (double)m->nf / (double)nl;
+  double gam = chain_gamma(&m->cur, m->nchains, m->N, 0, P);
+  if (m->level == 0)
+    m->p_first = P;
+  m->logreach = m->logp;
+  m->logp += P > 0 ? log(P) : -INFINITY;
+  if (P > 0)
+    m->delta2 += (1 - P) / ((double)nl * P) * (1 + gam);
+  m->final = m->nf >= m->nc;
+  for (size_t c = 0; c < m->nchains; c++) {
+    int any = 0;
+    for (size_t j = 0; j < m->cur.len[c]; j++)
+      any |= m->cur.g[m->cur.off[c] + j] <= 0;
+    m->final_chains += any;
+  }
+  if (bk_result_detailf(m->ctx.res, P, "P(g <= 0 | level %d)", m->level))
+    return bk_mctx_nomem(&m->ctx);
+  return 0;
+}
+
+/* The next threshold b, the g of the nc-th point in order; every point
+ * with g <= b is a seed (positions into m->seedpos, count *ns), and the
+ * level's conditional probability seeds / nl and its gamma join the
+ * product. */
+static int next_threshold(ss_t *m, size_t nl, double *b, size_t *ns) {
+  *b = m->cur.g[m->order[m->nc - 1]];
+  *ns = 0;
+  for (size_t i = 0; i < m->N; i++)
+    if (m->cur.g[i] <= *b)
+      m->seedpos[(*ns)++] = i;
+  double P = (double)*ns / (double)nl;
+  if (m->level == 0)
+    m->p_first = P;
+  double gam = chain_gamma(&m->cur, m->nchains, m->N, *b, P);
+  m->logp += log(P);
+  m->delta2 += (1 - P) / ((double)nl * P) * (1 + gam);
+  if (bk_result_detailf(m->ctx.res, *b, "threshold level %d", m->level + 1))
+    return bk_mctx_nomem(&m->ctx);
+  return 0;
+}
+
+/* Starts the next level's ns chains at the seeds, sharing the N points
+ * out (the first N % ns chains one longer), and sets sig to the spread of
+ * the seeds per coordinate. Returns the longest chain's length. */
+static size_t seed_chains(ss_t *m, size_t ns) {
+  size_t N = m->N, nu = m->nu, maxlen = 0, o = 0;
+  for (size_t c = 0; c < ns; c++) {
+    m->nx.off[c] = o;
+    m->nx.len[c] = N / ns + (c < N % ns);
+    if (m->nx.len[c] > maxlen)
+      maxlen = m->nx.len[c];
+    memcpy(m->nx.u + o * nu, m->cur.u + m->seedpos[c] * nu,
+           nu * sizeof *m->cur.u);
+    m->nx.g[o] = m->cur.g[m->seedpos[c]];
+    o += m->nx.len[c];
+  }
+  for (size_t d = 0; d < nu; d++) {
+    double mean = 0, var = 0;
+    for (size_t c = 0; c < ns; c++)
+      mean += m->cur.u[m->seedpos[c] * nu + d];
+    mean /= (double)ns;
+    for (size_t c = 0; c < ns; c++) {
+      double dd = m->cur.u[m->seedpos[c] * nu + d] - mean;
+      var += dd * dd;
+    }
+    m->sig[d] = ns > 1 ? sqrt(var / (double)(ns - 1)) : 1;
+  }
+  return maxlen;
+}
+
+/* One lockstep step of the ns chains: every chain still shorter than
+ * `step` + 1 proposes v = rho u + sigma z from its last state (key
+ * "ss/l<level>/s<step>/<chain>"), all in one batch; a proposal with
+ * g(v) <= b is accepted, a rejected or faulted one repeats the last state.
+ * *acc and *np receive the accepted and proposed counts. */
+static int chain_step(ss_t *m, double b, size_t ns, size_t step, size_t *acc,
+                      size_t *np) {
+  bk_mctx_t *c = &m->ctx;
+  size_t nu = m->nu;
+  char prefix[64];
+  snprintf(prefix, sizeof prefix, "ss/l%d/s%zu", m->level, step);
+  uint64_t stream = bk_rng_stream(prefix);
+  size_t n = 0;
+  for (size_t ch = 0; ch < ns; ch++) {
+    if (m->nx.len[ch] <= step)
+      continue;
+    const double *cur = m->nx.u + (m->nx.off[ch] + step - 1) * nu;
+    double *v = m->prop + n * nu;
+    bk_rng_u01_fill(c->s->seed, stream, ch, 0, (uint32_t)nu, m->z);
+    for (size_t d = 0; d < nu; d++) {
+      double sd = m->lambda * m->sig[d];
+      if (sd > 1)
+        sd = 1;
+      double r = sqrt(1 - sd * sd);
+      v[d] = r * cur[d] + sd * bk_norm_icdf(m->z[d]);
+    }
+    bk_mctx_set_u(c, n, ch, v);
+    n++;
+  }
+  int rc = bk_mctx_evaluate(c, prefix, n);
+  if (rc)
+    return rc;
+  *acc = 0;
+  for (size_t i = 0; i < n; i++) {
+    const bk_point_t *p = &c->pts[i];
+    size_t at = m->nx.off[p->index] + step;
+    int ok = p->fault == BK_FAULT_NONE && p->g <= b;
+    if (p->fault != BK_FAULT_NONE)
+      m->mcmc_e++;
+    if (ok) {
+      memcpy(m->nx.u + at * nu, m->prop + i * nu, nu * sizeof *m->nx.u);
+      m->nx.g[at] = p->g;
+      (*acc)++;
+    } else {
+      memcpy(m->nx.u + at * nu, m->nx.u + (at - 1) * nu, nu * sizeof *m->nx.u);
+      m->nx.g[at] = m->nx.g[at - 1];
+    }
+  }
+  *np = n;
+  return 0;
+}
+
+/* Grows the next level's chains to their lengths, step by step; after
+ * each step lambda moves towards the target acceptance rate (see the
+ * file comment). The level's acceptance rate goes into the details. */
+static int run_chains(ss_t *m, double b, size_t ns, size_t maxlen) {
+  uint64_t acc_level = 0, prop_level = 0;
+  for (size_t step = 1; step < maxlen; step++) {
+    size_t acc, np;
+    int rc = chain_step(m, b, ns, step, &acc, &np);
+    if (rc)
+      return rc;
+    double rate = np ? (double)acc / (double)np : 0;
+    acc_level += acc;
+    prop_level += np;
+    m->lambda *= exp((rate - TARGET_ACCEPTANCE) / sqrt((double)step));
+  }
+  double rate_level = prop_level ? (double)acc_level / prop_level : NAN;
+  m->acc_sum += (double)acc_level;
+  m->acc_n += prop_level;
+  if (bk_result_detailf(m->ctx.res, rate_level, "acceptance level %d",
+                        m->level))
+    return bk_mctx_nomem(&m->ctx);
+  return 0;
+}
+
+/* The new level replaces the old. */
+static void swap_levels(ss_t *m, size_t ns) {
+  level_t t = m->cur;
+  m->cur = m->nx;
+  m->nx = t;
+  m->nchains = ns;
+}
+
+/* The levels: thresholds and chains until nc or more points fail, or a
+ * cap (max_levels, or max_evaluations with too little left for a level). */
+static int run_levels(ss_t *m) {
+  bk_mctx_t *c = &m->ctx;
+  const bk_analysis_t *a = &c->s->analysis;
+  size_t N = m->N, nc = m->nc;
+  int rc;
+  for (;;) {
+    size_t nl = m->level == 0 ? m->n0 : N;
+    order_level(m);
+    int capped = m->level + 1 >= a->subset.max_levels ||
+                 c->n + (N - nc) > a->max_evaluations;
+    if (m->nf >= nc || capped)
+      return last_level(m, nl);
+    double b;
+    size_t ns;
+    if ((rc = next_threshold(m, nl, &b, &ns)))
+      return rc;
+    m->level++;
+    size_t maxlen = seed_chains(m, ns);
+    if ((rc = run_chains(m, b, ns, maxlen)))
+      return rc;
+    swap_levels(m, ns);
+    c->res->est.pf = NAN;
+    c->res->est.cov = NAN;
+    c->planned = c->n + N - (N / 10 < nc ? nc : N / 10);
+    bk_mctx_progress(c);
+  }
+}
+
+/* The estimate: Pf = prod P_l with the Au-Beck cov and a lognormal
+ * interval; with no failure in the last level, an upper bound from its N
+ * points (Clopper-Pearson for 0 of N) times the levels' probability.
+ * pf_bounds from level 0's faulted points. */
+static void fill_estimate(ss_t *m) {
+  const bk_study_t *s = m->ctx.s;
+  bk_result_t *res = m->ctx.res;
+  bk_estimate_t *e = &res->est;
+  double pf = exp(m->logp);
+  bk_estimate_lognormal(pf, sqrt(m->delta2), s->analysis.ci_level, e);
+  e->n = m->ctx.n;
+  e->failures = m->nf;
+  if (pf > 0) {
+    e->ci_method = "au-beck (lognormal)";
+  } else {
+    e->ci_method = "upper bound from the last level";
+    e->ci[1] = exp(m->logreach) *
+               (1 - pow((1 - s->analysis.ci_level) / 2, 1.0 / (double)m->N));
+    e->ci_exact[1] = e->ci[1];
+    bk_estimate_set_beta(e);
+  }
+  res->excluded = m->fail_mode ? 0 : m->e0;
+  res->pf_bounds[0] = res->pf_bounds[1] = e->pf;
+  if (m->e0 && !m->fail_mode && m->p_first > 0) {
+    /* Level 0's faulty points as safe, then as failed. */
+    double n0 = (double)m->n0, e0 = (double)m->e0, N = (double)m->N;
+    res->pf_bounds[0] = e->pf * (n0 / N);
+    res->pf_bounds[1] = e->pf / m->p_first * (m->p_first * n0 + e0) / N;
+    if (m->level == 0)
+      res->pf_bounds[1] = (m->p_first * n0 + e0) / N;
+  }
+}
+
+/* Details and the evidence against the result (see docs/methods.md).
+ * Returns 0 or BK_ENOMEM with err set. */
+static int report_evidence(ss_t *m) {
+  const bk_analysis_t *a = &m->ctx.s->analysis;
+  bk_result_t *res = m->ctx.res;
+  double rate = m->acc_n ? m->acc_sum / (double)m->acc_n : NAN;
+  int rc = 0;
+  if (bk_result_detail(res, "levels", m->level + 1) ||
+      bk_result_detail(res, "chains with failures", (double)m->final_chains) ||
+      (m->acc_n && bk_result_detail(res, "acceptance rate", rate)) ||
+      bk_result_push_history(res))
+    goto nomem;
+  if (!m->final) {
+    res->stop_reason = "level cap reached";
+    rc = bk_result_warn(
+        res,
+        "the levels stopped at %d (analysis.subset.max_levels %d or "
+        "max_evaluations) before the failure domain was reached: %zu "
+        "failures in the last level; Pf lies below %.3g, the probability "
+        "of the last threshold, and this estimate is rough",
+        m->level + 1, a->subset.max_levels, m->nf, exp(m->logreach));
+  } else if (m->level > 0 && (m->nf < 20 || m->final_chains < 5)) {
+    rc = bk_result_warn(
+        res,
+        "the failures of the last level come from %llu of %zu chains (%zu "
+        "failures): the chains may not explore the whole failure domain, "
+        "so the estimate and its cov can be off; use more analysis.samples",
+        (unsigned long long)m->final_chains, m->nchains, m->nf);
+  }
+  if (rc || (m->acc_n && rate < 0.05 &&
+             bk_result_warn(res,
+                            "the chains accepted only %.1f%% of their "
+                            "proposals: they barely move, and the cov is "
+                            "optimistic",
+                            100 * rate)))
+    goto nomem;
+  if (m->mcmc_e && bk_result_warn(res,
+                                  "%llu chain proposals ended in a model "
+                                  "error and were taken as rejected; "
+                                  "pf_bounds cover the first level's errors "
+                                  "only",
+                                  (unsigned long long)m->mcmc_e))
+    goto nomem;
+  return 0;
+nomem:
+  return bk_mctx_nomem(&m->ctx);
+}
+
 int bk__method_subset(const bk_study_t *s, bk_evaluator_t *ev,
                       const bk_method_opts_t *opts, bk_result_t *res,
                       bk_error_t *err) {
-  const bk_analysis_t *a = &s->analysis;
   ss_t m;
   memset(&m, 0, sizeof m);
-  m.s = s;
-  m.ev = ev;
-  m.res = res;
-  m.err = err;
-  m.opts = opts;
-  m.nu = bk_transform_nu(s->transform);
-  size_t nu = m.nu, N = (size_t)a->samples;
-  if (nu == 0)
-    return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "every variable is a constant: there is nothing to "
-                        "sample; give at least one variable a distribution");
-  size_t nc = (size_t)floor(a->subset.p0 * (double)N + 0.5);
-  if (nc < 1 || nc >= N)
-    return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
-                        "subset simulation needs analysis.samples * "
-                        "analysis.subset.p0 between 1 and the samples "
-                        "(got %zu samples, p0 %g)",
-                        N, a->subset.p0);
-  size_t ny = s->model.noutputs;
-  m.N = N;
-  m.pts = bk_calloc(N, sizeof *m.pts);
-  m.xs = bk_calloc(N * (s->nvars ? s->nvars : 1), sizeof *m.xs);
-  m.ys = ny ? bk_calloc(N * ny, sizeof *m.ys) : NULL;
-  double *u = bk_calloc(N * nu, sizeof *u), *u2 = bk_calloc(N * nu, sizeof *u);
-  double *g = bk_calloc(N, sizeof *g), *g2 = bk_calloc(N, sizeof *g);
-  double *prop = bk_calloc(N * nu, sizeof *prop);
-  double *sig = bk_calloc(nu, sizeof *sig), *z = bk_calloc(nu, sizeof *z);
-  size_t *order = bk_calloc(N, sizeof *order);
-  size_t *off = bk_calloc(N, sizeof *off), *len = bk_calloc(N, sizeof *len);
-  size_t *off2 = bk_calloc(N, sizeof *off), *len2 = bk_calloc(N, sizeof *len);
-  size_t *seedpos = bk_calloc(N, sizeof *seedpos),
-         *who = bk_calloc(N, sizeof *who);
-  uint64_t *idx = bk_calloc(N, sizeof *idx);
-  int rc = 0;
-  if (!m.pts || !m.xs || (ny && !m.ys) || !u || !u2 || !g || !g2 || !prop ||
-      !sig || !z || !order || !off || !len || !off2 || !len2 || !seedpos ||
-      !who || !idx) {
-    rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  bk_mctx_init(&m.ctx, s, ev, opts, res, err);
+  m.nu = m.ctx.nu;
+  m.N = (size_t)s->analysis.samples;
+  m.nc = (size_t)floor(s->analysis.subset.p0 * (double)m.N + 0.5);
+  /* The loader refuses a study of constants only, and samples * p0 out
+   * of [1, samples). */
+  assert(m.nu > 0 && m.nc >= 1 && m.nc < m.N);
+  m.fail_mode = s->model.on_error == BK_ON_ERROR_FAIL;
+  m.lambda = LAMBDA0;
+  m.p_first = 1;
+  int rc;
+  if ((rc = ss_alloc(&m)))
     goto out;
-  }
-  int fail_mode = s->model.on_error == BK_ON_ERROR_FAIL;
-
-  /* Level 0: Monte Carlo. */
-  uint64_t st0 = bk_rng_stream("ss/l0");
-  for (size_t i = 0; i < N; i++) {
-    bk_rng_u01_fill(s->seed, st0, i, 0, (uint32_t)nu, u + i * nu);
-    for (size_t d = 0; d < nu; d++)
-      u[i * nu + d] = bk_norm_icdf(u[i * nu + d]);
-    idx[i] = i;
-  }
-  if ((rc = evaluate(&m, "ss/l0", u, idx, N)))
-    goto out;
-  size_t e0 = 0;
-  for (size_t i = 0; i < N; i++) {
-    g[i] = m.pts[i].g;
-    if (m.pts[i].fault != BK_FAULT_NONE) {
-      e0++;
-      g[i] = fail_mode ? -INFINITY : INFINITY;
-    }
-    off[i] = i;
-    len[i] = 1;
-  }
-  size_t nchains = N;                 /* level 0: N chains of one point */
-  size_t n0 = fail_mode ? N : N - e0; /* points in level 0's estimate */
-  if (n0 == 0) {
-    rc = bk_error_set(err, BK_EMODEL, NULL, 0, 0,
-                      "every evaluation of the first level failed");
-    goto out;
-  }
-  double logp = 0, logreach = 0, delta2 = 0, lambda = LAMBDA0;
-  double p_first = 1; /* level 0's conditional probability */
-  double acc_sum = 0;
-  uint64_t acc_n = 0;
-  int level = 0, final = 0;
-  size_t nf = 0;
-  uint64_t final_chains = 0;
-  char label[64], prefix[64];
   res->stop_reason = "failure domain reached";
-  for (;;) {
-    size_t nl = level == 0 ? n0 : N;
-    for (size_t i = 0; i < N; i++)
-      order[i] = i;
-    sort_g = g;
-    qsort(order, N, sizeof *order, cmp_order);
-    nf = 0;
-    for (size_t i = 0; i < N; i++)
-      nf += g[i] <= 0;
-    int capped = level + 1 >= a->subset.max_levels ||
-                 m.total_n + (N - nc) > a->max_evaluations;
-    if (nf >= nc || capped) {
-      double P = (double)nf / (double)nl;
-      double gam = chain_gamma(g, off, len, nchains, N, 0, P);
-      if (level == 0)
-        p_first = P;
-      logreach = logp;
-      logp += P > 0 ? log(P) : -INFINITY;
-      if (P > 0)
-        delta2 += (1 - P) / ((double)nl * P) * (1 + gam);
-      final = nf >= nc;
-      /* Chains holding a failure. */
-      for (size_t c = 0; c < nchains; c++) {
-        int any = 0;
-        for (size_t j = 0; j < len[c]; j++)
-          any |= g[off[c] + j] <= 0;
-        final_chains += any;
-      }
-      snprintf(label, sizeof label, "P(g <= 0 | level %d)", level);
-      if ((rc = bk_result_detail(res, label, P)))
-        goto nomem;
-      break;
-    }
-    double b = g[order[nc - 1]];
-    size_t ns = 0;
-    for (size_t i = 0; i < N; i++)
-      if (g[i] <= b)
-        seedpos[ns++] = i;
-    double P = (double)ns / (double)nl;
-    if (level == 0)
-      p_first = P;
-    double gam = chain_gamma(g, off, len, nchains, N, b, P);
-    logp += log(P);
-    delta2 += (1 - P) / ((double)nl * P) * (1 + gam);
-    snprintf(label, sizeof label, "threshold level %d", level + 1);
-    if ((rc = bk_result_detail(res, label, b)))
-      goto nomem;
-    level++;
-    /* Next level: chain c starts at its seed; lengths share N out. */
-    size_t maxlen = 0, o = 0;
-    for (size_t c = 0; c < ns; c++) {
-      off2[c] = o;
-      len2[c] = N / ns + (c < N % ns);
-      if (len2[c] > maxlen)
-        maxlen = len2[c];
-      memcpy(u2 + o * nu, u + seedpos[c] * nu, nu * sizeof *u);
-      g2[o] = g[seedpos[c]];
-      o += len2[c];
-    }
-    /* Spread of the seeds per coordinate. */
-    for (size_t d = 0; d < nu; d++) {
-      double mean = 0, var = 0;
-      for (size_t c = 0; c < ns; c++)
-        mean += u[seedpos[c] * nu + d];
-      mean /= (double)ns;
-      for (size_t c = 0; c < ns; c++) {
-        double dd = u[seedpos[c] * nu + d] - mean;
-        var += dd * dd;
-      }
-      sig[d] = ns > 1 ? sqrt(var / (double)(ns - 1)) : 1;
-    }
-    uint64_t acc_level = 0, prop_level = 0;
-    for (size_t step = 1; step < maxlen; step++) {
-      snprintf(prefix, sizeof prefix, "ss/l%d/s%zu", level, step);
-      uint64_t stream = bk_rng_stream(prefix);
-      size_t np = 0;
-      for (size_t c = 0; c < ns; c++) {
-        if (len2[c] <= step)
-          continue;
-        const double *cur = u2 + (off2[c] + step - 1) * nu;
-        bk_rng_u01_fill(s->seed, stream, c, 0, (uint32_t)nu, z);
-        for (size_t d = 0; d < nu; d++) {
-          double sd = lambda * sig[d];
-          if (sd > 1)
-            sd = 1;
-          double r = sqrt(1 - sd * sd);
-          prop[np * nu + d] = r * cur[d] + sd * bk_norm_icdf(z[d]);
-        }
-        idx[np] = c;
-        who[np] = c;
-        np++;
-      }
-      if ((rc = evaluate(&m, prefix, prop, idx, np)))
-        goto out;
-      size_t acc = 0;
-      for (size_t i = 0; i < np; i++) {
-        size_t c = who[i];
-        size_t at = off2[c] + step;
-        const bk_point_t *p = &m.pts[i];
-        int ok = p->fault == BK_FAULT_NONE && p->g <= b;
-        if (p->fault != BK_FAULT_NONE)
-          m.mcmc_e++;
-        if (ok) {
-          memcpy(u2 + at * nu, prop + i * nu, nu * sizeof *u);
-          g2[at] = p->g;
-          acc++;
-        } else {
-          memcpy(u2 + at * nu, u2 + (at - 1) * nu, nu * sizeof *u);
-          g2[at] = g2[at - 1];
-        }
-      }
-      double rate = np ? (double)acc / (double)np : 0;
-      acc_level += acc;
-      prop_level += np;
-      lambda *= exp((rate - TARGET_ACCEPTANCE) / sqrt((double)step));
-    }
-    double rate_level = prop_level ? (double)acc_level / prop_level : NAN;
-    acc_sum += (double)acc_level;
-    acc_n += prop_level;
-    snprintf(label, sizeof label, "acceptance level %d", level);
-    if ((rc = bk_result_detail(res, label, rate_level)))
-      goto nomem;
-    /* The new level replaces the old. */
-    double *t = u;
-    u = u2;
-    u2 = t;
-    t = g;
-    g = g2;
-    g2 = t;
-    size_t *tt = off;
-    off = off2;
-    off2 = tt;
-    tt = len;
-    len = len2;
-    len2 = tt;
-    nchains = ns;
-    res->est.pf = NAN;
-    res->est.cov = NAN;
-    if (m.opts && m.opts->progress)
-      m.opts->progress(m.opts->progress_data, res,
-                       m.total_n + N - (N / 10 < nc ? nc : N / 10));
-  }
-
-  /* The estimate. */
-  bk_estimate_t *e = &res->est;
-  memset(e, 0, sizeof *e);
-  e->pf = exp(logp);
-  e->cov = e->pf > 0 ? sqrt(delta2) : INFINITY;
-  e->n = m.total_n;
-  e->failures = nf;
-  e->ci_level = a->ci_level;
-  double zq = bk_norm_icdf(0.5 + a->ci_level / 2);
-  if (e->pf > 0) {
-    double sl = sqrt(log(1 + delta2));
-    e->ci_method = "au-beck (lognormal)";
-    e->ci[0] = e->pf * exp(-zq * sl);
-    e->ci[1] = e->pf * exp(zq * sl);
-  } else {
-    /* No failure in the last level: an upper bound from its N points
-     * (Clopper-Pearson for 0 of N) times the levels' probability. */
-    e->ci_method = "upper bound from the last level";
-    e->ci[0] = 0;
-    e->ci[1] =
-        exp(logreach) * (1 - pow((1 - a->ci_level) / 2, 1.0 / (double)N));
-  }
-  e->ci_exact[0] = e->ci[0];
-  e->ci_exact[1] = e->ci[1];
-  e->beta = bk_beta_from_pf(e->pf);
-  e->beta_ci[0] = bk_beta_from_pf(e->ci[1]);
-  e->beta_ci[1] = bk_beta_from_pf(e->ci[0]);
-  res->excluded = fail_mode ? 0 : e0;
-  res->pf_bounds[0] = res->pf_bounds[1] = e->pf;
-  if (e0 && !fail_mode && p_first > 0) {
-    /* Level 0's faulty points as safe, then as failed. */
-    double f = (double)n0 / (double)N;
-    res->pf_bounds[0] = e->pf * f;
-    res->pf_bounds[1] =
-        e->pf / p_first * (p_first * (double)n0 + (double)e0) / (double)N;
-    if (level == 0)
-      res->pf_bounds[1] = (p_first * (double)n0 + (double)e0) / (double)N;
-  }
-  if ((rc = bk_result_detail(res, "levels", level + 1)) ||
-      (rc = bk_result_detail(res, "chains with failures",
-                              (double)final_chains)) ||
-      (acc_n && (rc = bk_result_detail(res, "acceptance rate",
-                                        acc_sum / (double)acc_n))))
-    goto nomem;
-  if ((rc = bk_result_push_history(res)))
-    goto nomem;
-  if (!final) {
-    res->stop_reason = "level cap reached";
-    if ((rc = bk_result_warn(
-             res,
-             "the levels stopped at %d (analysis.subset.max_levels %d or "
-             "max_evaluations) before the failure domain was reached: "
-             "%zu failures in the last level; Pf lies below %.3g, the "
-             "probability of the last threshold, and this estimate is rough",
-             level + 1, a->subset.max_levels, nf, exp(logreach))))
-      goto nomem;
-  } else if (level > 0 && (nf < 20 || final_chains < 5)) {
-    if ((rc = bk_result_warn(
-             res,
-             "the failures of the last level come from %llu of %zu chains "
-             "(%zu failures): the chains may not explore the whole failure "
-             "domain, so the estimate and its cov can be off; use more "
-             "analysis.samples",
-             (unsigned long long)final_chains, nchains, nf)))
-      goto nomem;
-  }
-  if (acc_n && acc_sum / (double)acc_n < 0.05)
-    if ((rc = bk_result_warn(res,
-                              "the chains accepted only %.1f%% of their "
-                              "proposals: they barely move, and the cov is "
-                              "optimistic",
-                              100 * acc_sum / (double)acc_n)))
-      goto nomem;
-  if (m.mcmc_e)
-    if ((rc = bk_result_warn(res,
-                              "%llu chain proposals ended in a model error "
-                              "and were taken as rejected; pf_bounds cover "
-                              "the first level's errors only",
-                              (unsigned long long)m.mcmc_e)))
-      goto nomem;
-  rc = check_error_limit(&m, 1);
-  goto out;
-nomem:
-  rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  if ((rc = level0(&m)) || (rc = run_levels(&m)))
+    goto out;
+  fill_estimate(&m);
+  if ((rc = report_evidence(&m)))
+    goto out;
+  rc = bk_mctx_finish(&m.ctx);
 out:
-  res->evaluations = m.total_n;
-  res->model_errors = m.total_e;
-  bk_free(m.pts);
-  bk_free(m.xs);
-  bk_free(m.ys);
-  bk_free(u);
-  bk_free(u2);
-  bk_free(g);
-  bk_free(g2);
-  bk_free(prop);
-  bk_free(sig);
-  bk_free(z);
-  bk_free(order);
-  bk_free(off);
-  bk_free(len);
-  bk_free(off2);
-  bk_free(len2);
-  bk_free(seedpos);
-  bk_free(who);
-  bk_free(idx);
+  bk_mctx_close(&m.ctx);
+  ss_free(&m);
   return rc;
 }

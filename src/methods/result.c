@@ -57,6 +57,15 @@ int bk_result_detail(bk_result_t *r, const char *label, double value) {
   return 0;
 }
 
+int bk_result_detailf(bk_result_t *r, double value, const char *fmt, ...) {
+  char label[sizeof r->details->label];
+  va_list ap;
+  va_start(ap, fmt);
+  vsnprintf(label, sizeof label, fmt, ap);
+  va_end(ap);
+  return bk_result_detail(r, label, value);
+}
+
 int bk_result_design_point(bk_result_t *r, size_t nu, size_t nvars) {
   bk_free(r->dp.u);
   bk_free(r->dp.x);

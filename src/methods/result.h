@@ -74,6 +74,10 @@ int bk_result_warn(bk_result_t *r, const char *fmt, ...)
     __attribute__((format(printf, 2, 3)));
 /* Adds a labelled number to the report; returns 0 or BK_ENOMEM. */
 int bk_result_detail(bk_result_t *r, const char *label, double value);
+/* The same with a printf-style label ("threshold level %d"), cut to the
+ * 63 bytes a label holds. */
+int bk_result_detailf(bk_result_t *r, double value, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
 /* Allocates dp's arrays for nu and nvars; returns 0 or BK_ENOMEM. */
 int bk_result_design_point(bk_result_t *r, size_t nu, size_t nvars);
 

@@ -1,0 +1,100 @@
+/*
+ * Weighted sampling (see weighted.h).
+ *
+ * SPDX-License-Identifier: MIT
+ */
+#include "methods/weighted.h"
+
+#include <math.h>
+
+#include "base/alloc.h"
+#include "numerics/rng.h"
+
+int bk_weighted_batch(bk_mctx_t *m, const char *prefix, uint64_t first,
+                      size_t n, bk_weighted_draw_cb draw, void *data,
+                      double *us, double *logw) {
+  uint64_t stream = bk_rng_stream(prefix);
+  for (size_t i = 0; i < n; i++) {
+    double *u = us + i * m->nu;
+    logw[i] = draw(data, stream, first + i, u);
+    bk_mctx_set_u(m, i, first + i, u);
+  }
+  return bk_mctx_evaluate(m, prefix, n);
+}
+
+/* Adds point i of the batch just evaluated. A point is in the estimate
+ * unless it faulted under on_error skip (then bk_mctx_g is NaN). */
+static void add_point(bk_mctx_t *m, bk_weighted_t *w, size_t i, double logw,
+                      const double *u) {
+  const bk_point_t *p = &m->pts[i];
+  double g = bk_mctx_g(m, i);
+  int faulted = p->fault != BK_FAULT_NONE;
+  double v = g <= 0 ? logw : -INFINITY;
+  w->n++;
+  w->errors += faulted;
+  if (!(faulted && isnan(g)))
+    bk_estimate_wsum_add(&w->est, v);
+  bk_estimate_wsum_add(&w->lo, faulted ? -INFINITY : v);
+  bk_estimate_wsum_add(&w->hi, faulted ? logw : v);
+  if (!faulted && w->seen)
+    w->seen(w->data, p->index, u, g);
+}
+
+/* The estimate and its bounds as they stand. */
+static void fill_result(const bk_mctx_t *m, const bk_weighted_t *w) {
+  bk_result_t *r = m->res;
+  bk_estimate_weighted(&w->est, m->s->analysis.ci_level, &r->est);
+  r->excluded = m->s->model.on_error == BK_ON_ERROR_FAIL ? 0 : w->errors;
+  if (r->excluded) {
+    r->pf_bounds[0] = bk_estimate_wsum_mean(&w->lo);
+    r->pf_bounds[1] = bk_estimate_wsum_mean(&w->hi);
+  } else {
+    r->pf_bounds[0] = r->pf_bounds[1] = r->est.pf;
+  }
+}
+
+int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
+  const bk_analysis_t *a = &m->s->analysis;
+  bk_result_t *res = m->res;
+  size_t batch = w->batch;
+  bk_estimate_wsum_init(&w->est);
+  bk_estimate_wsum_init(&w->lo);
+  bk_estimate_wsum_init(&w->hi);
+  w->n = w->errors = 0;
+  double *us = bk_calloc(batch * m->nu, sizeof *us);
+  double *logw = bk_calloc(batch, sizeof *logw);
+  int rc;
+  if (!us || !logw || bk_mctx_reserve(m, batch)) {
+    rc = bk_mctx_nomem(m);
+    goto out;
+  }
+  res->stop_reason = "max_evaluations reached before target_cov";
+  uint64_t next = 0;
+  while (m->n < a->max_evaluations) {
+    uint64_t left = a->max_evaluations - m->n;
+    size_t n = left < batch ? (size_t)left : batch;
+    rc = bk_weighted_batch(m, w->prefix, next, n, w->draw, w->data, us, logw);
+    if (rc)
+      goto out;
+    next += n;
+    for (size_t i = 0; i < n; i++)
+      add_point(m, w, i, logw[i], us + i * m->nu);
+    fill_result(m, w);
+    if ((rc = bk_result_push_history(res))) {
+      rc = bk_mctx_nomem(m);
+      goto out;
+    }
+    int reached = res->est.cov <= a->target_cov;
+    m->planned = m->n + (reached ? 0 : batch);
+    bk_mctx_progress(m);
+    if (reached) {
+      res->stop_reason = "target_cov reached";
+      break;
+    }
+  }
+  rc = 0;
+out:
+  bk_free(us);
+  bk_free(logw);
+  return rc;
+}
