@@ -83,7 +83,7 @@ Test(method_subset, batches_keys_and_determinism) {
   cr_assert_eq(a.sizes[0], 200);
   cr_assert_eq(a.sizes[1], 20); /* 20 chains (or more on ties) */
   cr_assert(strstr(a.prefixes, "ss/l1/s9 ") && !strstr(a.prefixes, "s10 "));
-  cr_assert_str_eq(ra.est.ci_method, "au-beck (lognormal)");
+  cr_assert_str_eq(ra.est.ci_method, "subset genealogy (lognormal)");
   /* Pf = Phi(-3.5) = 2.33e-4 (A&S Table 26.1): 4 levels at p0 = 0.1. */
   cr_assert_eq(detail(&ra, "levels"), 4);
   cr_assert_gt(ra.est.cov, 0);

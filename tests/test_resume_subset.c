@@ -60,7 +60,8 @@ Test(resume_subset, subset_resumes_after_kill_9_with_identical_records) {
                 strstr(canon, "ss/l2/s9/"),
             "%s", canon);
   char *json = read_file("k/report.json");
-  cr_assert(strstr(json, "\"ci_method\": \"au-beck (lognormal)\""), "%s", json);
+  cr_assert(strstr(json, "\"ci_method\": \"subset genealogy (lognormal)\""),
+            "%s", json);
 }
 
 Test(resume_subset, cross_entropy_resumes_after_kill_9_with_identical_records) {

@@ -8,7 +8,9 @@
  * random checks target_cov after every whole batch (a size fixed by the
  * study, never by slots or timing); lhs and sobol after every whole
  * replicate. Error bars: binomial for random, replicate spread for lhs and
- * sobol (estimate.h).
+ * sobol (estimate.h). A stop on target_cov also needs evidence: at least
+ * MIN_FAILURES failures, and for lhs and sobol failures in at least
+ * MIN_FAILING_REPLICATES replicates.
  *
  * SPDX-License-Identifier: MIT
  */
@@ -35,6 +37,13 @@
  * points of an in-process chunk (small enough to stay in cache). */
 #define CHUNK_DOUBLES   (4u << 20)
 #define CHUNK_INPROCESS 2048u
+/* The evidence a stop on target_cov needs (common practice): with fewer
+ * than MIN_FAILURES failures the binomial cov, and a replicate spread,
+ * say too little about the error to stop on, and a spread over fewer than
+ * MIN_FAILING_REPLICATES replicates that saw a failure is mostly the
+ * spread of zeros. */
+#define MIN_FAILURES           10u
+#define MIN_FAILING_REPLICATES 2u
 typedef struct {
   bk_mctx_t ctx;
   const bk_study_t *s;
@@ -136,7 +145,7 @@ static int run_random(mc_t *m) {
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
     m->ctx.planned = total;
     bk_mctx_progress(&m->ctx);
-    if (a->target_cov > 0 && r->est.cov <= a->target_cov) {
+    if (a->target_cov > 0 && k >= MIN_FAILURES && r->est.cov <= a->target_cov) {
       r->stop_reason = "target_cov reached";
       break;
     }
@@ -157,6 +166,7 @@ static int run_replicated(mc_t *m) {
     return bk_error_set(m->err, BK_ENOMEM, NULL, 0, 0, "out of memory");
   r->stop_reason = "samples done";
   uint64_t planned = per * a->replicates;
+  uint32_t failing_reps = 0;
   int rc;
   for (uint32_t j = 0; j < a->replicates; j++) {
     if (m->total_n + per > a->max_evaluations) {
@@ -180,6 +190,7 @@ static int run_replicated(mc_t *m) {
     policy_counts(m, m->n, m->k, m->e, &n, &k);
     r->replicate_pf[j] = n ? (double)k / (double)n : NAN;
     r->replicates = j + 1;
+    failing_reps += k > 0;
     uint64_t tn, tk;
     policy_counts(m, m->total_n, m->total_k, m->total_e, &tn, &tk);
     bk_estimate_replicates(r->replicate_pf, r->replicates, per, tk, a->ci_level,
@@ -191,10 +202,11 @@ static int run_replicated(mc_t *m) {
     m->ctx.planned = planned;
     bk_mctx_progress(&m->ctx);
     /* The spread of fewer than four replicates says too little about the
-     * error to stop on. */
+     * error to stop on; nor does one of too few failures (see
+     * MIN_FAILURES). */
     uint32_t min_reps = a->replicates < 4 ? a->replicates : 4;
-    if (a->target_cov > 0 && r->replicates >= min_reps &&
-        r->est.cov <= a->target_cov) {
+    if (a->target_cov > 0 && r->replicates >= min_reps && tk >= MIN_FAILURES &&
+        failing_reps >= MIN_FAILING_REPLICATES && r->est.cov <= a->target_cov) {
       r->stop_reason = "target_cov reached";
       break;
     }

@@ -21,11 +21,47 @@
  * level (lambda starts at 0.6 and carries over between levels). These are
  * deterministic points, so the path is a function of (seed, responses).
  *
- * Error bar: the Au-Beck coefficient of variation, delta^2 = sum_l
- * (1 - P_l) / (N P_l) (1 + gamma_l), with gamma_l from the correlation of
- * the indicator along the chains (Au & Beck 2001, eqs. 27-29); levels are
- * taken as uncorrelated. The interval is lognormal with that cov, named
- * "au-beck (lognormal)".
+ * Error bar. Au & Beck (2001, eqs. 27-29) give the cov of the product
+ * as delta^2 = sum_l delta_l^2, delta_l^2 = (1 - P_l) / (N P_l) (1 +
+ * gamma_l), gamma_l from the correlation of the indicator along each
+ * chain, with the levels taken as uncorrelated (their lower bound; the
+ * upper one, fully correlated levels, is (sum_l delta_l)^2). Measured over
+ * hundreds of seeds (bench/coverage_sweep, figures in docs/methods.md) it
+ * understates the spread of ln Pf by a factor growing with the levels:
+ * 1.10 at Pf 1e-3, 1.23 at 1e-6 and 1.37 at 1e-9 with 500 points per
+ * level (95% intervals covering 83% of the time at 1e-9), and by 1.4 to
+ * 1.7 where chains stay in separate islands (scattered failure regions)
+ * or on curved domains. Two things are missing: chains started from seeds
+ * of one chain of the level before are correlated (a rejected step
+ * repeats a state, so two seeds can be the same point), and the levels'
+ * errors are correlated (a population off the conditional distribution
+ * passes its error on to the next levels).
+ *
+ * So the cov is taken from the genealogy, the way the error of a
+ * sequential Monte Carlo sampler is (subset simulation is one: Cerou, Del
+ * Moral, Furon & Guyader 2012, Statistics and Computing 22:795-808): ln Pf
+ * is sum_l ln P_l, and to first order its error is sum_l (P_l^ - P_l) /
+ * P_l, a sum over the points of every level of their centred indicators
+ * (I - P_l) / (N P_l) (I: below the next threshold; at the last level,
+ * g <= 0). Grouped by ancestor, these sums are nearly independent, so
+ * their squares estimate the variance, with the covariance between levels
+ * included (Chan & Lai 2013, Annals of Statistics 41:2877-2904; Lee &
+ * Whiteley 2018, Biometrika 105:609-625, group by the ancestor at level
+ * 0). Grouping by the level-0 ancestor collapses after a few levels (all
+ * points soon descend from a handful), so the ancestor is taken at most
+ * GENEALOGY_LAG levels back, and only levels that close are paired (the
+ * fixed-lag estimator of Olsson & Douc 2019, Bernoulli 25:1504-1535;
+ * these references from memory);
+ * each group sum gets the small-sample factor G / (G - 1). Correlation
+ * between levels further apart is taken as Au & Beck's sum between their
+ * two bounds with one correlation rho between every pair of levels,
+ * delta^2 = sum delta_l^2 + rho ((sum delta_l)^2 - sum delta_l^2), as the
+ * factor this puts on the uncorrelated sum: rho = LEVEL_RHO / sqrt(p0 N),
+ * fitted to the measured spread on the linear problem at 500 to 2000
+ * points per level (rho about 0.11 at 500, 0.056 at 2000: the levels'
+ * correlation fades as the chains get more seeds). The interval is
+ * lognormal with that cov, "subset genealogy (lognormal)"; one level
+ * alone is crude sampling and gets the binomial estimate ("wilson").
  *
  * Model errors: at level 0 a faulty point is left out (skip) or taken as
  * failed (fail, g = -inf); in the chains a faulty proposal is a rejected
@@ -50,6 +86,11 @@
 
 #define TARGET_ACCEPTANCE 0.44
 #define LAMBDA0           0.6
+/* The genealogy of the error bar (see the file comment): points are
+ * grouped by their ancestor this many levels back, and levels further
+ * apart are taken as correlated by LEVEL_RHO / sqrt(p0 N). */
+#define GENEALOGY_LAG 2
+#define LEVEL_RHO     0.77
 
 /* A level: N points as chains stored one after the other, chain c at
  * rows off[c] .. off[c] + len[c] - 1 of u (N * nu) and g (N); level 0 is
@@ -97,6 +138,15 @@ typedef struct {
   int level, final;
   size_t nf;             /* points of the last level with g <= 0 */
   uint64_t final_chains; /* chains of the last level holding a failure */
+  /* The genealogy: for every level so far, the g of its points, the
+   * position of each point's seed in the level before (level 0: none),
+   * the threshold its points were counted against and their share below
+   * it. Level 0's points left out of the estimate are marked in out0. */
+  double **hg;
+  uint32_t **hpar;
+  double *hb, *hp, *hd;
+  unsigned char *out0;
+  int nh;
 } ss_t;
 
 static int ss_alloc(ss_t *m) {
@@ -106,9 +156,16 @@ static int ss_alloc(ss_t *m) {
   m->z = bk_calloc(nu, sizeof *m->z);
   m->order = bk_calloc(N, sizeof *m->order);
   m->seedpos = bk_calloc(N, sizeof *m->seedpos);
+  size_t L = (size_t)m->ctx.s->analysis.subset.max_levels;
+  m->hg = bk_calloc(L, sizeof *m->hg);
+  m->hpar = bk_calloc(L, sizeof *m->hpar);
+  m->hb = bk_calloc(L, sizeof *m->hb);
+  m->hp = bk_calloc(L, sizeof *m->hp);
+  m->hd = bk_calloc(L, sizeof *m->hd);
+  m->out0 = bk_calloc(N, 1);
   if (level_alloc(&m->cur, N, nu) || level_alloc(&m->nx, N, nu) || !m->prop ||
-      !m->sig || !m->z || !m->order || !m->seedpos ||
-      bk_mctx_reserve(&m->ctx, N))
+      !m->sig || !m->z || !m->order || !m->seedpos || !m->hg || !m->hpar ||
+      !m->hb || !m->hp || !m->hd || !m->out0 || bk_mctx_reserve(&m->ctx, N))
     return bk_mctx_nomem(&m->ctx);
   return 0;
 }
@@ -121,6 +178,16 @@ static void ss_free(ss_t *m) {
   bk_free(m->z);
   bk_free(m->order);
   bk_free(m->seedpos);
+  for (int l = 0; m->hg && l < m->ctx.s->analysis.subset.max_levels; l++) {
+    bk_free(m->hg[l]);
+    bk_free(m->hpar[l]);
+  }
+  bk_free(m->hg);
+  bk_free(m->hpar);
+  bk_free(m->hb);
+  bk_free(m->hp);
+  bk_free(m->hd);
+  bk_free(m->out0);
 }
 
 /* Sorting order: by g, then by position (deterministic on ties). qsort
@@ -138,8 +205,8 @@ static int cmp_order(const void *a, const void *b) {
 }
 
 /* gamma of Au & Beck (2001, eq. 29) for the indicator g <= b over the nc
- * chains of level l, with P the fraction of all N points below b. Unequal chain lengths use the
- * pairs that exist at each lag. */
+ * chains of level l, with P the fraction of all N points below b. Unequal chain
+ * lengths use the pairs that exist at each lag. */
 static double chain_gamma(const level_t *l, size_t nc, size_t N, double b,
                           double P) {
   const double *g = l->g;
@@ -190,6 +257,7 @@ static int level0(ss_t *m) {
     m->cur.g[i] = c->pts[i].g;
     if (c->pts[i].fault != BK_FAULT_NONE) {
       m->e0++;
+      m->out0[i] = !m->fail_mode;
       m->cur.g[i] = m->fail_mode ? -INFINITY : INFINITY;
     }
     m->cur.off[i] = i;
@@ -205,8 +273,12 @@ static int level0(ss_t *m) {
 
 /* Orders the level's points by g (index order on ties) into m->order and
  * counts those with g <= 0 into m->nf. */
-static void order_level(ss_t *m) {
+static int order_level(ss_t *m) {
   size_t N = m->N;
+  if (!(m->hg[m->level] = bk_malloc(N * sizeof **m->hg)))
+    return bk_mctx_nomem(&m->ctx);
+  memcpy(m->hg[m->level], m->cur.g, N * sizeof **m->hg);
+  m->nh = m->level + 1;
   for (size_t i = 0; i < N; i++)
     m->order[i] = i;
   sort_g = m->cur.g;
@@ -214,6 +286,7 @@ static void order_level(ss_t *m) {
   m->nf = 0;
   for (size_t i = 0; i < N; i++)
     m->nf += m->cur.g[i] <= 0;
+  return 0;
 }
 
 /* The last level (failure domain reached, or a cap): its conditional
@@ -226,9 +299,13 @@ static int last_level(ss_t *m, size_t nl) {
   if (m->level == 0)
     m->p_first = P;
   m->logreach = m->logp;
+  m->hb[m->level] = 0;
+  m->hp[m->level] = P;
   m->logp += P > 0 ? log(P) : -INFINITY;
-  if (P > 0)
+  if (P > 0) {
+    m->hd[m->level] = sqrt((1 - P) / ((double)nl * P) * (1 + gam));
     m->delta2 += (1 - P) / ((double)nl * P) * (1 + gam);
+  }
   m->final = m->nf >= m->nc;
   for (size_t c = 0; c < m->nchains; c++) {
     int any = 0;
@@ -255,8 +332,11 @@ static int next_threshold(ss_t *m, size_t nl, double *b, size_t *ns) {
   if (m->level == 0)
     m->p_first = P;
   double gam = chain_gamma(&m->cur, m->nchains, m->N, *b, P);
+  m->hb[m->level] = *b;
+  m->hp[m->level] = P;
   m->logp += log(P);
   m->delta2 += (1 - P) / ((double)nl * P) * (1 + gam);
+  m->hd[m->level] = sqrt((1 - P) / ((double)nl * P) * (1 + gam));
   if (bk_result_detailf(m->ctx.res, *b, "threshold level %d", m->level + 1))
     return bk_mctx_nomem(&m->ctx);
   return 0;
@@ -265,11 +345,13 @@ static int next_threshold(ss_t *m, size_t nl, double *b, size_t *ns) {
 /* Starts the next level's ns chains at the seeds, sharing the N points
  * out (the first N % ns chains one longer), and sets sig to the spread of
  * the seeds per coordinate. Returns the longest chain's length. */
-static size_t seed_chains(ss_t *m, size_t ns) {
+static size_t seed_chains(ss_t *m, size_t ns, uint32_t *par) {
   size_t N = m->N, nu = m->nu, maxlen = 0, o = 0;
   for (size_t c = 0; c < ns; c++) {
     m->nx.off[c] = o;
     m->nx.len[c] = N / ns + (c < N % ns);
+    for (size_t j = 0; j < m->nx.len[c]; j++)
+      par[o + j] = (uint32_t)m->seedpos[c];
     if (m->nx.len[c] > maxlen)
       maxlen = m->nx.len[c];
     memcpy(m->nx.u + o * nu, m->cur.u + m->seedpos[c] * nu,
@@ -384,7 +466,8 @@ static int run_levels(ss_t *m) {
   int rc;
   for (;;) {
     size_t nl = m->level == 0 ? m->n0 : N;
-    order_level(m);
+    if ((rc = order_level(m)))
+      return rc;
     int capped = m->level + 1 >= a->subset.max_levels ||
                  c->n + (N - nc) > a->max_evaluations;
     if (m->nf >= nc || capped)
@@ -394,7 +477,9 @@ static int run_levels(ss_t *m) {
     if ((rc = next_threshold(m, nl, &b, &ns)))
       return rc;
     m->level++;
-    size_t maxlen = seed_chains(m, ns);
+    if (!(m->hpar[m->level] = bk_malloc(N * sizeof **m->hpar)))
+      return bk_mctx_nomem(c);
+    size_t maxlen = seed_chains(m, ns, m->hpar[m->level]);
     if ((rc = run_chains(m, b, ns, maxlen)))
       return rc;
     swap_levels(m, ns);
@@ -405,27 +490,110 @@ static int run_levels(ss_t *m) {
   }
 }
 
+/* The ancestor at level r of point i of level l (r <= l). */
+static size_t ancestor(const ss_t *m, int l, size_t i, int r) {
+  for (; l > r; l--)
+    i = m->hpar[l][i];
+  return i;
+}
+
+/* Adds to s (N values, by ancestor at level r) the centred, scaled
+ * indicators (I - P_l) / (n_l P_l) of level l's points. */
+static void group_sums(const ss_t *m, int l, int r, double *s) {
+  size_t N = m->N;
+  double P = m->hp[l], b = m->hb[l];
+  double nl = l == 0 ? (double)m->n0 : (double)N;
+  for (size_t i = 0; i < N; i++) {
+    if (l == 0 && m->out0[i])
+      continue;
+    double I = m->hg[l][i] <= b;
+    s[ancestor(m, l, i, r)] += (I - P) / (nl * P);
+  }
+}
+
+/* The relative variance of Pf from the genealogy (see the file comment):
+ * the levels' centred indicators summed by their ancestor GENEALOGY_LAG
+ * levels back (level 0 at the most), for every level and every pair of
+ * levels at most that far apart; a sum over G groups of ancestors is
+ * raised by G / (G - 1), the small-sample correction of a variance from
+ * G group sums whose total is 0 by construction. Returns NaN when out of
+ * memory. */
+static double genealogy_var(const ss_t *m) {
+  const int lag = GENEALOGY_LAG;
+  size_t N = m->N;
+  int L = m->level;
+  double *a = bk_calloc(N, sizeof *a), *b = bk_calloc(N, sizeof *b);
+  if (!a || !b) {
+    bk_free(a);
+    bk_free(b);
+    return NAN;
+  }
+  double v = 0;
+  for (int l2 = 0; l2 <= L; l2++) {
+    int r = l2 - lag > 0 ? l2 - lag : 0;
+    memset(b, 0, N * sizeof *b);
+    group_sums(m, l2, r, b);
+    for (int l1 = r; l1 <= l2; l1++) {
+      memset(a, 0, N * sizeof *a);
+      group_sums(m, l1, r, a);
+      double d = 0;
+      size_t G = 0;
+      for (size_t k = 0; k < N; k++) {
+        d += a[k] * b[k];
+        G += b[k] != 0;
+      }
+      /* Level 0 alone: its points are independent and their own groups,
+       * and the binomial variance needs no correction. */
+      if (l2 > r && G > 1)
+        d *= (double)G / (double)(G - 1);
+      v += (l1 == l2 ? 1 : 2) * d;
+    }
+  }
+  bk_free(a);
+  bk_free(b);
+  return v;
+}
+
 /* The estimate: Pf = prod P_l with the Au-Beck cov and a lognormal
  * interval; with no failure in the last level, an upper bound from its N
  * points (Clopper-Pearson for 0 of N) times the levels' probability.
  * pf_bounds from level 0's faulted points. */
-static void fill_estimate(ss_t *m) {
+static int fill_estimate(ss_t *m) {
   const bk_study_t *s = m->ctx.s;
   bk_result_t *res = m->ctx.res;
   bk_estimate_t *e = &res->est;
+  double level = s->analysis.ci_level;
   double pf = exp(m->logp);
-  bk_estimate_lognormal(pf, sqrt(m->delta2), s->analysis.ci_level, e);
-  e->n = m->ctx.n;
-  e->failures = m->nf;
-  if (pf > 0) {
-    e->ci_method = "au-beck (lognormal)";
+  if (m->level == 0) {
+    /* One level is crude sampling: the binomial estimate. */
+    bk_estimate_binomial(m->n0, m->nf, level, e);
+  } else if (pf > 0) {
+    double v = genealogy_var(m);
+    if (isnan(v))
+      return bk_mctx_nomem(&m->ctx);
+    double sd = 0, s2 = 0;
+    for (int l = 0; l <= m->level; l++) {
+      sd += m->hd[l];
+      s2 += m->hd[l] * m->hd[l];
+    }
+    double rho = fmin(1, LEVEL_RHO / sqrt((double)m->nc));
+    if (s2 > 0)
+      v *= 1 + rho * (sd * sd - s2) / s2;
+    bk_estimate_lognormal(pf, v > 0 ? sqrt(v) : INFINITY, level, e);
+    e->ci_method = "subset genealogy (lognormal)";
+    if (bk_result_detail(res, "au-beck cov (levels uncorrelated)",
+                         sqrt(m->delta2)))
+      return bk_mctx_nomem(&m->ctx);
   } else {
+    bk_estimate_lognormal(pf, INFINITY, level, e);
     e->ci_method = "upper bound from the last level";
-    e->ci[1] = exp(m->logreach) *
-               (1 - pow((1 - s->analysis.ci_level) / 2, 1.0 / (double)m->N));
+    e->ci[1] =
+        exp(m->logreach) * (1 - pow((1 - level) / 2, 1.0 / (double)m->N));
     e->ci_exact[1] = e->ci[1];
     bk_estimate_set_beta(e);
   }
+  e->n = m->ctx.n;
+  e->failures = m->nf;
   res->excluded = m->fail_mode ? 0 : m->e0;
   res->pf_bounds[0] = res->pf_bounds[1] = e->pf;
   if (m->e0 && !m->fail_mode && m->p_first > 0) {
@@ -436,6 +604,7 @@ static void fill_estimate(ss_t *m) {
     if (m->level == 0)
       res->pf_bounds[1] = (m->p_first * n0 + e0) / N;
   }
+  return 0;
 }
 
 /* Details and the evidence against the result (see docs/methods.md).
@@ -507,8 +676,7 @@ int bk__method_subset(const bk_study_t *s, bk_evaluator_t *ev,
   res->stop_reason = "failure domain reached";
   if ((rc = level0(&m)) || (rc = run_levels(&m)))
     goto out;
-  fill_estimate(&m);
-  if ((rc = report_evidence(&m)))
+  if ((rc = fill_estimate(&m)) || (rc = report_evidence(&m)))
     goto out;
   rc = bk_mctx_finish(&m.ctx);
 out:

@@ -84,7 +84,8 @@ int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
       rc = bk_mctx_nomem(m);
       goto out;
     }
-    int reached = res->est.cov <= a->target_cov;
+    int reached = res->est.cov <= a->target_cov &&
+                  (!w->gate || w->gate(w->data, &w->est, w->n));
     m->planned = m->n + (reached ? 0 : batch);
     bk_mctx_progress(m);
     if (reached) {

@@ -32,6 +32,11 @@ typedef double (*bk_weighted_draw_cb)(void *data, uint64_t stream,
 /* Sees each evaluated point that has no fault: its key index, u and g. */
 typedef void (*bk_weighted_seen_cb)(void *data, uint64_t index, const double *u,
                                     double g);
+/* Asked after a batch whose estimate reached target_cov: returns nonzero
+ * when the evidence allows the stop (enough failures, effective samples,
+ * ...), 0 to go on sampling. */
+typedef int (*bk_weighted_gate_cb)(void *data, const bk_estimate_wsum_t *est,
+                                   uint64_t n);
 
 typedef struct {
   /* Set by the caller. */
@@ -39,6 +44,7 @@ typedef struct {
   size_t batch; /* points per batch, at least 1 */
   bk_weighted_draw_cb draw;
   bk_weighted_seen_cb seen; /* may be NULL */
+  bk_weighted_gate_cb gate; /* may be NULL: the cov alone decides */
   void *data;
   /* Filled by bk_weighted_run. */
   bk_estimate_wsum_t est;    /* the estimate's values, after on_error */
