@@ -65,3 +65,87 @@ Test(coverage, random_with_100_variables) {
                           "method: random, samples: 4000", 1, 60);
   expect_honest(&c, "random linear 100 2.33");
 }
+
+/* Cross-entropy (normal interval on the weighted estimate). On the
+ * two-variable problems it fits full covariances and must hold without
+ * warnings; with 100 and 1000 variables it fits the means only (Au & Beck
+ * 2003), and any run it cannot trust must warn. */
+Test(coverage, cross_entropy_on_a_linear_limit_state_from_1e3_to_1e7) {
+  const char *betas[] = {"3.09", "4.27", "4.75", "5.2"};
+  for (int i = 0; i < 4; i++) {
+    char what[64];
+    snprintf(what, sizeof what, "cross-entropy linear 2 %s", betas[i]);
+    cover_t c =
+        coverage_of("linear", "2", betas[i], "method: cross-entropy", 1, 100);
+    expect_honest(&c, what);
+    expect_few_warnings(&c, 0.05, what);
+  }
+}
+
+Test(coverage, cross_entropy_on_series_parabola_and_correlated_inputs) {
+  const char *probs[][2] = {
+      {"series4", "6"}, {"parabola", "5.0"}, {"corr", "3.0"}};
+  for (int i = 0; i < 3; i++) {
+    char what[64];
+    snprintf(what, sizeof what, "cross-entropy %s %s", probs[i][0],
+             probs[i][1]);
+    cover_t c = coverage_of(probs[i][0], probs[i][1], "",
+                            "method: cross-entropy, cross_entropy: "
+                            "{components: 2}",
+                            1, 100);
+    expect_honest(&c, what);
+    expect_few_warnings(&c, 0.05, what);
+  }
+}
+
+Test(coverage, cross_entropy_with_100_variables) {
+  cover_t c =
+      coverage_of("linear", "100", "4.75", "method: cross-entropy", 1, 50);
+  expect_honest(&c, "cross-entropy linear 100 4.75");
+  expect_few_warnings(&c, 0.05, "cross-entropy linear 100 4.75");
+  c = coverage_of("lognsum", "100", "112.0", "method: cross-entropy", 1, 50);
+  expect_honest(&c, "cross-entropy lognsum 100 112");
+}
+
+/* Subset simulation (the genealogy cov, lognormal interval) from Pf 1e-3
+ * to 1e-9 (linear 2 6.0 is 9.9e-10). */
+Test(coverage, subset_on_a_linear_limit_state_from_1e3_to_1e9) {
+  const char *betas[] = {"3.09", "4.75", "5.2", "6.0"};
+  for (int i = 0; i < 4; i++) {
+    char what[64];
+    snprintf(what, sizeof what, "subset linear 2 %s", betas[i]);
+    cover_t c = coverage_of("linear", "2", betas[i],
+                            "method: subset, samples: 500", 1, 150);
+    expect_honest(&c, what);
+    expect_few_warnings(&c, 0.05, what);
+  }
+}
+
+Test(coverage, subset_on_series_parabola_and_scattered_regions) {
+  const char *probs[][2] = {
+      {"series4", "6"}, {"parabola", "7.0"}, {"rastrigin", "18.0"}};
+  for (int i = 0; i < 3; i++) {
+    char what[64];
+    snprintf(what, sizeof what, "subset %s %s", probs[i][0], probs[i][1]);
+    cover_t c =
+        coverage_of(probs[i][0], probs[i][1], "", "method: subset", 1, 100);
+    expect_honest(&c, what);
+    expect_few_warnings(&c, 0.05, what);
+  }
+}
+
+Test(coverage, subset_on_correlated_non_normal_inputs) {
+  cover_t c =
+      coverage_of("corr", "4.0", "", "method: subset, samples: 2000", 1, 100);
+  expect_honest(&c, "subset corr 4.0");
+  expect_few_warnings(&c, 0.05, "subset corr 4.0");
+}
+
+Test(coverage, subset_with_100_variables) {
+  cover_t c = coverage_of("linear", "100", "4.75", "method: subset", 1, 60);
+  expect_honest(&c, "subset linear 100 4.75");
+  expect_few_warnings(&c, 0.05, "subset linear 100 4.75");
+  c = coverage_of("lognsum", "100", "112.0", "method: subset", 1, 60);
+  expect_honest(&c, "subset lognsum 100 112");
+  expect_few_warnings(&c, 0.05, "subset lognsum 100 112");
+}
