@@ -77,21 +77,20 @@ static void expect_inside(const bk_result_t *r, double exact,
 
 /* Cornell (1969): g = R - S with normal R, S is normal, so
  * Pf = Phi(-(mR - mS)/sqrt(sR^2 + sS^2)) exactly. Here beta = 2.5. */
-static const char linear_study[] =
-    "seed: %d\n"
-    "variables:\n"
-    "  r: {type: normal, mean: 200, sd: 20}\n"
-    "  s: {type: normal, mean: 125, sd: 20}\n"
-    "limit_state: r - s*1.0\n"
-    "analysis: {method: %s, samples: %d%s}\n";
+static const char linear_study[] = "seed: %d\n"
+                                   "variables:\n"
+                                   "  r: {type: normal, mean: 200, sd: 20}\n"
+                                   "  s: {type: normal, mean: 125, sd: 20}\n"
+                                   "limit_state: r - s*1.0\n"
+                                   "analysis: {method: %s, samples: %d%s}\n";
 
 static double linear_exact(void) {
   return bk_norm_cdf(-75.0 / sqrt(800.0));
 }
 
 Test(method_mc, linear_in_normals_random) {
-  bk_study_t *s = study_from(linear_study, 11, "random", 400000,
-                             ", ci_level: 0.99");
+  bk_study_t *s =
+      study_from(linear_study, 11, "random", 400000, ", ci_level: 0.99");
   bk_result_t r;
   run(s, &r);
   expect_inside(&r, linear_exact(), "random");
@@ -201,8 +200,8 @@ Test(method_mc, intervals_cover_the_exact_value) {
 /* target_cov is checked after whole batches: two runs stop at the same
  * evaluation count with identical estimates. */
 Test(method_mc, target_cov_stops_deterministically) {
-  bk_study_t *s = study_from(linear_study, 3, "random", 5000000,
-                             ", target_cov: 0.05");
+  bk_study_t *s =
+      study_from(linear_study, 3, "random", 5000000, ", target_cov: 0.05");
   bk_result_t a, b;
   run(s, &a);
   run(s, &b);
@@ -264,6 +263,26 @@ Test(method_mc, not_a_number_is_excluded_with_bounds) {
   cr_assert_eq(r.est.n, 100000 - r.model_errors);
   cr_assert_leq(r.pf_bounds[0], r.est.pf);
   cr_assert_geq(r.pf_bounds[1], r.est.pf);
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* A stop on target_cov needs at least 10 failures (method_mc.c,
+ * MIN_FAILURES; common practice): at Pf = Phi(-3.89) = 5.0e-5 the first
+ * in-process batch of 65536 sees about 3 failures, whose binomial cov of
+ * about 0.58 is already below target_cov 0.6; the run goes on until it
+ * has 10. */
+Test(method_mc, target_cov_waits_for_ten_failures) {
+  bk_study_t *s = study_from("seed: 3\n"
+                             "variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3.89 - a\n"
+                             "analysis: {method: random, target_cov: 0.6}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_assert_str_eq(r.stop_reason, "target_cov reached");
+  cr_assert_geq(r.est.failures, 10);
+  cr_assert_leq(r.est.cov, 0.6);
   bk_result_close(&r);
   bk_study_free(s);
 }
