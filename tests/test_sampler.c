@@ -298,7 +298,8 @@ Test(sampler, lhs_replicates_differ_and_points_are_random_access) {
  * placement in the stratum shows up as a mismatch. The cases cover one
  * stratum (the jitter alone), the 8-round permutation of small designs,
  * the 4-round one, cycle walking for n just above a power of two, large n
- * where (k + u) / n must be moved off a stratum edge, and more dimensions
+ * where (k + u) / n keeps few bits of the jitter, a point where it was
+ * moved off a stratum edge (n = 2^50 + 3, index 22), and more dimensions
  * than one chunk of the sampler. */
 Test(sampler, lhs_values_are_pinned) {
   static const struct {
@@ -337,6 +338,12 @@ Test(sampler, lhs_values_are_pinned) {
        "lhs/r1",
        3,
        {0x1.ffcd0e1501a01p-1, 0x1.f1965b15637abp-1, 0x1.eb5b8bbc33ea6p-1}},
+      {42,
+       (UINT64_C(1) << 50) + 3,
+       22,
+       "lhs/r4",
+       3,
+       {0x1.054f7ea843a21p-1, 0x1.d4be4f6d544fcp-3, 0x1.3ed7304425f02p-1}},
       {UINT64_MAX,
        100,
        17,
@@ -383,11 +390,14 @@ static uint64_t digest_doubles(uint64_t h, const double *x, size_t n) {
 
 /* Whole designs pinned by a digest of all their coordinates (computed as
  * for lhs_values_are_pinned): every n from 1 to 64 in 1 to 13 dimensions,
- * and 4000 points from both ends of three larger designs. */
+ * point by point and as one block, and 4000 points from both ends of three
+ * larger designs: n = 2^12 + 1, where half the indices need cycle walking,
+ * n = 125000 and n = 2^50 + 3, where about one coordinate in 25 is moved
+ * off a stratum edge. */
 Test(sampler, lhs_designs_are_pinned) {
   const uint64_t fnv = UINT64_C(0xCBF29CE484222325);
-  uint64_t h = fnv;
-  double x[13];
+  uint64_t h = fnv, hb = fnv;
+  static double x[64 * 13];
   for (uint64_t n = 1; n <= 64; n++) {
     bk_sampler_t s;
     uint32_t nd = 1 + (uint32_t)(n % 13);
@@ -396,13 +406,16 @@ Test(sampler, lhs_designs_are_pinned) {
       bk_sampler_point(&s, i, x);
       h = digest_doubles(h, x, nd);
     }
+    bk_sampler_points(&s, 0, n, x);
+    hb = digest_doubles(hb, x, n * nd);
   }
   cr_expect_eq(h, UINT64_C(0xba973c8926b63e14),
                "small designs: digest %016" PRIx64, h);
-  const uint64_t big[] = {4097, 125000, (UINT64_C(1) << 40) + 1};
+  cr_expect_eq(hb, h, "small designs in blocks: digest %016" PRIx64, hb);
+  const uint64_t big[] = {4097, 125000, (UINT64_C(1) << 50) + 3};
   const uint64_t want[] = {UINT64_C(0x27711e4d1fb5d091),
                            UINT64_C(0xeb8ad1d48edd1a45),
-                           UINT64_C(0x6b96b03c6b2bccbe)};
+                           UINT64_C(0xe29dad7a6d649c0a)};
   for (size_t a = 0; a < 3; a++) {
     bk_sampler_t s;
     cr_assert_eq(bk_sampler_init(&s, BK_SAMPLER_LHS, 7301,
@@ -416,6 +429,39 @@ Test(sampler, lhs_designs_are_pinned) {
     }
     cr_expect_eq(h, want[a], "n %" PRIu64 ": digest %016" PRIx64, big[a], h);
   }
+}
+
+/* bk_sampler_points gives the rows bk_sampler_point gives, for every kind,
+ * block sizes from 1 to past the sampler's internal block of rows, and
+ * blocks that start anywhere (the last one ending at the design's end). */
+Test(sampler, points_in_blocks_equal_single_points) {
+  enum { ND = 5, MAXB = 700 };
+  const bk_sampler_kind_t kinds[] = {BK_SAMPLER_RANDOM, BK_SAMPLER_LHS,
+                                     BK_SAMPLER_SOBOL};
+  const uint64_t ns[] = {1, 6, 1000, 4097};
+  const size_t sizes[] = {1, 2, 3, 255, 256, 257, 511, 700};
+  static double rows[MAXB * ND];
+  double x[ND];
+  for (size_t a = 0; a < 3; a++)
+    for (size_t b = 0; b < 4; b++) {
+      bk_sampler_t s;
+      cr_assert_eq(bk_sampler_init(&s, kinds[a], 17, 3, ND, ns[b], 1), 0);
+      for (size_t c = 0; c < 8; c++) {
+        size_t m = sizes[c] < ns[b] ? sizes[c] : (size_t)ns[b];
+        const uint64_t starts[] = {0, (ns[b] - m) / 2, ns[b] - m};
+        for (size_t t = 0; t < 3; t++) {
+          bk_sampler_points(&s, starts[t], m, rows);
+          for (size_t i = 0; i < m; i++) {
+            bk_sampler_point(&s, starts[t] + i, x);
+            for (uint32_t d = 0; d < ND; d++)
+              cr_assert_eq(rows[i * ND + d], x[d],
+                           "kind %zu n %" PRIu64 " block %zu at %" PRIu64
+                           ": row %zu dim %u",
+                           a, ns[b], m, starts[t], i, d);
+          }
+        }
+      }
+    }
 }
 
 /* ---- Scrambled Sobol ------------------------------------------------ */

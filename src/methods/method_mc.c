@@ -32,8 +32,12 @@
 #define BATCH_MODEL     256u
 /* The most doubles of inputs held for one chunk (32 MiB), and the most
  * points of an in-process chunk (small enough to stay in cache). */
-#define CHUNK_DOUBLES (4u << 20)
+#define CHUNK_DOUBLES   (4u << 20)
 #define CHUNK_INPROCESS 2048u
+/* The most doubles of sampled coordinates held at once (128 KiB): points
+ * are sampled a block at a time, which sets each dimension's permutation up
+ * once per block rather than once per point. */
+#define U_DOUBLES 16384u
 /* The error fraction limit is applied after this many evaluations. */
 #define MIN_FOR_ERROR_LIMIT 20
 
@@ -45,10 +49,11 @@ typedef struct {
   bk_error_t *err;
   size_t nu;
   size_t chunk;
+  size_t urows; /* points whose coordinates u holds at once */
   bk_point_t *pts;
   double *xs;
   double *ys;
-  double *u;
+  double *u; /* urows rows of nu: sampled, then standard normal */
   /* Counts over the estimate's scope (the run or the current replicate). */
   uint64_t n, k, e;
   /* Over the whole run. */
@@ -63,17 +68,20 @@ static int run_range(mc_t *m, const bk_sampler_t *sp, const char *prefix,
   size_t ny = s->model.noutputs;
   while (from < to) {
     size_t c = (size_t)((to - from) < m->chunk ? (to - from) : m->chunk);
-    for (size_t i = 0; i < c; i++) {
-      bk_point_t *p = &m->pts[i];
-      p->index = from + i;
-      p->x = m->xs + i * s->nvars;
-      p->y = ny ? m->ys + i * ny : NULL;
-      bk_sampler_point(sp, p->index, m->u);
-      for (size_t d = 0; d < m->nu; d++)
-        m->u[d] = bk_norm_icdf(m->u[d]);
-      bk_transform_u_to_x(s->transform, m->u, p->x);
-      p->g = NAN;
-      p->fault = BK_FAULT_NONE;
+    for (size_t i0 = 0; i0 < c; i0 += m->urows) {
+      size_t nr = c - i0 < m->urows ? c - i0 : m->urows;
+      bk_sampler_points(sp, from + i0, nr, m->u);
+      for (size_t j = 0; j < nr * m->nu; j++)
+        m->u[j] = bk_norm_icdf(m->u[j]);
+      for (size_t i = i0; i < i0 + nr; i++) {
+        bk_point_t *p = &m->pts[i];
+        p->index = from + i;
+        p->x = m->xs + i * s->nvars;
+        p->y = ny ? m->ys + i * ny : NULL;
+        bk_transform_u_to_x(s->transform, m->u + (i - i0) * m->nu, p->x);
+        p->g = NAN;
+        p->fault = BK_FAULT_NONE;
+      }
     }
     int rc = m->ev->batch(m->ev, prefix, m->pts, c, m->err);
     if (rc)
@@ -286,7 +294,12 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
   m.pts = bk_calloc(m.chunk, sizeof *m.pts);
   m.xs = bk_calloc(m.chunk * s->nvars, sizeof *m.xs);
   m.ys = ny ? bk_calloc(m.chunk * ny, sizeof *m.ys) : NULL;
-  m.u = bk_calloc(m.nu, sizeof *m.u);
+  m.urows = U_DOUBLES / m.nu;
+  if (m.urows > m.chunk)
+    m.urows = m.chunk;
+  if (m.urows < 1)
+    m.urows = 1;
+  m.u = bk_calloc(m.urows * m.nu, sizeof *m.u);
   int rc;
   if (!m.pts || !m.xs || (ny && !m.ys) || !m.u) {
     rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
