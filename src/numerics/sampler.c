@@ -193,30 +193,47 @@ static inline double lhs_coord(uint64_t k, double nd, double u) {
 }
 
 /* Dimension d of rows [0, count) of `out` (stride ndim): the jitter there
- * replaced by the coordinate in stratum perm(first + i). The first pass of
- * the network over all rows has no branches, so the dependency chains of
- * many rows overlap; cycle walking (rare unless n is just above a power of
- * two) and the placement follow. `x` holds count words. */
+ * replaced by the coordinate in stratum perm(first + i). The network runs
+ * over all rows without a branch, so the dependency chains of many rows
+ * overlap; then the rows whose image lies outside [0, n) are listed in
+ * `walk` and walked on (cycle walking as in perm_apply), the list
+ * compacted without a branch after each step until it is empty. When n is
+ * just above a power of two nearly half the rows walk, at random: a loop
+ * per row would mispredict its exit about as often. `x` and `walk` hold
+ * count words. */
 static inline void lhs_column(const perm_t *q, unsigned rounds, uint64_t first,
                               size_t count, uint32_t ndim, double *out,
-                              uint64_t *x) {
+                              uint64_t *x, uint32_t *walk) {
   uint64_t n = q->p.n;
-  double nd = (double)n;
   for (size_t i = 0; i < count; i++)
     x[i] = feistel(q, first + i, rounds);
+  size_t m = 0;
   for (size_t i = 0; i < count; i++) {
-    uint64_t k = x[i];
-    while (k >= n)
-      k = feistel(q, k, rounds);
-    k = k < n - q->off ? k + q->off : k - (n - q->off);
+    walk[m] = (uint32_t)i;
+    m += x[i] >= n;
+  }
+  while (m > 0) {
+    size_t left = 0;
+    for (size_t j = 0; j < m; j++) {
+      uint32_t i = walk[j];
+      uint64_t y = feistel(q, x[i], rounds);
+      x[i] = y;
+      walk[left] = i; /* left <= j: walk[j] is read already */
+      left += y >= n;
+    }
+    m = left;
+  }
+  double nd = (double)n;
+  for (size_t i = 0; i < count; i++) {
+    uint64_t k = x[i] < n - q->off ? x[i] + q->off : x[i] - (n - q->off);
     out[i * ndim] = lhs_coord(k, nd, out[i * ndim]);
   }
 }
 
 /* Coordinate d is in stratum bk_permute(index, n, key_p + d * golden),
- * jittered by the uniform of (seed, jitter stream, index, d). The
- * permutation of each dimension is set up once per call and applied down
- * the column, in blocks of rows that stay in cache. */
+ * jittered by the uniform of (seed, jitter stream, index, d). In blocks of
+ * ROWS rows (which stay in cache), each dimension's permutation is set up
+ * once and applied down the column. */
 static void lhs_points(const bk_sampler_t *s, uint64_t first, size_t count,
                        double *out) {
   enum { ROWS = 256 };
@@ -227,15 +244,16 @@ static void lhs_points(const bk_sampler_t *s, uint64_t first, size_t count,
     return; /* one stratum: the jitter is the point */
   perm_t q;
   uint64_t x[ROWS];
+  uint32_t walk[ROWS];
   for (size_t i0 = 0; i0 < count; i0 += ROWS) {
     size_t m = count - i0 < ROWS ? count - i0 : ROWS;
     for (uint32_t d = 0; d < ndim; d++) {
       perm_init(&q, n, s->key_p + (uint64_t)d * GOLDEN);
       double *col = out + i0 * ndim + d;
       if (q.p.rounds == 4)
-        lhs_column(&q, 4, first + i0, m, ndim, col, x);
+        lhs_column(&q, 4, first + i0, m, ndim, col, x, walk);
       else
-        lhs_column(&q, 8, first + i0, m, ndim, col, x);
+        lhs_column(&q, 8, first + i0, m, ndim, col, x, walk);
     }
   }
 }
