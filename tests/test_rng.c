@@ -131,6 +131,26 @@ Test(rng, fill_matches_single_numbers) {
     }
 }
 
+/* Rows for consecutive indices under a precomputed key are the single
+ * numbers, for every start dimension and row length, and nothing past the
+ * last row is written. */
+Test(rng, rows_match_single_numbers) {
+  double out[5 * 9 + 1];
+  uint64_t key = bk_rng_key(11, 12);
+  for (uint32_t dim = 0; dim < 3; dim++)
+    for (uint32_t n = 1; n <= 9; n++) {
+      for (size_t k = 0; k < 5 * 9 + 1; k++)
+        out[k] = -1;
+      bk_rng_u01_rows(key, UINT64_C(0xfffffffe), 5, dim, n, out);
+      for (uint64_t i = 0; i < 5; i++)
+        for (uint32_t k = 0; k < n; k++)
+          cr_expect_eq(out[i * n + k],
+                       bk_rng_u01(11, 12, UINT64_C(0xfffffffe) + i, dim + k),
+                       "dim %u n %u row %" PRIu64 " k %u", dim, n, i, k);
+      cr_expect_eq(out[5 * n], -1, "wrote past the last row");
+    }
+}
+
 /* Changing any one argument changes the bits: no two of 4 x 4 x 64 x 8
  * neighbouring addresses share a value (a collision of 64-bit values among
  * 8192 would have probability about 2e-12). */

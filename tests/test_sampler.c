@@ -291,6 +291,179 @@ Test(sampler, lhs_replicates_differ_and_points_are_random_access) {
   cr_expect_eq(same, 0);
 }
 
+/* Recorded studies resume bit for bit only if every LHS coordinate stays a
+ * pure function of (seed, stream, npoints, index, dim) across versions.
+ * The values below were computed by brink's sampler as of commit f746bab
+ * and are pinned here: a change of the permutation, the jitter or the
+ * placement in the stratum shows up as a mismatch. The cases cover one
+ * stratum (the jitter alone), the 8-round permutation of small designs,
+ * the 4-round one, cycle walking for n just above a power of two, large n
+ * where (k + u) / n keeps few bits of the jitter, a point where it was
+ * moved off a stratum edge (n = 2^50 + 3, index 22), and more dimensions
+ * than one chunk of the sampler. */
+Test(sampler, lhs_values_are_pinned) {
+  static const struct {
+    uint64_t seed, n, index;
+    const char *stream;
+    uint32_t ndim;
+    double x[11];
+  } c[] = {
+      {7301,
+       1,
+       0,
+       "lhs/r0",
+       3,
+       {0x1.d2420ab691f84p-3, 0x1.2a166b826998ep-2, 0x1.26d78f00bf277p-1}},
+      {7301,
+       7,
+       5,
+       "lhs/r0",
+       3,
+       {0x1.48b5a409b8736p-2, 0x1.93479f916ff71p-2, 0x1.ef3f83858563ap-2}},
+      {1,
+       1000,
+       999,
+       "lhs/r3",
+       3,
+       {0x1.bf764430fbf9ep-2, 0x1.29861c9bd05dp-1, 0x1.cd7c0fda161f2p-2}},
+      {1,
+       125000,
+       77777,
+       "lhs/r7",
+       3,
+       {0x1.1e68e437f24dfp-2, 0x1.2133cdd873f92p-3, 0x1.7a2742130b642p-2}},
+      {42,
+       (UINT64_C(1) << 40) + 1,
+       (UINT64_C(1) << 40) - 3,
+       "lhs/r1",
+       3,
+       {0x1.ffcd0e1501a01p-1, 0x1.f1965b15637abp-1, 0x1.eb5b8bbc33ea6p-1}},
+      {42,
+       (UINT64_C(1) << 50) + 3,
+       22,
+       "lhs/r4",
+       3,
+       {0x1.054f7ea843a21p-1, 0x1.d4be4f6d544fcp-3, 0x1.3ed7304425f02p-1}},
+      {UINT64_MAX,
+       100,
+       17,
+       "lhs/r2",
+       11,
+       {0x1.b9ab8c8f193b4p-1, 0x1.7312408e9c4fbp-2, 0x1.36ba0d09ffdd4p-1,
+        0x1.f2d7b1792857cp-1, 0x1.e07450843b29dp-2, 0x1.7a1df34286856p-2,
+        0x1.e3bf7cfb1b1a3p-1, 0x1.7c9b6df7e02f3p-2, 0x1.a8e6c5aaba74ep-2,
+        0x1.f801db367e4e3p-1, 0x1.ef94963ccf2b7p-1}},
+  };
+  for (size_t a = 0; a < sizeof c / sizeof c[0]; a++) {
+    bk_sampler_t s;
+    cr_assert_eq(bk_sampler_init(&s, BK_SAMPLER_LHS, c[a].seed,
+                                 bk_rng_stream(c[a].stream), c[a].ndim, c[a].n,
+                                 0),
+                 0);
+    double x[11];
+    bk_sampler_point(&s, c[a].index, x);
+    for (uint32_t d = 0; d < c[a].ndim; d++)
+      cr_expect_eq(x[d], c[a].x[d], "case %zu dim %u: %a, pinned %a", a, d,
+                   x[d], c[a].x[d]);
+  }
+  /* Pinned images of the permutation itself (same origin). */
+  cr_expect_eq(bk_permute(1, 37, 12345), 14);
+  cr_expect_eq(bk_permute(36, 37, UINT64_MAX), 24);
+  cr_expect_eq(bk_permute(1, 131073, 12345), 11650);
+  cr_expect_eq(bk_permute(131072, 131073, UINT64_MAX), 51639);
+  cr_expect_eq(bk_permute(1, UINT64_C(1) << 53, 12345),
+               UINT64_C(1864413280473036));
+}
+
+/* FNV-1a 64 over the bit patterns of doubles. */
+static uint64_t digest_doubles(uint64_t h, const double *x, size_t n) {
+  for (size_t i = 0; i < n; i++) {
+    uint64_t b;
+    memcpy(&b, &x[i], sizeof b);
+    for (int k = 0; k < 8; k++) {
+      h ^= b >> (8 * k) & 255;
+      h *= UINT64_C(0x100000001B3);
+    }
+  }
+  return h;
+}
+
+/* Whole designs pinned by a digest of all their coordinates (computed as
+ * for lhs_values_are_pinned): every n from 1 to 64 in 1 to 13 dimensions,
+ * point by point and as one block, and 4000 points from both ends of three
+ * larger designs: n = 2^12 + 1, where half the indices need cycle walking,
+ * n = 125000 and n = 2^50 + 3, where about one coordinate in 25 is moved
+ * off a stratum edge. */
+Test(sampler, lhs_designs_are_pinned) {
+  const uint64_t fnv = UINT64_C(0xCBF29CE484222325);
+  uint64_t h = fnv, hb = fnv;
+  static double x[64 * 13];
+  for (uint64_t n = 1; n <= 64; n++) {
+    bk_sampler_t s;
+    uint32_t nd = 1 + (uint32_t)(n % 13);
+    cr_assert_eq(bk_sampler_init(&s, BK_SAMPLER_LHS, n * 31, n, nd, n, 0), 0);
+    for (uint64_t i = 0; i < n; i++) {
+      bk_sampler_point(&s, i, x);
+      h = digest_doubles(h, x, nd);
+    }
+    bk_sampler_points(&s, 0, n, x);
+    hb = digest_doubles(hb, x, n * nd);
+  }
+  cr_expect_eq(h, UINT64_C(0xba973c8926b63e14),
+               "small designs: digest %016" PRIx64, h);
+  cr_expect_eq(hb, h, "small designs in blocks: digest %016" PRIx64, hb);
+  const uint64_t big[] = {4097, 125000, (UINT64_C(1) << 50) + 3};
+  const uint64_t want[] = {UINT64_C(0x27711e4d1fb5d091),
+                           UINT64_C(0xeb8ad1d48edd1a45),
+                           UINT64_C(0xe29dad7a6d649c0a)};
+  for (size_t a = 0; a < 3; a++) {
+    bk_sampler_t s;
+    cr_assert_eq(bk_sampler_init(&s, BK_SAMPLER_LHS, 7301,
+                                 bk_rng_stream("lhs/r0") + a, 3, big[a], 0),
+                 0);
+    h = fnv;
+    for (uint64_t j = 0; j < 4000; j++) {
+      uint64_t i = j < 2000 ? j : big[a] - 1 - (j - 2000);
+      bk_sampler_point(&s, i, x);
+      h = digest_doubles(h, x, 3);
+    }
+    cr_expect_eq(h, want[a], "n %" PRIu64 ": digest %016" PRIx64, big[a], h);
+  }
+}
+
+/* bk_sampler_points gives the rows bk_sampler_point gives, for every kind,
+ * block sizes from 1 to past the sampler's internal block of rows, and
+ * blocks that start anywhere (the last one ending at the design's end). */
+Test(sampler, points_in_blocks_equal_single_points) {
+  enum { ND = 5, MAXB = 700 };
+  const bk_sampler_kind_t kinds[] = {BK_SAMPLER_RANDOM, BK_SAMPLER_LHS,
+                                     BK_SAMPLER_SOBOL};
+  const uint64_t ns[] = {1, 6, 1000, 4097};
+  const size_t sizes[] = {1, 2, 3, 255, 256, 257, 511, 700};
+  static double rows[MAXB * ND];
+  double x[ND];
+  for (size_t a = 0; a < 3; a++)
+    for (size_t b = 0; b < 4; b++) {
+      bk_sampler_t s;
+      cr_assert_eq(bk_sampler_init(&s, kinds[a], 17, 3, ND, ns[b], 1), 0);
+      for (size_t c = 0; c < 8; c++) {
+        size_t m = sizes[c] < ns[b] ? sizes[c] : (size_t)ns[b];
+        const uint64_t starts[] = {0, (ns[b] - m) / 2, ns[b] - m};
+        for (size_t t = 0; t < 3; t++) {
+          bk_sampler_points(&s, starts[t], m, rows);
+          for (size_t i = 0; i < m; i++) {
+            bk_sampler_point(&s, starts[t] + i, x);
+            for (uint32_t d = 0; d < ND; d++)
+              cr_assert_eq(rows[i * ND + d], x[d],
+                           "kind %zu n %" PRIu64 " block %zu at %" PRIu64
+                           ": row %zu dim %u",
+                           a, ns[b], m, starts[t], i, d);
+          }
+        }
+      }
+    }
+}
+
 /* ---- Scrambled Sobol ------------------------------------------------ */
 
 /* For n = 2^m points, each 1-D elementary interval [j 2^-k, (j+1) 2^-k)

@@ -44,6 +44,10 @@
  * spread of zeros. */
 #define MIN_FAILURES           10u
 #define MIN_FAILING_REPLICATES 2u
+/* The most doubles of sampled coordinates held at once (128 KiB): points
+ * are sampled a block at a time, which sets each dimension's permutation up
+ * once per block rather than once per point. */
+#define U_DOUBLES 16384u
 typedef struct {
   bk_mctx_t ctx;
   const bk_study_t *s;
@@ -51,7 +55,8 @@ typedef struct {
   bk_error_t *err;
   size_t nu;
   size_t chunk;
-  double *u;
+  size_t urows; /* points whose coordinates u holds at once */
+  double *u;    /* urows rows of nu: sampled, then standard normal */
   /* Counts over the estimate's scope (the run or the current replicate). */
   uint64_t n, k, e;
   /* Over the whole run. */
@@ -65,11 +70,13 @@ static int run_range(mc_t *m, const bk_sampler_t *sp, const char *prefix,
   bk_mctx_t *c = &m->ctx;
   while (from < to) {
     size_t n = (size_t)((to - from) < m->chunk ? (to - from) : m->chunk);
-    for (size_t i = 0; i < n; i++) {
-      bk_sampler_point(sp, from + i, m->u);
-      for (size_t d = 0; d < m->nu; d++)
-        m->u[d] = bk_norm_icdf(m->u[d]);
-      bk_mctx_set_u(c, i, from + i, m->u);
+    for (size_t i0 = 0; i0 < n; i0 += m->urows) {
+      size_t nr = n - i0 < m->urows ? n - i0 : m->urows;
+      bk_sampler_points(sp, from + i0, nr, m->u);
+      for (size_t j = 0; j < nr * m->nu; j++)
+        m->u[j] = bk_norm_icdf(m->u[j]);
+      for (size_t i = i0; i < i0 + nr; i++)
+        bk_mctx_set_u(c, i, from + i, m->u + (i - i0) * m->nu);
     }
     int rc = bk_mctx_evaluate(c, prefix, n);
     if (rc)
@@ -233,7 +240,12 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
     m.chunk = CHUNK_INPROCESS;
   if (m.chunk < 1)
     m.chunk = 1;
-  m.u = bk_calloc(m.nu ? m.nu : 1, sizeof *m.u);
+  m.urows = U_DOUBLES / (m.nu ? m.nu : 1);
+  if (m.urows > m.chunk)
+    m.urows = m.chunk;
+  if (m.urows < 1)
+    m.urows = 1;
+  m.u = bk_calloc(m.urows * (m.nu ? m.nu : 1), sizeof *m.u);
   int rc;
   if (!m.u) {
     rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");

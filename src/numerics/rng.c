@@ -102,9 +102,9 @@ double bk_rng_u01(uint64_t seed, uint64_t stream, uint64_t index,
   return to_u01(bk_rng_bits(seed, stream, index, dim));
 }
 
-void bk_rng_u01_fill(uint64_t seed, uint64_t stream, uint64_t index,
-                     uint32_t dim, uint32_t n, double *out) {
-  uint64_t key = stream_key(seed, stream);
+/* out[k] = the uniform of (key, index, dim + k) for k < n. */
+static inline void fill(uint64_t key, uint64_t index, uint32_t dim, uint32_t n,
+                        double *out) {
   uint64_t half[2];
   uint32_t k = 0;
   if (n > 0 && (dim & 1)) {
@@ -120,6 +120,21 @@ void bk_rng_u01_fill(uint64_t seed, uint64_t stream, uint64_t index,
     block(key, index, (dim + k) >> 1, half);
     out[k] = to_u01(half[0]);
   }
+}
+
+void bk_rng_u01_fill(uint64_t seed, uint64_t stream, uint64_t index,
+                     uint32_t dim, uint32_t n, double *out) {
+  fill(stream_key(seed, stream), index, dim, n, out);
+}
+
+uint64_t bk_rng_key(uint64_t seed, uint64_t stream) {
+  return stream_key(seed, stream);
+}
+
+void bk_rng_u01_rows(uint64_t key, uint64_t first, size_t count, uint32_t dim,
+                     uint32_t n, double *out) {
+  for (size_t i = 0; i < count; i++)
+    fill(key, first + i, dim, n, out + i * n);
 }
 
 /* FNV-1a 64 (Fowler, Noll & Vo; offset basis and prime from the FNV

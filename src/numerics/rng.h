@@ -13,6 +13,7 @@
 #ifndef BK_RNG_H
 #define BK_RNG_H
 
+#include <stddef.h>
 #include <stdint.h>
 
 /* One Philox4x32-10 block: out = bijection_key(ctr). */
@@ -32,6 +33,16 @@ double bk_rng_u01(uint64_t seed, uint64_t stream, uint64_t index, uint32_t dim);
  * one Philox block per pair of dimensions. */
 void bk_rng_u01_fill(uint64_t seed, uint64_t stream, uint64_t index,
                      uint32_t dim, uint32_t n, double *out);
+
+/* The Philox key of (seed, stream), for bk_rng_u01_rows: a stream's key
+ * computed once instead of per call. */
+uint64_t bk_rng_key(uint64_t seed, uint64_t stream);
+
+/* Rows of uniforms for consecutive indices: out[i * n + k] =
+ * bk_rng_u01(seed, stream, first + i, dim + k) for i < count and k < n,
+ * where key = bk_rng_key(seed, stream). */
+void bk_rng_u01_rows(uint64_t key, uint64_t first, size_t count, uint32_t dim,
+                     uint32_t n, double *out);
 
 /* 64 random bits for (seed, stream, index, dim). */
 uint64_t bk_rng_bits(uint64_t seed, uint64_t stream, uint64_t index,

@@ -89,34 +89,6 @@ static inline perm_domain_t perm_domain(uint64_t n) {
   return p;
 }
 
-/* The two key words of a permutation key. */
-static inline uint64_t perm_ka(uint64_t key) {
-  return bk_rng_mix64(key ^ UINT64_C(0x5851F42D4C957F2D));
-}
-
-static inline uint64_t perm_kb(uint64_t ka) {
-  return bk_rng_mix64(ka ^ UINT64_C(0x14057B7EF767814F));
-}
-
-/* Round r of the Feistel network: the high part takes a hash of the low
- * part, then the low part one of the high part. */
-static inline uint64_t feistel_round(uint64_t x, uint64_t ka, uint64_t kb,
-                                     unsigned r, const perm_domain_t *p) {
-  unsigned s = (16 * r + 5 * (r >> 2)) & 63, t = (s + 8) & 63;
-  uint64_t h = ((x & p->lo) ^ rotl64(ka, s)) * (rotl64(kb, s) | 1);
-  x ^= ((h ^ h >> 32) << p->l) & p->w;
-  h = ((x >> p->l) ^ rotl64(kb, t)) * (rotl64(ka, t) | 1);
-  return x ^ ((h ^ h >> 32) & p->lo);
-}
-
-/* The 4-round Feistel bijection of [0, 2^b). */
-static inline uint64_t feistel(uint64_t x, uint64_t ka, uint64_t kb,
-                               const perm_domain_t *p) {
-  for (unsigned r = 0; r < p->rounds; r++)
-    x = feistel_round(x, ka, kb, r, p);
-  return x;
-}
-
 /* The high 64 bits of a * b: ka mapped onto [0, n) as mulhi64(ka, n),
  * nearly uniform and without a division. The portable branch gives the
  * same value, so designs agree across platforms. */
@@ -131,32 +103,88 @@ static inline uint64_t mulhi64(uint64_t a, uint64_t b) {
 #endif
 }
 
-/* Cycle walking from a first image x, then the keyed rotation. */
-static inline uint64_t perm_finish(uint64_t x, uint64_t ka, uint64_t kb,
-                                   const perm_domain_t *p) {
-  while (x >= p->n)
-    x = feistel(x, ka, kb, p);
-  uint64_t off = mulhi64(ka, p->n);
-  return x < p->n - off ? x + off : x - (p->n - off);
+/* One permutation ready to apply: the domain, the round keys and the
+ * offset of the final rotation, all functions of (n, key) alone, computed
+ * once per dimension instead of once per point. From the two key words ka
+ * and kb (mixes of the key, see perm_init), round r takes, with rotations
+ * s = (16 r + 5 (r / 4)) mod 64 and t = s + 8 (mod 64):
+ *   rk[r][0] = rotl(ka, s), rk[r][1] = rotl(kb, s) | 1,
+ *   rk[r][2] = rotl(kb, t), rk[r][3] = rotl(ka, t) | 1;
+ * the offset is mulhi64(ka, n). Valid for n >= 2; rk[r] for r < rounds. */
+typedef struct {
+  perm_domain_t p;
+  uint64_t off;
+  uint64_t rk[8][4];
+} perm_t;
+
+static void perm_init(perm_t *q, uint64_t n, uint64_t key) {
+  q->p = perm_domain(n);
+  uint64_t ka = bk_rng_mix64(key ^ UINT64_C(0x5851F42D4C957F2D));
+  uint64_t kb = bk_rng_mix64(ka ^ UINT64_C(0x14057B7EF767814F));
+  for (unsigned r = 0; r < q->p.rounds; r++) {
+    unsigned s = (16 * r + 5 * (r >> 2)) & 63, t = (s + 8) & 63;
+    q->rk[r][0] = rotl64(ka, s);
+    q->rk[r][1] = rotl64(kb, s) | 1;
+    q->rk[r][2] = rotl64(kb, t);
+    q->rk[r][3] = rotl64(ka, t) | 1;
+  }
+  q->off = mulhi64(ka, n);
+}
+
+/* Round r of the Feistel network: the high part takes a hash of the low
+ * part, then the low part one of the high part. */
+static inline uint64_t feistel_round(const perm_t *q, uint64_t x, unsigned r) {
+  const uint64_t *k = q->rk[r];
+  unsigned l = q->p.l;
+  uint64_t h = ((x & q->p.lo) ^ k[0]) * k[1];
+  x ^= ((h ^ h >> 32) << l) & q->p.w;
+  h = ((x >> l) ^ k[2]) * k[3];
+  return x ^ ((h ^ h >> 32) & q->p.lo);
+}
+
+/* The Feistel bijection of [0, 2^b) with `rounds` rounds, a constant at
+ * each call site so that the loop unrolls. */
+static inline uint64_t feistel(const perm_t *q, uint64_t x, unsigned rounds) {
+  for (unsigned r = 0; r < rounds; r++)
+    x = feistel_round(q, x, r);
+  return x;
+}
+
+/* Cycle walking from i, then the keyed rotation. */
+static inline uint64_t perm_apply(const perm_t *q, uint64_t i,
+                                  unsigned rounds) {
+  uint64_t n = q->p.n, x = feistel(q, i, rounds);
+  while (x >= n)
+    x = feistel(q, x, rounds);
+  return x < n - q->off ? x + q->off : x - (n - q->off);
 }
 
 uint64_t bk_permute(uint64_t i, uint64_t n, uint64_t key) {
   if (n <= 1)
     return 0;
   assert(i < n);
-  perm_domain_t p = perm_domain(n);
-  uint64_t ka = perm_ka(key), kb = perm_kb(ka);
-  return perm_finish(feistel(i, ka, kb, &p), ka, kb, &p);
+  perm_t q;
+  perm_init(&q, n, key);
+  return q.p.rounds == 4 ? perm_apply(&q, i, 4) : perm_apply(&q, i, 8);
 }
 
 /* ---- Latin hypercube ------------------------------------------------ */
 
 /* (k + u) / n, moved inward by whole doubles when rounding put it on or
  * past an edge of stratum k, so that k <= v * n < k + 1 holds exactly:
- * fma rounds v * n - k once, so its sign is that of the exact value. */
-static double lhs_coord(uint64_t k, uint64_t n, double u) {
-  double nd = (double)n, kd = (double)k;
+ * fma rounds v * n - k once, so its sign is that of the exact value.
+ *
+ * The fast path decides the same without fma: rounding is monotonic and k
+ * and k + 1 are doubles (k < n <= 2^53), so v * n < k exactly implies
+ * round(v * n) <= k, and v * n >= k + 1 implies round(v * n) >= k + 1;
+ * when the rounded product lies strictly between k and k + 1, neither
+ * loop below would move v. */
+static inline double lhs_coord(uint64_t k, double nd, double u) {
+  double kd = (double)k;
   double v = (kd + u) / nd;
+  double p = v * nd;
+  if (p > kd && p < kd + 1)
+    return v;
   while (fma(v, nd, -kd) < 0)
     v = nextafter(v, 1.0);
   while (fma(v, nd, -(kd + 1)) >= 0)
@@ -164,33 +192,68 @@ static double lhs_coord(uint64_t k, uint64_t n, double u) {
   return v;
 }
 
-/* Coordinate d is in stratum bk_permute(index, n, base + d * golden),
- * jittered by the uniform of (seed, jitter stream, index, d). The
- * permutations of a chunk of dimensions are computed round by round side by
- * side, so their dependency chains overlap; the result is bk_permute's. */
-static void lhs_point(const bk_sampler_t *s, uint64_t index, double *out) {
-  enum { CHUNK = 8 };
+/* Dimension d of rows [0, count) of `out` (stride ndim): the jitter there
+ * replaced by the coordinate in stratum perm(first + i). The network runs
+ * over all rows without a branch, so the dependency chains of many rows
+ * overlap; then the rows whose image lies outside [0, n) are listed in
+ * `walk` and walked on (cycle walking as in perm_apply), the list
+ * compacted without a branch after each step until it is empty. When n is
+ * just above a power of two nearly half the rows walk, at random: a loop
+ * per row would mispredict its exit about as often. `x` and `walk` hold
+ * count words. */
+static inline void lhs_column(const perm_t *q, unsigned rounds, uint64_t first,
+                              size_t count, uint32_t ndim, double *out,
+                              uint64_t *x, uint32_t *walk) {
+  uint64_t n = q->p.n;
+  for (size_t i = 0; i < count; i++)
+    x[i] = feistel(q, first + i, rounds);
+  size_t m = 0;
+  for (size_t i = 0; i < count; i++) {
+    walk[m] = (uint32_t)i;
+    m += x[i] >= n;
+  }
+  while (m > 0) {
+    size_t left = 0;
+    for (size_t j = 0; j < m; j++) {
+      uint32_t i = walk[j];
+      uint64_t y = feistel(q, x[i], rounds);
+      x[i] = y;
+      walk[left] = i; /* left <= j: walk[j] is read already */
+      left += y >= n;
+    }
+    m = left;
+  }
+  double nd = (double)n;
+  for (size_t i = 0; i < count; i++) {
+    uint64_t k = x[i] < n - q->off ? x[i] + q->off : x[i] - (n - q->off);
+    out[i * ndim] = lhs_coord(k, nd, out[i * ndim]);
+  }
+}
+
+/* Coordinate d is in stratum bk_permute(index, n, key_p + d * golden),
+ * jittered by the uniform of (seed, jitter stream, index, d). In blocks of
+ * ROWS rows (which stay in cache), each dimension's permutation is set up
+ * once and applied down the column. */
+static void lhs_points(const bk_sampler_t *s, uint64_t first, size_t count,
+                       double *out) {
+  enum { ROWS = 256 };
   uint64_t n = s->npoints;
-  uint64_t base = seed_stream_key(s->seed, s->stream, TAG_LHS_PERM);
-  bk_rng_u01_fill(s->seed, bk_rng_mix64(s->stream ^ TAG_LHS_JITTER), index, 0,
-                  s->ndim, out);
+  uint32_t ndim = s->ndim;
+  bk_rng_u01_rows(s->key_u, first, count, 0, ndim, out);
   if (n == 1)
     return; /* one stratum: the jitter is the point */
-  perm_domain_t p = perm_domain(n);
-  uint64_t ka[CHUNK], kb[CHUNK], x[CHUNK];
-  for (uint32_t d0 = 0; d0 < s->ndim; d0 += CHUNK) {
-    uint32_t nd = s->ndim - d0 < CHUNK ? s->ndim - d0 : CHUNK;
-    for (uint32_t k = 0; k < nd; k++) {
-      ka[k] = perm_ka(base + (uint64_t)(d0 + k) * GOLDEN);
-      kb[k] = perm_kb(ka[k]);
-      x[k] = index;
-    }
-    for (unsigned r = 0; r < p.rounds; r++)
-      for (uint32_t k = 0; k < nd; k++)
-        x[k] = feistel_round(x[k], ka[k], kb[k], r, &p);
-    for (uint32_t k = 0; k < nd; k++) {
-      uint64_t stratum = perm_finish(x[k], ka[k], kb[k], &p);
-      out[d0 + k] = lhs_coord(stratum, n, out[d0 + k]);
+  perm_t q;
+  uint64_t x[ROWS];
+  uint32_t walk[ROWS];
+  for (size_t i0 = 0; i0 < count; i0 += ROWS) {
+    size_t m = count - i0 < ROWS ? count - i0 : ROWS;
+    for (uint32_t d = 0; d < ndim; d++) {
+      perm_init(&q, n, s->key_p + (uint64_t)d * GOLDEN);
+      double *col = out + i0 * ndim + d;
+      if (q.p.rounds == 4)
+        lhs_column(&q, 4, first + i0, m, ndim, col, x, walk);
+      else
+        lhs_column(&q, 8, first + i0, m, ndim, col, x, walk);
     }
   }
 }
@@ -323,12 +386,10 @@ static inline uint32_t sobol_fast(uint32_t i, uint32_t d) {
 static void sobol_point(const bk_sampler_t *s, uint64_t index, double *out) {
   enum { CHUNK = 64 };
   uint32_t x[CHUNK];
-  uint64_t key = 0;
+  uint64_t key = s->key_p;
   uint32_t i = (uint32_t)index;
-  if (s->scramble) {
-    key = seed_stream_key(s->seed, s->stream, TAG_SOBOL);
+  if (s->scramble)
     i = owen_scramble(i, (uint32_t)(key >> 32));
-  }
   if (s->ndim > sobol_nready)
     sobol_grow(s->ndim);
   for (uint32_t d0 = 0; d0 < s->ndim; d0 += CHUNK) {
@@ -386,20 +447,42 @@ int bk_sampler_init(bk_sampler_t *s, bk_sampler_kind_t kind, uint64_t seed,
   s->ndim = ndim;
   s->npoints = npoints;
   s->scramble = kind == BK_SAMPLER_SOBOL ? scramble != 0 : 0;
+  s->key_u = 0;
+  s->key_p = 0;
+  switch (kind) {
+  case BK_SAMPLER_RANDOM:
+    s->key_u = bk_rng_key(seed, stream);
+    break;
+  case BK_SAMPLER_LHS:
+    s->key_u = bk_rng_key(seed, bk_rng_mix64(stream ^ TAG_LHS_JITTER));
+    s->key_p = seed_stream_key(seed, stream, TAG_LHS_PERM);
+    break;
+  case BK_SAMPLER_SOBOL:
+    if (s->scramble)
+      s->key_p = seed_stream_key(seed, stream, TAG_SOBOL);
+    break;
+  }
   return 0;
 }
 
-void bk_sampler_point(const bk_sampler_t *s, uint64_t index, double *out) {
+void bk_sampler_points(const bk_sampler_t *s, uint64_t first, size_t count,
+                       double *out) {
   switch (s->kind) {
   case BK_SAMPLER_RANDOM:
-    bk_rng_u01_fill(s->seed, s->stream, index, 0, s->ndim, out);
+    bk_rng_u01_rows(s->key_u, first, count, 0, s->ndim, out);
     break;
   case BK_SAMPLER_LHS:
-    assert(index < s->npoints);
-    lhs_point(s, index, out);
+    assert(count <= s->npoints && first <= s->npoints - count);
+    lhs_points(s, first, count, out);
     break;
   case BK_SAMPLER_SOBOL:
-    sobol_point(s, index, out);
+    for (size_t i = 0; i < count; i++)
+      sobol_point(s, first + i, out + i * s->ndim);
     break;
   }
+}
+
+void bk_sampler_point(const bk_sampler_t *s, uint64_t index, double *out) {
+  assert(s->kind != BK_SAMPLER_LHS || index < s->npoints);
+  bk_sampler_points(s, index, 1, out);
 }

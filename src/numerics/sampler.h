@@ -41,14 +41,20 @@ typedef enum {
 /* Sobol points per design: indices are 32-bit. */
 #define BK_SOBOL_MAXPOINTS (UINT64_C(1) << 32)
 
-/* Value type; valid after a successful bk_sampler_init. */
+/* Value type; valid after a successful bk_sampler_init, which sets every
+ * field; the private keys are functions of the public fields, so a copy is
+ * as good as the original. */
 typedef struct {
+  /* public, read-only */
   bk_sampler_kind_t kind;
   uint64_t seed;
   uint64_t stream;
   uint32_t ndim;
   uint64_t npoints; /* LHS: design size (required); others: informational */
   int scramble;     /* Sobol only */
+  /* private, computed once by bk_sampler_init rather than per point */
+  uint64_t key_u; /* Philox key of the uniforms: random points, LHS jitter */
+  uint64_t key_p; /* LHS: base key of the permutations; Sobol: scrambles */
 } bk_sampler_t;
 
 /* Returns 0, or BK_EINVAL (ndim 0 or above BK_SOBOL_MAXDIM for Sobol,
@@ -64,6 +70,14 @@ int bk_sampler_init(bk_sampler_t *s, bk_sampler_kind_t kind, uint64_t seed,
 /* Writes point `index` (ndim coordinates in (0, 1)) into `out`. For LHS
  * index < npoints. */
 void bk_sampler_point(const bk_sampler_t *s, uint64_t index, double *out);
+
+/* Writes points first, ..., first + count - 1 as rows of ndim coordinates:
+ * out[i * ndim + d] is coordinate d of point first + i, the value
+ * bk_sampler_point gives. Per-dimension set-up is done once per call, so
+ * this is faster than a loop of bk_sampler_point. For LHS first + count <=
+ * npoints. */
+void bk_sampler_points(const bk_sampler_t *s, uint64_t first, size_t count,
+                       double *out);
 
 /* Unscrambled Sobol coordinate as a 32-bit integer (for tests): the xor of
  * the direction numbers of dimension `dim` (< BK_SOBOL_MAXDIM) over the set
