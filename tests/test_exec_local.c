@@ -40,7 +40,7 @@ static int remove_entry(const char *path, const struct stat *st, int flag,
 }
 
 static void setup(void) {
-  bk_stop_set(0);
+  bk__stop_set(0);
   const char *base = getenv("TMPDIR");
   snprintf(tmp, sizeof tmp, "%s/bk-exec-XXXXXX", base ? base : "/tmp");
   cr_assert_not_null(mkdtemp(tmp), "mkdtemp: %s", strerror(errno));
@@ -592,7 +592,7 @@ static void stop_cb(void *data, const bk_job_result_t *res) {
   stopper_t *s = data;
   record(&s->probe, res);
   if (s->stop_here)
-    bk_stop_set(SIGINT);
+    bk__stop_set(SIGINT);
 }
 
 static void check_stopped_run(const char *mode, double grace) {
@@ -638,7 +638,7 @@ static void check_stopped_run(const char *mode, double grace) {
   probe_t late = {0};
   bk_job_t job = job_in(dirs[0], quick);
   cr_assert_eq(bk_exec_submit(ex, &job, record, &late), BK_ESTOPPED);
-  bk_stop_set(0);
+  bk__stop_set(0);
   bk_exec_free(ex);
   cr_assert_eq(late.calls, 0);
 }
@@ -661,14 +661,14 @@ Test(exec_local, stop_before_wait_starts_nothing) {
     bk_job_t job = job_in(dir, argv);
     cr_assert_eq(bk_exec_submit(ex, &job, record, &p[i]), 0);
   }
-  bk_stop_set(SIGTERM);
+  bk__stop_set(SIGTERM);
   cr_assert_eq(bk_exec_wait(ex), BK_ESTOPPED);
   for (int i = 0; i < 3; i++) {
     cr_assert_eq(p[i].calls, 1);
     cr_assert_eq(p[i].res.fault, BK_FAULT_INTERRUPTED);
   }
   cr_assert_eq(read_pid(dir, "model.pid"), 0, "a model started");
-  bk_stop_set(0);
+  bk__stop_set(0);
   /* After the flag is cleared, the executor works again. */
   probe_t again = {0};
   bk_job_t job = job_in(dir, argv);
@@ -757,6 +757,6 @@ Test(exec_local, interrupt_signal_stops_hanging_models) {
   }
   for (int i = 2; i < NJOBS; i++)
     cr_assert_eq(read_pid(dirs[i], "model.pid"), 0, "job %d started", i);
-  bk_stop_set(0);
+  bk__stop_set(0);
   bk_exec_free(ex);
 }

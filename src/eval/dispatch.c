@@ -14,7 +14,17 @@
  * system is spared creating and deleting most inodes of every run (ext4
  * without a journal scans past every inode deleted in the last half minute
  * on each creation, which made that the largest cost of a trivial model
- * run). Spares are removed when the dispatcher is freed.
+ * run). Spares are removed when the dispatcher is freed. A file of
+ * brink's own in a reused folder is written over only when it is a regular
+ * file with no other link; a hard link a model made to a file elsewhere is
+ * removed and a new file made, so nothing outside the folder is written.
+ *
+ * A finished evaluation goes to the sink only when it is final: a fault
+ * with retries left is run again, or, when the run is stopping, left out
+ * (it runs again, with all its retries, on resume), so a resumed run
+ * records exactly what an uninterrupted one records. A failure of brink's
+ * own (records, a full disk, a folder that cannot be made) cancels the
+ * executor, never the user's stop flag.
  *
  * SPDX-License-Identifier: MIT
  */
@@ -35,9 +45,10 @@
 
 #include "base/alloc.h"
 #include "base/buf.h"
-#include "study/extract.h"
 #include "base/fault.h"
 #include "base/stop.h"
+#include "eval/replay.h"
+#include "study/extract.h"
 #include "study/template.h"
 
 extern char **environ;
@@ -46,7 +57,7 @@ extern char **environ;
 typedef struct {
   bk_dispatch_t *d;
   bk_point_t *pt;
-  char key[96];
+  char key[BK_REPLAY_KEY_MAX];
   char *dir;
   int attempts;
   int done;
@@ -56,7 +67,8 @@ typedef struct {
 struct bk_dispatch {
   bk_dispatch_opts_t o;
   bk_dispatch_stats_t st;
-  char **base_env; /* environ + model.env, without BRINK_* */
+  bk_sink_t records_sink; /* when no sink is given */
+  char **base_env;        /* environ + model.env, without BRINK_* */
   size_t nbase_env;
   double *vals; /* x then y, for the limit state */
   char **spare; /* folders to reuse (see the top of this file) */
@@ -70,10 +82,29 @@ struct bk_dispatch {
   size_t next;     /* the next job to consider submitting */
   size_t inflight; /* submitted, not finished */
   size_t window;
-  int fatal; /* a records failure: stop the batch */
+  int fatal; /* a failure of brink's own: the batch is cancelled */
   bk_error_t fatal_err;
-  const char *prefix;
 };
+
+static int records_put(bk_sink_t *sk, const bk_record_t *rec, bk_error_t *err) {
+  return bk_records_append(sk->data, rec, err);
+}
+
+void bk_sink_records(bk_sink_t *sk, bk_records_t *r) {
+  sk->put = records_put;
+  sk->data = r;
+}
+
+/* Records a failure of brink's own (the first one wins) and cancels the
+ * executor, so the batch ends. err_in, when not NULL, is the error. */
+static void fail(bk_dispatch_t *d, int code, const bk_error_t *err_in) {
+  if (!d->fatal) {
+    d->fatal = code;
+    if (err_in && err_in->code)
+      d->fatal_err = *err_in;
+  }
+  bk_exec_cancel(d->o.exec);
+}
 
 void bk_dispatch_folder_name(const char *key, char *out, size_t cap) {
   size_t i = 0;
@@ -174,6 +205,10 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
   if (!d)
     return BK_ENOMEM;
   d->o = *opts;
+  if (!d->o.sink) {
+    bk_sink_records(&d->records_sink, opts->records);
+    d->o.sink = &d->records_sink;
+  }
   const bk_study_t *s = opts->study;
   d->vals = bk_calloc(s->nvars + s->model.noutputs + 1, sizeof *d->vals);
   if (!d->vals || build_base_env(d)) {
@@ -201,24 +236,39 @@ const bk_dispatch_stats_t *bk_dispatch_stats(const bk_dispatch_t *d) {
   return &d->st;
 }
 
-/* Open flags for a file brink writes into a run folder: never through a
- * link; new in a new folder, overwritten in a reused one (and cut to its
- * new length after writing: truncating first would free and allocate its
- * blocks again, which costs a discard on some disks). */
-static int new_file_flags(int reused) {
-  return O_WRONLY | O_CREAT | O_NOFOLLOW | O_CLOEXEC | (reused ? 0 : O_EXCL);
+/* Opens dir/name for writing a file of brink's own into a run folder:
+ * never through a symbolic link; new in a new folder; in a reused one the
+ * old file is written over (and cut to its new length after writing:
+ * truncating first would free and allocate its blocks again, which costs
+ * a discard on some disks) when it is a regular file with no other link,
+ * and removed and made anew otherwise (a hard link the model made to a
+ * file outside the folder must not be written through). Returns a
+ * descriptor or -errno. */
+static int open_own(const char *path, int reused) {
+  int flags = O_WRONLY | O_CREAT | O_NOFOLLOW | O_CLOEXEC;
+  int fd = open(path, flags | (reused ? 0 : O_EXCL), 0666);
+  if (fd < 0 || !reused)
+    return fd < 0 ? -errno : fd;
+  struct stat st;
+  if (fstat(fd, &st) == 0 && S_ISREG(st.st_mode) && st.st_nlink == 1)
+    return fd;
+  close(fd);
+  if (unlink(path) != 0 && errno != ENOENT)
+    return -errno;
+  fd = open(path, flags | O_EXCL, 0666);
+  return fd < 0 ? -errno : fd;
 }
 
-/* Writes `len` bytes to dir/name, refusing to follow a link. */
+/* Writes `len` bytes to dir/name (see open_own). */
 static int write_new_file(const char *dir, const char *name, const char *data,
                           size_t len, int reused) {
   char path[4096];
   int n = snprintf(path, sizeof path, "%s/%s", dir, name);
   if (n < 0 || (size_t)n >= sizeof path)
     return -ENAMETOOLONG;
-  int fd = open(path, new_file_flags(reused), 0666);
+  int fd = open_own(path, reused);
   if (fd < 0)
-    return -errno;
+    return fd;
   size_t off = 0;
   while (off < len) {
     ssize_t w = write(fd, data + off, len - off);
@@ -247,12 +297,11 @@ static int copy_file(const char *src, const char *dir, const char *name,
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", dir, name);
-  int out = p.data ? open(p.data, new_file_flags(reused), 0666) : -1;
+  int out = p.data ? open_own(p.data, reused) : BK_ENOMEM;
   bk_buf_close(&p);
   if (out < 0) {
-    int e = -errno;
     close(in);
-    return e;
+    return out;
   }
   char buf[65536];
   int rc = 0;
@@ -431,17 +480,20 @@ static int prepare_folder(job_t *j, char *why, size_t whycap) {
 
 static void on_done(void *data, const bk_job_result_t *res);
 
-/* Starts (or restarts) one job. On a preparation failure the run is
- * finished at once as a fault-free failure to run: records stop. */
+/* Starts (or restarts) one job. Returns 0, or a negative code: a folder
+ * that cannot be made or filled is a failure of brink's own (d->fatal is
+ * set and the executor cancelled); a refused submission is left to the
+ * caller. */
 static int submit(job_t *j) {
   bk_dispatch_t *d = j->d;
   const bk_study_t *s = d->o.study;
   char why[512];
   int rc = prepare_folder(j, why, sizeof why);
   if (rc) {
-    d->fatal = rc;
-    bk_error_set(&d->fatal_err, rc == -ENOSPC ? BK_ENOSPC : rc, NULL, 0, 0,
-                 "%s", why);
+    bk_error_t e;
+    bk_error_clear(&e);
+    bk_error_set(&e, rc == -ENOSPC ? BK_ENOSPC : rc, NULL, 0, 0, "%s", why);
+    fail(d, e.code, &e);
     return rc;
   }
   size_t ne = d->nbase_env;
@@ -536,14 +588,16 @@ static int disk_full(const char *dir) {
          (sv.f_files > 0 && sv.f_favail == 0);
 }
 
+/* A finished attempt. Sets j->done to 1 when the evaluation is final and
+ * went to the sink, -1 when it is left out (it runs again on resume), and
+ * leaves it 0 when the job was submitted again. */
 static void run_done(job_t *j, const bk_job_result_t *res) {
   bk_dispatch_t *d = j->d;
   const bk_study_t *s = d->o.study;
   bk_point_t *pt = j->pt;
-  if (res->fault == BK_FAULT_INTERRUPTED || d->fatal) {
-    j->done = -1;
+  j->done = -1;
+  if (res->fault == BK_FAULT_INTERRUPTED || d->fatal)
     return;
-  }
   char why[512] = "";
   pt->fault = res->fault;
   pt->g = NAN;
@@ -555,36 +609,40 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
     snprintf(why, sizeof why, "%s", res->why);
   if (pt->fault != BK_FAULT_NONE && disk_full(j->dir)) {
     /* Not recorded: after space is freed the run is made again. */
-    d->fatal = BK_ENOSPC;
-    bk_error_set(&d->fatal_err, BK_ENOSPC, NULL, 0, 0,
+    bk_error_t e;
+    bk_error_clear(&e);
+    bk_error_set(&e, BK_ENOSPC, NULL, 0, 0,
                  "%s failed (%s) while the file system of %s has no space "
                  "left; the run is not recorded",
                  j->key, why, j->dir);
-    bk_stop_set(SIGTERM);
-    j->done = -1;
+    fail(d, BK_ENOSPC, &e);
     return;
   }
-  if (pt->fault != BK_FAULT_NONE && j->attempts <= s->model.retries &&
-      !bk_stop_requested()) {
-    if (submit(j) == 0)
+  if (pt->fault != BK_FAULT_NONE && j->attempts <= s->model.retries) {
+    /* Retries left. While the run stops, the fault is not final: left out,
+     * it runs again with all its retries on resume, as it would have
+     * without the stop. */
+    if (bk_exec_stopping(d->o.exec))
       return;
-    if (d->fatal) {
-      bk_stop_set(SIGTERM);
-      j->done = -1;
+    j->done = 0;
+    int rc = submit(j);
+    if (rc == 0)
       return;
+    j->done = -1;
+    if (!d->fatal) {
+      bk_error_t e;
+      bk_error_clear(&e);
+      bk_error_set(&e, rc, NULL, 0, 0, "cannot start %s again: %s", j->key,
+                   bk_strerror(rc));
+      if (rc != BK_ESTOPPED && rc != BK_ECANCELED)
+        fail(d, rc, &e);
     }
+    return;
   }
   d->st.completed++;
   if (pt->fault != BK_FAULT_NONE)
     d->st.errors++;
   int keep = keep_folder(s, pt);
-  char note[700];
-  if (pt->fault != BK_FAULT_NONE)
-    snprintf(note, sizeof note, "%s; folder %s", why, j->dir);
-  else if (keep)
-    snprintf(note, sizeof note, "folder %s", j->dir);
-  else
-    note[0] = '\0';
   bk_record_t rec = {
       .key = j->key,
       .nx = s->nvars,
@@ -596,13 +654,14 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
       .attempts = j->attempts,
       .seconds = res->seconds,
       .host = d->o.host,
-      .note = note,
+      .reason = pt->fault != BK_FAULT_NONE ? why : "",
+      .folder = keep ? j->dir : "",
   };
-  int rc = bk_records_append(d->o.records, &rec, &d->fatal_err);
+  bk_error_t e;
+  bk_error_clear(&e);
+  int rc = d->o.sink->put(d->o.sink, &rec, &e);
   if (rc) {
-    d->fatal = rc;
-    bk_stop_set(SIGTERM);
-    j->done = -1;
+    fail(d, rc, &e);
     return;
   }
   if (!keep)
@@ -617,25 +676,32 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
 #define FIRST_WINDOW 64
 #define MAX_WINDOW   ((size_t)1 << 20)
 
-/* Submits the batch's next jobs while the window has room. Returns 0 or
- * the code of a submission that failed (d->fatal set for a failure to
- * make a folder). */
-static int feed(bk_dispatch_t *d) {
+/* Submits the batch's next jobs while the window has room. A job that
+ * cannot be started is a failure of brink's own (the batch is cancelled);
+ * a stop leaves the rest unsubmitted. */
+static void feed(bk_dispatch_t *d) {
   while (d->next < d->nbatch && d->inflight < d->window) {
     job_t *j = &d->batch[d->next];
     if (!j->need) {
       d->next++;
       continue;
     }
-    if (bk_stop_requested() || d->fatal)
-      return 0;
+    if (d->fatal || bk_exec_stopping(d->o.exec))
+      return;
     int rc = submit(j);
-    if (rc)
-      return rc;
+    if (rc) {
+      if (!d->fatal && rc != BK_ESTOPPED && rc != BK_ECANCELED) {
+        bk_error_t e;
+        bk_error_clear(&e);
+        bk_error_set(&e, rc, NULL, 0, 0, "cannot start %s: %s", j->key,
+                     bk_strerror(rc));
+        fail(d, rc, &e);
+      }
+      return;
+    }
     d->next++;
     d->inflight++;
   }
-  return 0;
 }
 
 static void on_done(void *data, const bk_job_result_t *res) {
@@ -649,18 +715,7 @@ static void on_done(void *data, const bk_job_result_t *res) {
   if (d->window < MAX_WINDOW &&
       (size_t)bk_exec_running(d->o.exec) >= d->inflight)
     d->window *= 2;
-  int rc = feed(d);
-  if (rc && !d->fatal) {
-    d->fatal = rc;
-    bk_error_set(&d->fatal_err, rc, NULL, 0, 0, "cannot start %s: %s",
-                 d->batch[d->next].key, bk_strerror(rc));
-  }
-  if (rc)
-    bk_stop_set(SIGTERM);
-}
-
-static int same_doubles(const double *a, const double *b, size_t n) {
-  return n == 0 || memcmp(a, b, n * sizeof *a) == 0;
+  feed(d);
 }
 
 static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
@@ -670,34 +725,31 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
   job_t *jobs = bk_calloc(n, sizeof *jobs);
   if (!jobs)
     return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
-  d->prefix = prefix;
-  int rc = 0, pending = 0;
+  int rc = 0;
+  d->fatal = 0;
+  bk_error_clear(&d->fatal_err);
+  bk_records_t *logs[1] = {d->o.records};
   for (size_t i = 0; i < n; i++) {
     job_t *j = &jobs[i];
     j->d = d;
     j->pt = &pts[i];
-    snprintf(j->key, sizeof j->key, "%s/%llu", prefix,
-             (unsigned long long)pts[i].index);
-    bk_record_t rec;
-    if (bk_records_find(d->o.records, j->key, &rec)) {
-      if (rec.nx != s->nvars || !same_doubles(rec.x, pts[i].x, s->nvars)) {
-        rc = bk_error_set(err, BK_EMISMATCH, NULL, 0, 0,
-                          "the recorded inputs of %s differ from the ones "
-                          "this study gives; the records were made "
-                          "differently (another brink version?). Use a new "
-                          "run.folder",
-                          j->key);
-        goto out;
-      }
-      for (size_t k = 0; k < s->model.noutputs && k < rec.ny; k++)
-        pts[i].y[k] = rec.y[k];
-      pts[i].g = rec.g;
-      pts[i].fault = rec.fault;
+    if (bk_replay_key(j->key, sizeof j->key, prefix, pts[i].index)) {
+      rc = bk_error_set(err, BK_ERANGE, NULL, 0, 0,
+                        "the key %s/%llu is too long", prefix,
+                        (unsigned long long)pts[i].index);
+      goto out;
+    }
+    rc = bk_replay_point(logs, 1, j->key, s->nvars, s->model.noutputs, &pts[i],
+                         NULL, err);
+    if (rc < 0)
+      goto out;
+    if (rc == 1) {
+      rc = 0;
       j->done = 1;
       d->st.replayed++;
       continue;
     }
-    char name[120];
+    char name[BK_REPLAY_KEY_MAX];
     bk_dispatch_folder_name(j->key, name, sizeof name);
     bk_buf_t p;
     bk_buf_init(&p);
@@ -707,10 +759,7 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
       rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
       goto out;
     }
-    if (bk_stop_requested() || d->fatal)
-      continue;
     j->need = 1;
-    pending++;
   }
   d->batch = jobs;
   d->nbatch = n;
@@ -718,31 +767,20 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
   d->inflight = 0;
   if (d->window < FIRST_WINDOW)
     d->window = FIRST_WINDOW;
-  rc = feed(d);
-  if (rc && d->fatal) {
-    bk_stop_set(SIGTERM);
-  } else if (rc && d->inflight == 0) {
-    rc = bk_error_set(err, rc, NULL, 0, 0, "cannot start %s: %s",
-                      jobs[d->next].key, bk_strerror(rc));
-    goto out;
-  } else if (rc) {
-    d->fatal = rc;
-    bk_error_set(&d->fatal_err, rc, NULL, 0, 0, "cannot start %s: %s",
-                 jobs[d->next].key, bk_strerror(rc));
-    bk_stop_set(SIGTERM);
-  }
-  rc = 0;
+  feed(d);
   int wrc = bk_exec_wait(d->o.exec);
   /* A batch boundary is a natural point to put the records on disk. */
-  bk_records_sync(d->o.records);
+  if (d->o.records)
+    bk_records_sync(d->o.records);
   if (d->fatal) {
     *err = d->fatal_err;
     if (!err->code)
-      err->code = d->fatal;
+      bk_error_set(err, d->fatal, NULL, 0, 0, "%s", bk_strerror(d->fatal));
     rc = d->fatal;
     goto out;
   }
-  if (wrc == BK_ESTOPPED || bk_stop_requested()) {
+  /* A stop request, or a cancel from outside (a stop sent by message). */
+  if (wrc == BK_ESTOPPED || wrc == BK_ECANCELED || bk_stop_requested()) {
     rc = BK_ESTOPPED;
     goto out;
   }
@@ -757,7 +795,6 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
                         "%s did not finish (internal error)", jobs[i].key);
       goto out;
     }
-  (void)pending;
 out:
   d->batch = NULL;
   d->nbatch = d->next = d->inflight = 0;
