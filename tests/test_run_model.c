@@ -331,3 +331,76 @@ Test(run_model, calculix_example_matches_the_cantilever_formula) {
            exact, dir);
   cr_assert_eq(system(cmd), 0, "exact Pf %.5f", exact);
 }
+
+/* Faults that end while a stop is pending are not recorded before their
+ * retries are used: they run again, with all their retries, on resume, so
+ * a run stopped with SIGINT several times ends with exactly the records
+ * (attempts included) of an uninterrupted one. Every sample fails at once
+ * here, so many faults end in the moments a stop takes to reach the
+ * executor. */
+Test(run_model, faults_ending_during_a_stop_keep_their_retries) {
+  const char *extra = "  retries: 3\n"
+                      "  max_error_fraction: 1\n";
+  write_study("ref.yaml", "ref", "random", 300, "exit 3", extra);
+  cr_assert_eq(brink("run ref.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *want = canonical_records("ref");
+  cr_assert_eq(count_lines(want), 300);
+  cr_assert_null(strstr(want, "\texit-code\t1\t"), "%s", want);
+  write_study("s.yaml", "st", "random", 300, "exit 3", extra);
+  unsigned seed = (unsigned)time(NULL);
+  cr_log_info("stop moments from seed %u", seed);
+  int stopped = 0;
+  for (int round = 0; round < 4; round++) {
+    pid_t pid = brink_background("run s.yaml --quiet");
+    seed = seed * 1103515245u + 12345u;
+    usleep(100000 + (seed >> 8) % 200000);
+    kill(pid, SIGINT);
+    int st;
+    waitpid(pid, &st, 0);
+    cr_assert(WIFEXITED(st));
+    cr_assert(WEXITSTATUS(st) == 3 || WEXITSTATUS(st) == 0, "exit %d: %s",
+              WEXITSTATUS(st), read_file("bg-err.txt"));
+    stopped += WEXITSTATUS(st) == 3;
+  }
+  cr_assert_gt(stopped, 0, "every run finished before its stop");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  cr_assert_str_eq(canonical_records("st"), want);
+}
+
+/* A model that leaves hard links, named like the files brink writes into
+ * its run folder (the deck, stdout, stderr), to files outside the folder:
+ * the next run in the reused folder must not write through them. */
+Test(run_model, hard_links_left_in_a_reused_folder_are_not_written_through) {
+  const char *names[] = {"in.txt", "stdout", "stderr"};
+  for (int i = 0; i < 3; i++) {
+    char v[32];
+    snprintf(v, sizeof v, "victim-%d.txt", i);
+    write_file(v, "precious %d\n", i);
+  }
+  write_file("deck.txt", "x1 = {{ a : %%.17g }}\n");
+  write_file("s.yaml",
+             "name: links\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  files: [{template: deck.txt, to: in.txt}]\n"
+             "  command: [sh, -c, 'echo \"result: g = 1\" > out.txt; "
+             "rm -f in.txt stdout stderr; ln ../../../victim-0.txt in.txt; "
+             "ln ../../../victim-1.txt stdout; "
+             "ln ../../../victim-2.txt stderr']\n"
+             "  keep: none\n"
+             "  outputs:\n"
+             "    g: {file: out.txt, pattern: 'result: g = (\\S+)'}\n"
+             "limit_state: g\n"
+             "analysis: {method: random, samples: 20}\n"
+             "run: {folder: run, slots: 1}\n");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(count_lines(canonical_records("run")), 20);
+  for (int i = 0; i < 3; i++) {
+    char v[32], want[32];
+    snprintf(v, sizeof v, "victim-%d.txt", i);
+    snprintf(want, sizeof want, "precious %d\n", i);
+    cr_assert_str_eq(read_file(v), want, "%s (%s) was written through", v,
+                     names[i]);
+  }
+}
