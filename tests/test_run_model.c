@@ -404,3 +404,39 @@ Test(run_model, hard_links_left_in_a_reused_folder_are_not_written_through) {
                      names[i]);
   }
 }
+
+/* The reason of a fault and the run folder kept are fields of the record;
+ * status, export and the HTML report show them (and the run's inputs). */
+Test(run_model, readers_show_the_reason_folder_and_inputs_of_errors) {
+  write_study("s.yaml", "e", "random", 4, "exit 7",
+              "  retries: 0\n  max_error_fraction: 1\n");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *log = read_file("e/records.log");
+  cr_assert(strstr(log, "\treason\tfolder\tcrc\n"), "%s", log);
+  char folder[600];
+  snprintf(folder, sizeof folder, "\texit status 7\t%s/e/work/mc-3\t", dir);
+  cr_assert(strstr(log, folder), "%s", log);
+  cr_assert_eq(brink("status e"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  char want[700];
+  snprintf(want, sizeof want,
+           "  last error     mc/3: exit status 7; run folder %s/e/work/mc-3\n",
+           dir);
+  cr_assert(strstr(out, want), "%s", out);
+  cr_assert_eq(brink("export e --csv"), 0, "%s", read_file("err.txt"));
+  out = read_file("out.txt");
+  cr_assert(strstr(out, ",failed,status,attempts,seconds,host,reason,folder\n"),
+            "%s", out);
+  snprintf(want, sizeof want, ",exit-code,1,");
+  cr_assert(strstr(out, want), "%s", out);
+  snprintf(want, sizeof want, ",exit status 7,%s/e/work/mc-3\n", dir);
+  cr_assert(strstr(out, want), "%s", out);
+  cr_assert_eq(brink("report e --html e.html"), 0, "%s", read_file("err.txt"));
+  char *html = read_file("e.html");
+  char *table = strstr(html, "data-table=\"model-errors\"");
+  cr_assert(table, "%s", html);
+  cr_assert(strstr(table, "<td>exit status 7</td>"), "%s", table);
+  cr_assert(strstr(table, "<td class=\"n\">a = "), "%s", table);
+  snprintf(want, sizeof want, "<code>%s/e/work/mc-3</code>", dir);
+  cr_assert(strstr(table, want), "%s", table);
+}

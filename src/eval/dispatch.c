@@ -7,8 +7,8 @@
  * make brink write outside the run folder.
  *
  * A finished folder that is not kept and holds no subfolder is emptied of
- * everything but the files brink itself writes (decks, copies, stdout,
- * stderr) and renamed to a spare name instead of removed; the next run's
+ * everything but the files brink itself writes before the run (decks,
+ * copies) and renamed to a spare name instead of removed; the next run's
  * folder is that spare renamed again, with those files rewritten from the
  * start. To the model the folder is as fresh as a new one, and the file
  * system is spared creating and deleting most inodes of every run (ext4
@@ -73,6 +73,8 @@ struct bk_dispatch {
   double *vals; /* x then y, for the limit state */
   char **spare; /* folders to reuse (see the top of this file) */
   size_t nspare;
+  size_t capspare;
+  long pid; /* for spare names */
   unsigned long spare_seq; /* for unique spare names */
   /* The batch being run. Folders are made just before their job is
    * submitted, at most `window` ahead, so that finished ones can be
@@ -205,6 +207,7 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
   if (!d)
     return BK_ENOMEM;
   d->o = *opts;
+  d->pid = (long)getpid();
   if (!d->o.sink) {
     bk_sink_records(&d->records_sink, opts->records);
     d->o.sink = &d->records_sink;
@@ -240,18 +243,22 @@ const bk_dispatch_stats_t *bk_dispatch_stats(const bk_dispatch_t *d) {
  * never through a symbolic link; new in a new folder; in a reused one the
  * old file is written over (and cut to its new length after writing:
  * truncating first would free and allocate its blocks again, which costs
- * a discard on some disks) when it is a regular file with no other link,
- * and removed and made anew otherwise (a hard link the model made to a
- * file outside the folder must not be written through). Returns a
- * descriptor or -errno. */
-static int open_own(const char *path, int reused) {
+ * a discard on some disks; and not at all when the old file was no
+ * longer) when it is a regular file with no other link, and removed and
+ * made anew otherwise (a hard link the model made to a file outside the
+ * folder must not be written through). Returns a descriptor, with the
+ * old file's size in *old_size (0 for a new file), or -errno. */
+static int open_own(const char *path, int reused, off_t *old_size) {
   int flags = O_WRONLY | O_CREAT | O_NOFOLLOW | O_CLOEXEC;
+  *old_size = 0;
   int fd = open(path, flags | (reused ? 0 : O_EXCL), 0666);
   if (fd < 0 || !reused)
     return fd < 0 ? -errno : fd;
   struct stat st;
-  if (fstat(fd, &st) == 0 && S_ISREG(st.st_mode) && st.st_nlink == 1)
+  if (fstat(fd, &st) == 0 && S_ISREG(st.st_mode) && st.st_nlink == 1) {
+    *old_size = st.st_size;
     return fd;
+  }
   close(fd);
   if (unlink(path) != 0 && errno != ENOENT)
     return -errno;
@@ -266,7 +273,8 @@ static int write_new_file(const char *dir, const char *name, const char *data,
   int n = snprintf(path, sizeof path, "%s/%s", dir, name);
   if (n < 0 || (size_t)n >= sizeof path)
     return -ENAMETOOLONG;
-  int fd = open_own(path, reused);
+  off_t old;
+  int fd = open_own(path, reused, &old);
   if (fd < 0)
     return fd;
   size_t off = 0;
@@ -281,7 +289,7 @@ static int write_new_file(const char *dir, const char *name, const char *data,
     }
     off += (size_t)w;
   }
-  if (reused && ftruncate(fd, (off_t)len) != 0) {
+  if (old > (off_t)len && ftruncate(fd, (off_t)len) != 0) {
     int e = -errno;
     close(fd);
     return e;
@@ -297,7 +305,8 @@ static int copy_file(const char *src, const char *dir, const char *name,
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", dir, name);
-  int out = p.data ? open_own(p.data, reused) : BK_ENOMEM;
+  off_t old = 0;
+  int out = p.data ? open_own(p.data, reused, &old) : BK_ENOMEM;
   bk_buf_close(&p);
   if (out < 0) {
     close(in);
@@ -328,7 +337,7 @@ static int copy_file(const char *src, const char *dir, const char *name,
     if (rc)
       break;
   }
-  if (rc == 0 && reused && ftruncate(out, total) != 0)
+  if (rc == 0 && old > total && ftruncate(out, total) != 0)
     rc = -errno;
   close(in);
   if (close(out) != 0 && rc == 0)
@@ -341,10 +350,14 @@ static const char *base_name(const char *p) {
   return s ? s + 1 : p;
 }
 
-/* Is `name` one of the files brink writes into a run folder? */
+/* Is `name` one of the files brink writes into a run folder before the
+ * run, and that a reused folder keeps to write over? Not `stdout` and
+ * `stderr`: they are removed with the model's files and made anew by the
+ * executor. Emptying them in place instead (truncating to zero) makes
+ * ext4 write their next contents out to disk when the model closes them
+ * (its guard for files replaced by truncation), which cost more than a
+ * new file. */
 static int own_file(const bk_study_t *s, const char *name) {
-  if (strcmp(name, "stdout") == 0 || strcmp(name, "stderr") == 0)
-    return 1;
   for (size_t i = 0; i < s->model.ndecks; i++)
     if (strcmp(name, s->model.decks[i].to) == 0)
       return 1;
@@ -393,16 +406,23 @@ static int tidy_for_reuse(const bk_study_t *s, const char *dir) {
 }
 
 /* Keeps a finished folder as a spare when it can be reused, and removes it
- * otherwise. */
-#define MAX_SPARE 64
+ * otherwise. At most a window's worth are kept: the folders of a batch's
+ * last runs, which the next batch's first runs take again. */
 static void retire_folder(bk_dispatch_t *d, const char *dir) {
-  if (d->nspare < MAX_SPARE && tidy_for_reuse(d->o.study, dir)) {
-    if (!d->spare && !(d->spare = bk_calloc(MAX_SPARE, sizeof *d->spare)))
-      goto remove;
+  size_t most = d->window > 64 ? d->window : 64;
+  if (d->nspare < most && tidy_for_reuse(d->o.study, dir)) {
+    if (d->nspare == d->capspare) {
+      size_t cap = d->capspare ? 2 * d->capspare : 64;
+      char **sp = bk_realloc(d->spare, cap * sizeof *sp);
+      if (!sp)
+        goto remove;
+      d->spare = sp;
+      d->capspare = cap;
+    }
     bk_buf_t p;
     bk_buf_init(&p);
     bk_buf_printf(&p, "%s/.spare-%s-%ld-%lu", d->o.work_dir,
-                  d->o.host ? d->o.host : "", (long)getpid(), d->spare_seq++);
+                  d->o.host ? d->o.host : "", d->pid, d->spare_seq++);
     if (p.data && rename(dir, p.data) == 0) {
       d->spare[d->nspare++] = p.data;
       return;
@@ -673,7 +693,10 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
   }
 }
 
-#define FIRST_WINDOW 64
+/* The first window: a few folders beyond the slots. A larger one would
+ * only make folders that wait, new ones (the spares come back at the rate
+ * runs end), and remove them again at the end. */
+#define FIRST_WINDOW(slots) (2 * (size_t)(slots) + 2)
 #define MAX_WINDOW   ((size_t)1 << 20)
 
 /* Submits the batch's next jobs while the window has room. A job that
@@ -711,8 +734,10 @@ static void on_done(void *data, const bk_job_result_t *res) {
   if (j->done == 0)
     return; /* submitted again */
   d->inflight--;
-  /* Nothing queued behind the running processes: look further ahead. */
-  if (d->window < MAX_WINDOW &&
+  /* Nothing queued behind the running processes while more jobs wait:
+   * the folders are not made fast enough, look further ahead. (At the
+   * tail of a batch nothing is queued either, but nothing waits.) */
+  if (d->window < MAX_WINDOW && d->next < d->nbatch &&
       (size_t)bk_exec_running(d->o.exec) >= d->inflight)
     d->window *= 2;
   feed(d);
@@ -765,8 +790,9 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
   d->nbatch = n;
   d->next = 0;
   d->inflight = 0;
-  if (d->window < FIRST_WINDOW)
-    d->window = FIRST_WINDOW;
+  size_t first = FIRST_WINDOW(s->run.slots > 0 ? s->run.slots : 1);
+  if (d->window < first)
+    d->window = first;
   feed(d);
   int wrc = bk_exec_wait(d->o.exec);
   /* A batch boundary is a natural point to put the records on disk. */
