@@ -307,8 +307,7 @@ int bk__cmd_status(int argc, char **argv) {
     printf("\n");
     if (t->last_key[0]) {
       printf("  last error     %s: %s", t->last_key,
-             t->last_reason[0] ? t->last_reason
-                               : bk_fault_name(t->last_fault));
+             t->last_reason[0] ? t->last_reason : bk_fault_name(t->last_fault));
       if (t->last_folder[0])
         printf("; run folder %s", t->last_folder);
       printf("\n");

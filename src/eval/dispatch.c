@@ -14,7 +14,8 @@
  * system is spared creating and deleting most inodes of every run (ext4
  * without a journal scans past every inode deleted in the last half minute
  * on each creation, which made that the largest cost of a trivial model
- * run). Spares are removed when the dispatcher is freed. A file of
+ * run). The tidying and renaming run on a helper thread of the executor
+ * (bk_exec_work). Spares are removed when the dispatcher is freed. A file of
  * brink's own in a reused folder is written over only when it is a regular
  * file with no other link; a hard link a model made to a file elsewhere is
  * removed and a new file made, so nothing outside the folder is written.
@@ -74,7 +75,7 @@ struct bk_dispatch {
   char **spare; /* folders to reuse (see the top of this file) */
   size_t nspare;
   size_t capspare;
-  long pid; /* for spare names */
+  long pid;                /* for spare names */
   unsigned long spare_seq; /* for unique spare names */
   /* The batch being run. Folders are made just before their job is
    * submitted, at most `window` ahead, so that finished ones can be
@@ -405,32 +406,87 @@ static int tidy_for_reuse(const bk_study_t *s, const char *dir) {
   return ok;
 }
 
-/* Keeps a finished folder as a spare when it can be reused, and removes it
- * otherwise. At most a window's worth are kept: the folders of a batch's
- * last runs, which the next batch's first runs take again. */
-static void retire_folder(bk_dispatch_t *d, const char *dir) {
+/* Adds a folder to the spares, or removes it when a window's worth are
+ * kept already (the folders of a batch's last runs, which the next batch's
+ * first runs take again). Takes the path. */
+static void add_spare(bk_dispatch_t *d, char *path) {
   size_t most = d->window > 64 ? d->window : 64;
-  if (d->nspare < most && tidy_for_reuse(d->o.study, dir)) {
-    if (d->nspare == d->capspare) {
-      size_t cap = d->capspare ? 2 * d->capspare : 64;
-      char **sp = bk_realloc(d->spare, cap * sizeof *sp);
-      if (!sp)
-        goto remove;
+  if (d->nspare < most && d->nspare == d->capspare) {
+    size_t cap = d->capspare ? 2 * d->capspare : 64;
+    char **sp = bk_realloc(d->spare, cap * sizeof *sp);
+    if (sp) {
       d->spare = sp;
       d->capspare = cap;
     }
-    bk_buf_t p;
-    bk_buf_init(&p);
-    bk_buf_printf(&p, "%s/.spare-%s-%ld-%lu", d->o.work_dir,
-                  d->o.host ? d->o.host : "", d->pid, d->spare_seq++);
-    if (p.data && rename(dir, p.data) == 0) {
-      d->spare[d->nspare++] = p.data;
-      return;
-    }
-    bk_buf_close(&p);
   }
-remove:
-  bk_remove_tree(dir);
+  if (d->nspare < most && d->nspare < d->capspare) {
+    d->spare[d->nspare++] = path;
+    return;
+  }
+  bk_remove_tree(path);
+  bk_free(path);
+}
+
+/* A finished folder on its way to the spares: tidied and renamed on a
+ * helper thread of the executor, so that the deletions (the slowest part
+ * of a trivial run on some file systems) do not hold up the starting of
+ * the next models. */
+typedef struct {
+  const bk_study_t *study;
+  bk_dispatch_t *d;
+  char *dir;
+  char *spare;
+  int ok;
+} retiring_t;
+
+static void retire_work(void *data) {
+  retiring_t *r = data;
+  r->ok = tidy_for_reuse(r->study, r->dir) && rename(r->dir, r->spare) == 0;
+  if (!r->ok)
+    bk_remove_tree(r->dir);
+}
+
+static void retire_done(void *data) {
+  retiring_t *r = data;
+  if (r->ok) {
+    add_spare(r->d, r->spare);
+    r->spare = NULL;
+  }
+  bk_free(r->spare);
+  bk_free(r->dir);
+  bk_free(r);
+}
+
+/* Keeps a finished folder as a spare when it can be reused, and removes it
+ * otherwise. */
+static void retire_folder(bk_dispatch_t *d, const char *dir) {
+  retiring_t *r = bk_calloc(1, sizeof *r);
+  bk_buf_t p;
+  bk_buf_init(&p);
+  bk_buf_printf(&p, "%s/.spare-%s-%ld-%lu", d->o.work_dir,
+                d->o.host ? d->o.host : "", d->pid, d->spare_seq++);
+  if (r) {
+    r->study = d->o.study;
+    r->d = d;
+    r->dir = bk_strdup(dir);
+    r->spare = p.data;
+    p.data = NULL;
+  }
+  if (!r || !r->dir || !r->spare) {
+    bk_remove_tree(dir);
+  } else if (bk_exec_work(d->o.exec, retire_work, retire_done, r) == 0) {
+    return;
+  } else {
+    retire_work(r);
+    retire_done(r);
+    return;
+  }
+  if (r) {
+    bk_free(r->dir);
+    bk_free(r->spare);
+    bk_free(r);
+  }
+  bk_buf_close(&p);
 }
 
 /* Makes the job's folder from a spare. Returns 1 when it did. */
@@ -697,7 +753,7 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
  * only make folders that wait, new ones (the spares come back at the rate
  * runs end), and remove them again at the end. */
 #define FIRST_WINDOW(slots) (2 * (size_t)(slots) + 2)
-#define MAX_WINDOW   ((size_t)1 << 20)
+#define MAX_WINDOW          ((size_t)1 << 20)
 
 /* Submits the batch's next jobs while the window has room. A job that
  * cannot be started is a failure of brink's own (the batch is cancelled);

@@ -77,6 +77,15 @@ int bk_exec_stopping(const bk_exec_t *ex);
 typedef void (*bk_exec_poll_cb)(void *data, bk_exec_t *ex);
 void bk_exec_set_poll(bk_exec_t *ex, bk_exec_poll_cb cb, void *data);
 
+/* Runs work(data) on a helper thread, then done(data) on the thread of
+ * bk_exec_wait, which does not return before done has run: for file work
+ * that need not hold up the reaping and starting of processes. Only from
+ * inside bk_exec_wait (a callback). work must not call the executor.
+ * Returns 0, or a negative code (neither runs: do the work in place). */
+typedef void (*bk_exec_work_cb)(void *data);
+int bk_exec_work(bk_exec_t *ex, bk_exec_work_cb work, bk_exec_work_cb done,
+                 void *data);
+
 /* For tests only: replaces kill(2) for the signals the executor sends to
  * process groups (NULL restores it). */
 typedef int (*bk__exec_kill_fn)(pid_t pid, int sig);

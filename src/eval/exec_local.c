@@ -716,6 +716,43 @@ int bk_exec_stopping(const bk_exec_t *ex) {
          atomic_load(&((bk_exec_t *)ex)->cancelled);
 }
 
+typedef struct {
+  uv_work_t req;
+  bk_exec_work_cb work;
+  bk_exec_work_cb done;
+  void *data;
+} work_t;
+
+static void work_run(uv_work_t *req) {
+  work_t *w = req->data;
+  w->work(w->data);
+}
+
+static void work_after(uv_work_t *req, int status) {
+  (void)status;
+  work_t *w = req->data;
+  w->done(w->data);
+  bk_free(w);
+}
+
+int bk_exec_work(bk_exec_t *ex, bk_exec_work_cb work, bk_exec_work_cb done,
+                 void *data) {
+  if (!ex || !ex->in_wait || !work || !done)
+    return BK_EINVAL;
+  work_t *w = bk_malloc(sizeof *w);
+  if (!w)
+    return BK_ENOMEM;
+  w->req.data = w;
+  w->work = work;
+  w->done = done;
+  w->data = data;
+  if (uv_queue_work(&ex->loop, &w->req, work_run, work_after) != 0) {
+    bk_free(w);
+    return BK_EIO;
+  }
+  return 0;
+}
+
 void bk_exec_set_poll(bk_exec_t *ex, bk_exec_poll_cb cb, void *data) {
   ex->poll_cb = cb;
   ex->poll_data = data;
