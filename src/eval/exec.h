@@ -65,8 +65,9 @@ int bk_exec_running(const bk_exec_t *ex);
  * BK_FAULT_INTERRUPTED), but for this executor alone and without touching
  * the user's stop requests (stop.h): for failures inside brink and for
  * stops that come by message. That bk_exec_wait returns BK_ECANCELED (or
- * BK_ESTOPPED when a stop was requested too) and clears the cancel. May
- * be called from a callback. */
+ * BK_ESTOPPED when a stop was requested too) and clears the cancel. Call
+ * it from the thread that calls bk_exec_wait: from a callback, from the
+ * poll, or before the wait. */
 void bk_exec_cancel(bk_exec_t *ex);
 /* 1 while a stop request or a cancel is being carried out: a job that
  * ends now must not be retried (bk_exec_submit refuses it). */
