@@ -341,16 +341,16 @@ Test(run_model, calculix_example_matches_the_cantilever_formula) {
 Test(run_model, faults_ending_during_a_stop_keep_their_retries) {
   const char *extra = "  retries: 3\n"
                       "  max_error_fraction: 1\n";
-  write_study("ref.yaml", "ref", "random", 300, "exit 3", extra);
+  write_study("ref.yaml", "ref", "random", 150, "exit 3", extra);
   cr_assert_eq(brink("run ref.yaml --quiet"), 0, "%s", read_file("err.txt"));
   char *want = canonical_records("ref");
-  cr_assert_eq(count_lines(want), 300);
+  cr_assert_eq(count_lines(want), 150);
   cr_assert_null(strstr(want, "\texit-code\t1\t"), "%s", want);
-  write_study("s.yaml", "st", "random", 300, "exit 3", extra);
+  write_study("s.yaml", "st", "random", 150, "exit 3", extra);
   unsigned seed = (unsigned)time(NULL);
   cr_log_info("stop moments from seed %u", seed);
   int stopped = 0;
-  for (int round = 0; round < 4; round++) {
+  for (int round = 0; round < 3; round++) {
     pid_t pid = brink_background("run s.yaml --quiet");
     /* brink handles signals once it holds the records lock. */
     int st, done = 0;
