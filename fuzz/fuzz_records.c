@@ -106,7 +106,8 @@ int BK_FUZZ_ENTRY(const uint8_t *data, size_t size) {
                      .attempts = 1,
                      .seconds = 0.5,
                      .host = "h",
-                     .note = "n"};
+                     .reason = "n",
+                     .folder = "f"};
   int rc = bk_records_append(r, &add, &err);
   assert(rc == 0);
   bk_records_close(r);

@@ -47,7 +47,8 @@ int main(int argc, char **argv) {
                        .attempts = 1 + i % 2,
                        .seconds = 0.25 * i,
                        .host = "node#1\tx",
-                       .note = i == 2 ? "timeout; folder /r/mc-2" : ""};
+                       .reason = i == 2 ? "timeout after 2 s" : "",
+                       .folder = i == 2 ? "/r/mc-2" : ""};
     if (bk_records_append(r, &rec, &err)) {
       bk_error_print(&err, stderr);
       return 1;

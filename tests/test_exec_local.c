@@ -40,7 +40,7 @@ static int remove_entry(const char *path, const struct stat *st, int flag,
 }
 
 static void setup(void) {
-  bk_stop_set(0);
+  bk__stop_set(0);
   const char *base = getenv("TMPDIR");
   snprintf(tmp, sizeof tmp, "%s/bk-exec-XXXXXX", base ? base : "/tmp");
   cr_assert_not_null(mkdtemp(tmp), "mkdtemp: %s", strerror(errno));
@@ -592,7 +592,7 @@ static void stop_cb(void *data, const bk_job_result_t *res) {
   stopper_t *s = data;
   record(&s->probe, res);
   if (s->stop_here)
-    bk_stop_set(SIGINT);
+    bk__stop_set(SIGINT);
 }
 
 static void check_stopped_run(const char *mode, double grace) {
@@ -638,7 +638,7 @@ static void check_stopped_run(const char *mode, double grace) {
   probe_t late = {0};
   bk_job_t job = job_in(dirs[0], quick);
   cr_assert_eq(bk_exec_submit(ex, &job, record, &late), BK_ESTOPPED);
-  bk_stop_set(0);
+  bk__stop_set(0);
   bk_exec_free(ex);
   cr_assert_eq(late.calls, 0);
 }
@@ -661,14 +661,14 @@ Test(exec_local, stop_before_wait_starts_nothing) {
     bk_job_t job = job_in(dir, argv);
     cr_assert_eq(bk_exec_submit(ex, &job, record, &p[i]), 0);
   }
-  bk_stop_set(SIGTERM);
+  bk__stop_set(SIGTERM);
   cr_assert_eq(bk_exec_wait(ex), BK_ESTOPPED);
   for (int i = 0; i < 3; i++) {
     cr_assert_eq(p[i].calls, 1);
     cr_assert_eq(p[i].res.fault, BK_FAULT_INTERRUPTED);
   }
   cr_assert_eq(read_pid(dir, "model.pid"), 0, "a model started");
-  bk_stop_set(0);
+  bk__stop_set(0);
   /* After the flag is cleared, the executor works again. */
   probe_t again = {0};
   bk_job_t job = job_in(dir, argv);
@@ -757,6 +757,136 @@ Test(exec_local, interrupt_signal_stops_hanging_models) {
   }
   for (int i = 2; i < NJOBS; i++)
     cr_assert_eq(read_pid(dirs[i], "model.pid"), 0, "job %d started", i);
-  bk_stop_set(0);
+  bk__stop_set(0);
+  bk_exec_free(ex);
+}
+
+/* The executor signals a process group only while its leader is not
+ * reaped: a reaped leader's id, and so its group id, may be reused by an
+ * unrelated process. The kill hook checks, at every group signal, that
+ * the leader still exists for waitid (running, or ended and unreaped). */
+static int group_signals, group_signals_after_reap;
+
+static int checking_kill(pid_t pid, int sig) {
+  if (pid < 0) {
+    group_signals++;
+    siginfo_t si;
+    si.si_pid = 0;
+    if (waitid(P_PID, (id_t)-pid, &si, WEXITED | WNOHANG | WNOWAIT) != 0 &&
+        errno == ECHILD)
+      group_signals_after_reap++;
+  }
+  return kill(pid, sig);
+}
+
+Test(exec_local, no_group_is_signalled_after_its_leader_is_reaped) {
+  bk__exec_set_kill(checking_kill);
+  group_signals = group_signals_after_reap = 0;
+  bk_exec_t *ex;
+  cr_assert_eq(bk_exec_local_new(&ex, 2), 0);
+  /* Leaders that exit, crash, time out, and leave an orphan behind. */
+  char *modes[] = {"mode=ok", "mode=exit 3", "mode=crash", "mode=orphan",
+                   "mode=hang"};
+  probe_t p[5] = {{0}};
+  for (int i = 0; i < 5; i++) {
+    char name[16];
+    snprintf(name, sizeof name, "g%d", i);
+    char *argv[] = {model(), modes[i], NULL};
+    bk_job_t job = job_in(subdir(name), argv);
+    job.timeout = i == 4 ? 0.3 : 0;
+    cr_assert_eq(bk_exec_submit(ex, &job, record, &p[i]), 0);
+  }
+  cr_assert_eq(bk_exec_wait(ex), 0);
+  bk_exec_free(ex);
+  bk__exec_set_kill(NULL);
+  for (int i = 0; i < 5; i++)
+    cr_assert_eq(p[i].calls, 1);
+  cr_assert_eq(p[4].res.fault, BK_FAULT_TIMEOUT);
+  /* One SIGKILL per ended leader at least, plus the timeout's SIGTERM. */
+  cr_assert_geq(group_signals, 6);
+  cr_assert_eq(group_signals_after_reap, 0,
+               "%d of %d group signals went to a group whose leader was "
+               "reaped",
+               group_signals_after_reap, group_signals);
+}
+
+/* A model may leave a hard link named like brink's output files to a file
+ * elsewhere; the next run in that folder must not truncate or write it. */
+Test(exec_local, hard_linked_stdout_is_replaced_not_written_through) {
+  const char *dir = subdir("run");
+  char victim[600], out[600];
+  snprintf(victim, sizeof victim, "%s/precious.txt", tmp);
+  snprintf(out, sizeof out, "%s/stdout", dir);
+  FILE *f = fopen(victim, "w");
+  fputs("precious\n", f);
+  fclose(f);
+  cr_assert_eq(link(victim, out), 0, "link: %s", strerror(errno));
+  char *argv[] = {model(), "x=1", NULL};
+  bk_job_t job = job_in(dir, argv);
+  bk_job_result_t r = run_one(&job);
+  cr_assert_eq(r.fault, BK_FAULT_NONE);
+  char *kept = slurp(tmp, "precious.txt", NULL);
+  cr_assert_str_eq(kept, "precious\n");
+  char *got = slurp(dir, "stdout", NULL);
+  cr_assert_not_null(strstr(got, "result: g = "));
+  struct stat st;
+  cr_assert_eq(stat(out, &st), 0);
+  cr_assert_eq(st.st_nlink, 1);
+  free(kept);
+  free(got);
+}
+
+/* A cancel stops the executor like a stop request, but leaves the user's
+ * stop flag alone, and is over when the wait returns. */
+Test(exec_local, cancel_stops_the_wait_without_a_stop_request) {
+  bk_exec_t *ex;
+  cr_assert_eq(bk_exec_local_new(&ex, 2), 0);
+  probe_t p[3] = {{0}};
+  for (int i = 0; i < 3; i++) {
+    char name[16];
+    snprintf(name, sizeof name, "c%d", i);
+    char *argv[] = {model(), "mode=hang", NULL};
+    bk_job_t job = job_in(subdir(name), argv);
+    cr_assert_eq(bk_exec_submit(ex, &job, record, &p[i]), 0);
+  }
+  bk_exec_cancel(ex);
+  cr_assert(bk_exec_stopping(ex));
+  cr_assert_eq(bk_exec_wait(ex), BK_ECANCELED);
+  for (int i = 0; i < 3; i++) {
+    cr_assert_eq(p[i].calls, 1);
+    cr_assert_eq(p[i].res.fault, BK_FAULT_INTERRUPTED);
+  }
+  cr_assert_eq(bk_stop_requested(), 0);
+  cr_assert_not(bk_exec_stopping(ex));
+  /* The next wait runs normally. */
+  char *argv[] = {model(), "x=1", NULL};
+  bk_job_t job = job_in(subdir("after"), argv);
+  probe_t q = {0};
+  cr_assert_eq(bk_exec_submit(ex, &job, record, &q), 0);
+  cr_assert_eq(bk_exec_wait(ex), 0);
+  cr_assert_eq(q.res.fault, BK_FAULT_NONE);
+  bk_exec_free(ex);
+}
+
+/* The poll callback runs during a wait and may cancel it (an MPI worker
+ * receiving STOP). */
+static void cancel_at_second_poll(void *data, bk_exec_t *ex) {
+  int *polls = data;
+  if (++*polls == 2)
+    bk_exec_cancel(ex);
+}
+
+Test(exec_local, poll_callback_can_cancel_a_running_wait) {
+  bk_exec_t *ex;
+  cr_assert_eq(bk_exec_local_new(&ex, 1), 0);
+  int polls = 0;
+  bk_exec_set_poll(ex, cancel_at_second_poll, &polls);
+  char *argv[] = {model(), "mode=hang", NULL};
+  bk_job_t job = job_in(subdir("p"), argv);
+  probe_t p = {0};
+  cr_assert_eq(bk_exec_submit(ex, &job, record, &p), 0);
+  cr_assert_eq(bk_exec_wait(ex), BK_ECANCELED);
+  cr_assert_geq(polls, 2);
+  cr_assert_eq(p.res.fault, BK_FAULT_INTERRUPTED);
   bk_exec_free(ex);
 }

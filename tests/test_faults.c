@@ -15,6 +15,7 @@
 #include <criterion/criterion.h>
 #include <dirent.h>
 #include <errno.h>
+#include <fcntl.h>
 #include <signal.h>
 #include <stdarg.h>
 #include <stdio.h>
@@ -179,7 +180,8 @@ Test(faults, disk_full_while_rendering_decks) {
   cr_assert(strstr(err, "/in.txt: no space left on device"), "%s", err);
   cr_assert(strstr(err, "Free space and run `brink run full.yaml` again"), "%s",
             err);
-  cr_assert_eq(count_lines(canonical_records("full")), 0);
+  /* The runs made before the disk filled may be recorded; not all. */
+  cr_assert_lt(count_lines(canonical_records("full")), 20);
   free_fs();
   rc = brink("run full.yaml --quiet");
   cr_assert_eq(rc, 0, "exit %d: %s", rc, read_file("err.txt"));
@@ -213,17 +215,22 @@ Test(faults, disk_fills_up_while_models_run) {
   for (int i = 0; i < 1000 && records_in("full") < 10; i++)
     usleep(10000);
   cr_assert_geq(records_in("full"), 10);
-  /* Take every free byte. */
+  /* Take every free byte, and every byte freed after (brink deletes the
+   * files of finished runs) until brink stops. */
   char p[600];
   snprintf(p, sizeof p, "%s/fs/filler", dir);
-  FILE *f = fopen(p, "w");
-  cr_assert(f);
+  int fd = open(p, O_WRONLY | O_CREAT | O_TRUNC, 0644);
+  cr_assert_geq(fd, 0);
   static char block[4096];
-  while (fwrite(block, 1, sizeof block, f) == sizeof block && fflush(f) == 0)
-    ;
-  fclose(f);
   int st;
-  waitpid(pid, &st, 0);
+  for (;;) {
+    while (write(fd, block, sizeof block) == (ssize_t)sizeof block)
+      ;
+    if (waitpid(pid, &st, WNOHANG) == pid)
+      break;
+    usleep(2000);
+  }
+  close(fd);
   char *err = read_file("bg-err.txt");
   cr_assert(WIFEXITED(st) && WEXITSTATUS(st) == 3, "status %d: %s", st, err);
   cr_assert(strstr(err, "no space left") || strstr(err, "No space left"), "%s",

@@ -116,7 +116,8 @@ static bk_record_t rec_for(long i) {
       .attempts = 1,
       .seconds = 0.25 * (double)i,
       .host = "node01",
-      .note = "",
+      .reason = "",
+      .folder = "",
   };
   return r;
 }
@@ -252,7 +253,7 @@ Test(records, new_log_starts_with_documented_header) {
   size_t n;
   char *text = slurp(logpath, &n);
   /* The third line holds the creation time; compare around it. */
-  const char *head = "# brink-records 1\n# tool brink 0.1.0\n# created ";
+  const char *head = "# brink-records 2\n# tool brink 0.1.0\n# created ";
   cr_assert_eq(strncmp(text, head, strlen(head)), 0, "%s", text);
   const char *rest = strstr(text, "Z\n");
   cr_assert_not_null(rest);
@@ -261,7 +262,7 @@ Test(records, new_log_starts_with_documented_header) {
                              "# inputs 3\n"
                              "# outputs 1\n"
                              "key\tstatus\tattempts\tseconds\thost\tg\t"
-                             "snow\tfy\tt\tdeflection\tnote\tcrc\n");
+                             "snow\tfy\tt\tdeflection\treason\tfolder\tcrc\n");
   free(text);
 }
 
@@ -278,12 +279,14 @@ Test(records, encode_writes_tab_separated_fields_and_checksum) {
                      .attempts = 2,
                      .seconds = 600.25,
                      .host = "node07",
-                     .note = "runs/x/lhs-r3-77 kept"};
+                     .reason = "timeout after 600 s",
+                     .folder = "runs/x/work/lhs-r3-77"};
   char *line;
   size_t len;
   cr_assert_eq(bk_records_encode(&rec, &line, &len), 0);
   const char *body = "lhs/r3/77\ttimeout\t2\t600.25\tnode07\t-0.5\t"
-                     "0.1\t380\t-0\tnan\truns/x/lhs-r3-77 kept";
+                     "0.1\t380\t-0\tnan\ttimeout after 600 s\t"
+                     "runs/x/work/lhs-r3-77";
   char want[256];
   snprintf(want, sizeof want, "%s\t%08x\n", body,
            crc32c_bitwise((const unsigned char *)body, strlen(body)));
@@ -376,8 +379,7 @@ Test(records, doubles_round_trip_bit_exact) {
                        .seconds = sec[i],
                        .attempts = (int)i,
                        .fault = (int)(i % BK_FAULT__COUNT),
-                       .host = "h",
-                       .note = ""};
+                       .host = "h"};
     append_ok(r, &rec);
   }
   cr_assert_eq(bk_records_close(r), 0);
@@ -402,12 +404,14 @@ Test(records, doubles_round_trip_bit_exact) {
   bk_records_close(r);
 }
 
-Test(records, notes_and_hosts_round_trip_through_escapes) {
+Test(records, reasons_folders_and_hosts_round_trip_through_escapes) {
   const char *note = "\"exit 3\"\tsee\nlog\r \\n #5 caf\xc3\xa9 \x01\x7f";
+  const char *folder = "/w/#1\tx; folder y";
   bk_records_opts_t o = opts_for(logpath);
   bk_records_t *r = open_ok(&o);
   bk_record_t rec = rec_for(5);
-  rec.note = note;
+  rec.reason = note;
+  rec.folder = folder;
   rec.host = "node#1\tb";
   rec.fault = BK_FAULT_EXIT_CODE;
   rec.g = NAN;
@@ -420,7 +424,7 @@ Test(records, notes_and_hosts_round_trip_through_escapes) {
   size_t tabs = 0;
   for (char *p = line; *p != '\n'; p++)
     tabs += *p == '\t';
-  cr_assert_eq(tabs, 11, "%s", line); /* 12 fields */
+  cr_assert_eq(tabs, 12, "%s", line); /* 13 fields */
   cr_assert_null(strchr(line, '#'), "%s", line);
   cr_assert_null(strchr(line, '"'), "%s", line);
   cr_assert_not_null(strstr(line, "\texit-code\t"));
@@ -429,7 +433,8 @@ Test(records, notes_and_hosts_round_trip_through_escapes) {
   r = open_ok(&o);
   bk_record_t got;
   cr_assert_eq(bk_records_find(r, "mc/5", &got), 1);
-  cr_assert_str_eq(got.note, note);
+  cr_assert_str_eq(got.reason, note);
+  cr_assert_str_eq(got.folder, folder);
   cr_assert_str_eq(got.host, "node#1\tb");
   cr_assert_eq(got.fault, BK_FAULT_EXIT_CODE);
   cr_assert(isnan(got.g));
@@ -584,13 +589,104 @@ Test(records, other_files_are_not_taken_for_logs) {
   cr_assert_eq(bk_records_open(&r, &o, &err), BK_ECORRUPT);
   cr_assert_eq(err.line, 1);
   cr_assert_str_eq(err.msg, "not a brink records log (the first line should "
-                            "be '# brink-records 1')");
+                            "be '# brink-records 2')");
 
-  spit(logpath, "# brink-records 2\n", 18);
+  spit(logpath, "# brink-records 3\n", 18);
   bk_error_clear(&err);
   cr_assert_eq(bk_records_open(&r, &o, &err), BK_EMISMATCH);
   cr_assert_str_eq(err.msg,
-                   "records format version 2; this brink reads version 1");
+                   "records format version 3; this brink reads versions 1 "
+                   "to 2. Use the brink that wrote it, or a new run.folder");
+}
+
+/* ---- Logs of format version 1 ----------------------------------------- */
+
+/* A version 1 log (one `note` column) as brink 0.1.0 wrote it, with four
+ * records: ok, ok with its folder kept, a fault with its folder, a fault
+ * whose reason itself holds "; folder ". */
+static void write_v1_log(void) {
+  const char *bodies[] = {
+      "mc/0\tok\t1\t0.5\tn1\t2\t1\t2\t3\t4\t",
+      "mc/1\tok\t1\t0.5\tn1\t-1\t1\t2\t3\t4\tfolder /r/work/mc-1",
+      "mc/2\texit-code\t2\t0.5\tn1\tnan\t1\t2\t3\tnan\t"
+      "exit status 3; folder /r/work/mc-2",
+      "mc/3\ttimeout\t1\t9\tn1\tnan\t1\t2\t3\tnan\t"
+      "see x; folder y; folder /r/work/mc-3",
+  };
+  char d[600];
+  snprintf(d, sizeof d, "%s/runs", tmpdir);
+  mkdir(d, 0777);
+  snprintf(d, sizeof d, "%s/runs/x", tmpdir);
+  mkdir(d, 0777);
+  char text[4096];
+  int n = snprintf(text, sizeof text,
+                   "# brink-records 1\n# tool brink 0.1.0\n"
+                   "# created 2025-03-14T09:26:53Z\n"
+                   "# part study 3f2a9c01\n"
+                   "# part template templates/deck.inp 91bc44e7\n"
+                   "# inputs 3\n# outputs 1\n"
+                   "key\tstatus\tattempts\tseconds\thost\tg\tsnow\tfy\tt\t"
+                   "deflection\tnote\tcrc\n");
+  for (size_t i = 0; i < sizeof bodies / sizeof *bodies; i++)
+    n += snprintf(
+        text + n, sizeof text - (size_t)n, "%s\t%08x\n", bodies[i],
+        crc32c_bitwise((const unsigned char *)bodies[i], strlen(bodies[i])));
+  spit(logpath, text, (size_t)n);
+}
+
+Test(records, version_1_notes_read_as_reason_and_folder) {
+  write_v1_log();
+  bk_records_opts_t o = opts_for(logpath);
+  bk_records_t *r = open_ok(&o);
+  cr_assert_eq(bk_records_version(r), 1);
+  cr_assert_eq(bk_records_count(r), 4);
+  const char *want[4][2] = {{"", ""},
+                            {"", "/r/work/mc-1"},
+                            {"exit status 3", "/r/work/mc-2"},
+                            {"see x; folder y", "/r/work/mc-3"}};
+  for (int i = 0; i < 4; i++) {
+    char key[16];
+    snprintf(key, sizeof key, "mc/%d", i);
+    bk_record_t got;
+    cr_assert_eq(bk_records_find(r, key, &got), 1, "%s", key);
+    cr_assert_str_eq(got.reason, want[i][0], "%s", key);
+    cr_assert_str_eq(got.folder, want[i][1], "%s", key);
+  }
+  bk_records_close(r);
+}
+
+/* A run started by the earlier brink resumes: its log stays version 1,
+ * the new lines in the old shape, and reads back the same. */
+Test(records, version_1_log_is_appended_in_its_own_format) {
+  write_v1_log();
+  bk_records_opts_t o = opts_for(logpath);
+  bk_records_t *r = open_ok(&o);
+  bk_record_t rec = rec_for(7);
+  rec.fault = BK_FAULT_SIGNAL;
+  rec.reason = "killed by SIGSEGV";
+  rec.folder = "/r/work/mc-7";
+  append_ok(r, &rec);
+  rec = rec_for(8);
+  rec.folder = "/r/work/mc-8";
+  append_ok(r, &rec);
+  cr_assert_eq(bk_records_close(r), 0);
+  size_t n;
+  char *text = slurp(logpath, &n);
+  cr_assert(strncmp(text, "# brink-records 1\n", 18) == 0);
+  cr_assert_not_null(strstr(text, "\tkilled by SIGSEGV; folder /r/work/mc-7\t"),
+                     "%s", text);
+  cr_assert_not_null(strstr(text, "\tfolder /r/work/mc-8\t"), "%s", text);
+  free(text);
+  r = open_ok(&o);
+  cr_assert_eq(bk_records_count(r), 6);
+  bk_record_t got;
+  cr_assert_eq(bk_records_find(r, "mc/7", &got), 1);
+  cr_assert_str_eq(got.reason, "killed by SIGSEGV");
+  cr_assert_str_eq(got.folder, "/r/work/mc-7");
+  cr_assert_eq(bk_records_find(r, "mc/8", &got), 1);
+  cr_assert_str_eq(got.reason, "");
+  cr_assert_str_eq(got.folder, "/r/work/mc-8");
+  bk_records_close(r);
 }
 
 /* ---- Fingerprint ------------------------------------------------------- */

@@ -341,3 +341,127 @@ Test(run_model, calculix_example_matches_the_cantilever_formula) {
            exact, dir);
   cr_assert_eq(system(cmd), 0, "exact Pf %.5f", exact);
 }
+
+/* Faults that end while a stop is pending are not recorded before their
+ * retries are used: they run again, with all their retries, on resume, so
+ * a run stopped with SIGINT several times ends with exactly the records
+ * (attempts included) of an uninterrupted one. Every sample fails at once
+ * here, so many faults end in the moments a stop takes to reach the
+ * executor. */
+Test(run_model, faults_ending_during_a_stop_keep_their_retries) {
+  const char *extra = "  retries: 3\n"
+                      "  max_error_fraction: 1\n";
+  write_study("ref.yaml", "ref", "random", 150, "exit 3", extra);
+  cr_assert_eq(brink("run ref.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *want = canonical_records("ref");
+  cr_assert_eq(count_lines(want), 150);
+  cr_assert_null(strstr(want, "\texit-code\t1\t"), "%s", want);
+  write_study("s.yaml", "st", "random", 150, "exit 3", extra);
+  unsigned seed = (unsigned)time(NULL);
+  cr_log_info("stop moments from seed %u", seed);
+  int stopped = 0;
+  for (int round = 0; round < 3; round++) {
+    pid_t pid = brink_background("run s.yaml --quiet");
+    /* brink handles signals once it holds the records lock. */
+    int st, done = 0;
+    for (int i = 0; i < 2000 && !exists("st/records.log.lock"); i++) {
+      if (waitpid(pid, &st, WNOHANG) == pid) {
+        done = 1;
+        break;
+      }
+      usleep(5000);
+    }
+    seed = seed * 1103515245u + 12345u;
+    if (!done) {
+      usleep(50000 + (seed >> 8) % 200000);
+      kill(pid, SIGINT);
+      waitpid(pid, &st, 0);
+    }
+    cr_assert(WIFEXITED(st));
+    cr_assert(WEXITSTATUS(st) == 3 || WEXITSTATUS(st) == 0, "exit %d: %s",
+              WEXITSTATUS(st), read_file("bg-err.txt"));
+    stopped += WEXITSTATUS(st) == 3;
+  }
+  cr_assert_gt(stopped, 0, "every run finished before its stop");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  cr_assert_str_eq(canonical_records("st"), want);
+}
+
+/* A model that leaves hard links, named like the files brink writes into
+ * its run folder (the deck, stdout, stderr), to files outside the folder:
+ * the next run in the reused folder must not write through them. */
+Test(run_model, hard_links_left_in_a_reused_folder_are_not_written_through) {
+  const char *names[] = {"in.txt", "stdout", "stderr"};
+  for (int i = 0; i < 3; i++) {
+    char v[32];
+    snprintf(v, sizeof v, "victim-%d.txt", i);
+    write_file(v, "precious %d\n", i);
+  }
+  write_file("deck.txt", "x1 = {{ a : %%.17g }}\n");
+  write_file("s.yaml",
+             "name: links\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  files: [{template: deck.txt, to: in.txt}]\n"
+             "  command: [sh, -c, 'echo \"result: g = 1\" > out.txt; "
+             "rm -f in.txt stdout stderr; ln ../../../victim-0.txt in.txt; "
+             "ln ../../../victim-1.txt stdout; "
+             "ln ../../../victim-2.txt stderr']\n"
+             "  keep: none\n"
+             "  outputs:\n"
+             "    g: {file: out.txt, pattern: 'result: g = (\\S+)'}\n"
+             "limit_state: g\n"
+             "analysis: {method: random, samples: 20}\n"
+             "run: {folder: run, slots: 1}\n");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(count_lines(canonical_records("run")), 20);
+  for (int i = 0; i < 3; i++) {
+    char v[32], want[32];
+    snprintf(v, sizeof v, "victim-%d.txt", i);
+    snprintf(want, sizeof want, "precious %d\n", i);
+    cr_assert_str_eq(read_file(v), want, "%s (%s) was written through", v,
+                     names[i]);
+  }
+}
+
+/* The reason of a fault and the run folder kept are fields of the record;
+ * status, export and the HTML report show them (and the run's inputs). */
+Test(run_model, readers_show_the_reason_folder_and_inputs_of_errors) {
+  write_study("s.yaml", "e", "random", 4, "exit 7",
+              "  retries: 0\n  max_error_fraction: 1\n");
+  cr_assert_eq(brink("run s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  char *log = read_file("e/records.log");
+  cr_assert(strstr(log, "\treason\tfolder\tcrc\n"), "%s", log);
+  char folder[600];
+  snprintf(folder, sizeof folder, "\texit status 7\t%s/e/work/mc-3\t", dir);
+  cr_assert(strstr(log, folder), "%s", log);
+  cr_assert_eq(brink("status e"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  char want[700];
+  /* The runs finish in any order: the latest is one of the four. */
+  char *last = strstr(out, "  last error     mc/");
+  cr_assert(last, "%s", out);
+  char k = last[20];
+  snprintf(
+      want, sizeof want,
+      "  last error     mc/%c: exit status 7; run folder %s/e/work/mc-%c\n", k,
+      dir, k);
+  cr_assert(strncmp(last, want, strlen(want)) == 0, "%s", out);
+  cr_assert_eq(brink("export e --csv"), 0, "%s", read_file("err.txt"));
+  out = read_file("out.txt");
+  cr_assert(strstr(out, ",failed,status,attempts,seconds,host,reason,folder\n"),
+            "%s", out);
+  snprintf(want, sizeof want, ",exit-code,1,");
+  cr_assert(strstr(out, want), "%s", out);
+  snprintf(want, sizeof want, ",exit status 7,%s/e/work/mc-3\n", dir);
+  cr_assert(strstr(out, want), "%s", out);
+  cr_assert_eq(brink("report e --html e.html"), 0, "%s", read_file("err.txt"));
+  char *html = read_file("e.html");
+  char *table = strstr(html, "data-table=\"model-errors\"");
+  cr_assert(table, "%s", html);
+  cr_assert(strstr(table, "<td>exit status 7</td>"), "%s", table);
+  cr_assert(strstr(table, "<td class=\"n\">a = "), "%s", table);
+  snprintf(want, sizeof want, "<code>%s/e/work/mc-3</code>", dir);
+  cr_assert(strstr(table, want), "%s", table);
+}

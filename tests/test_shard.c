@@ -162,7 +162,7 @@ Test(shard, serve_answers_from_the_logs_and_counts_missing_keys) {
                        .fault = i == 2 ? BK_FAULT_EXIT_CODE : 0,
                        .attempts = 1,
                        .host = "h",
-                       .note = ""};
+                       .reason = ""};
     if (i == 2)
       rec.g = NAN;
     cr_assert_eq(bk_records_append(r, &rec, &err), 0);

@@ -193,10 +193,7 @@ static int try_model(const bk_study_t *s, const double *med) {
   if (ran)
     printf("  exit status 0 (%.3g s)\n", found ? r.seconds : NAN);
   else {
-    const char *note = found && r.note ? r.note : "";
-    const char *cut = strstr(note, "; folder ");
-    printf("  failed      %.*s (%s)\n",
-           cut ? (int)(cut - note) : (int)strlen(note), note,
+    printf("  failed      %s (%s)\n", found && r.reason ? r.reason : "",
            bk_fault_name(pt.fault));
   }
   if (ran) {
@@ -230,7 +227,8 @@ static int try_model(const bk_study_t *s, const double *med) {
   else {
     exit_code = BK_EXIT_RUNTIME;
     if (ran && pt.fault == BK_FAULT_NOT_A_NUMBER)
-      printf("  limit state: %s\n", found && r.note ? r.note : "not a number");
+      printf("  limit state: %s\n",
+             found && r.reason ? r.reason : "not a number");
     print_tail(rd.data, "stderr", 12);
     if (!ran)
       print_tail(rd.data, "stdout", 12);

@@ -27,10 +27,10 @@ static const char export_help[] =
     "Writes one row per recorded evaluation, in the order the runs finished:\n"
     "key, the variables, the model outputs, g (named limit_state when a\n"
     "variable or an output is called g), failed (1 when g <= 0), status (ok\n"
-    "or the model error kind), attempts, seconds, host and note (the reason\n"
-    "of a model error and the run folder kept). Missing values are empty\n"
-    "cells in CSV and null in JSON lines. Goes to stdout unless -o FILE is\n"
-    "given. Safe to use while the study runs.\n"
+    "or the model error kind), attempts, seconds, host, reason (what went\n"
+    "wrong in a model error) and folder (the run folder kept). Missing\n"
+    "values are empty cells in CSV and null in JSON lines. Goes to stdout\n"
+    "unless -o FILE is given. Safe to use while the study runs.\n"
     "\n"
     "  --csv          comma-separated values with a header line (default)\n"
     "  --json-lines   one JSON object per line (also --jsonl)\n"
@@ -98,8 +98,10 @@ static int on_record(void *data, const bk_record_t *r) {
     bk_json_number(b, r->seconds);
     bk_buf_puts(b, ", \"host\": ");
     bk_json_string(b, r->host ? r->host : "");
-    bk_buf_puts(b, ", \"note\": ");
-    bk_json_string(b, r->note ? r->note : "");
+    bk_buf_puts(b, ", \"reason\": ");
+    bk_json_string(b, r->reason ? r->reason : "");
+    bk_buf_puts(b, ", \"folder\": ");
+    bk_json_string(b, r->folder ? r->folder : "");
     bk_buf_puts(b, "}\n");
   } else {
     csv_text(b, r->key);
@@ -122,7 +124,9 @@ static int on_record(void *data, const bk_record_t *r) {
     bk_buf_putc(b, ',');
     csv_text(b, r->host ? r->host : "");
     bk_buf_putc(b, ',');
-    csv_text(b, r->note ? r->note : "");
+    csv_text(b, r->reason ? r->reason : "");
+    bk_buf_putc(b, ',');
+    csv_text(b, r->folder ? r->folder : "");
     bk_buf_putc(b, '\n');
   }
   if (fwrite(b->data, 1, b->len, e->f) != b->len)
@@ -230,7 +234,8 @@ int bk__cmd_export(int argc, char **argv) {
       bk_buf_putc(&e.line, ',');
       csv_text(&e.line, e.yn[i]);
     }
-    bk_buf_printf(&e.line, ",%s,failed,status,attempts,seconds,host,note\n",
+    bk_buf_printf(&e.line,
+                  ",%s,failed,status,attempts,seconds,host,reason,folder\n",
                   e.gname);
     fwrite(e.line.data, 1, e.line.len, e.f);
   }

@@ -21,7 +21,9 @@
 #include "base/error.h"
 #include "eval/dispatch.h"
 #include "eval/exec.h"
-#include "eval/exec_mpi.h"
+#include "eval/mpi_comm.h"
+#include "eval/mpi_coord.h"
+#include "eval/mpi_worker.h"
 #include "methods/method.h"
 #include "eval/records.h"
 #include "reports/report.h"
@@ -448,9 +450,9 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
   return exit_code;
 }
 
-/* A worker rank of an MPI run: loads the study, prepares its executor and
- * dispatcher, and evaluates what the coordinator sends. Whatever goes
- * wrong is reported to the coordinator rather than printed here. */
+/* A worker rank of an MPI run: loads the study, makes its run-folder
+ * places, and evaluates what the coordinator sends. Whatever goes wrong
+ * is reported to the coordinator rather than printed here. */
 static int run_worker(const char *path, int rank) {
   char host[256];
   if (gethostname(host, sizeof host) != 0)
@@ -460,13 +462,9 @@ static int run_worker(const char *path, int rank) {
   bk_error_clear(&err);
   bk_study_t *s = NULL;
   char failure[1600] = "";
-  bk_buf_t wd, kd, lp;
+  bk_buf_t wd, kd;
   bk_buf_init(&wd);
   bk_buf_init(&kd);
-  bk_buf_init(&lp);
-  bk_records_t *rec = NULL;
-  bk_exec_t *ex = NULL;
-  bk_dispatch_t *d = NULL;
   int rc = bk_study_load(path, &s, &err);
   if (rc) {
     snprintf(failure, sizeof failure, "cannot load %s: %s%s%s", path,
@@ -483,19 +481,14 @@ static int run_worker(const char *path, int rank) {
     bk_buf_printf(&wd, "%s/brink-%s-r%d-%ld", s->run.scratch, s->name, rank,
                   (long)getpid());
     bk_buf_printf(&kd, "%s/work", folder);
-    bk_buf_printf(&lp, "%s/.worker-records.log", wd.data);
   } else {
     bk_buf_printf(&wd, "%s/work", folder);
-    /* The worker's own log only carries results to the coordinator: keep
-     * it in memory (/dev/shm) where there is one, so that its fsyncs cost
-     * nothing. */
-    const char *tmp = getenv("TMPDIR");
-    if (access("/dev/shm", W_OK | X_OK) == 0)
-      tmp = "/dev/shm";
-    bk_buf_printf(&lp, "%s/brink-worker-%s-%ld.log", tmp && *tmp ? tmp : "/tmp",
-                  host, (long)getpid());
   }
   free(abs_folder);
+  if (!wd.data || (s->run.scratch[0] && !kd.data)) {
+    snprintf(failure, sizeof failure, "out of memory");
+    goto greet;
+  }
   if ((rc = bk__cli_make_dirs(wd.data)) != 0 ||
       (kd.data && (rc = bk__cli_make_dirs(kd.data)) != 0)) {
     snprintf(failure, sizeof failure, "cannot create %s: %s",
@@ -508,61 +501,15 @@ static int run_worker(const char *path, int rank) {
    * worker has greeted the coordinator). */
   if (!kd.data)
     bk_dispatch_reap(wd.data);
-  bk_study_ident_t id;
-  if (bk_study_ident_init(&id, s)) {
-    snprintf(failure, sizeof failure, "out of memory");
-    goto greet;
-  }
-  bk_records_opts_t ro;
-  bk_study_ident_opts(&id, s, lp.data, &ro);
-  ro.sync_interval = 1e9;
-  rc = bk_records_open(&rec, &ro, &err);
-  bk_study_ident_close(&id);
-  if (rc) {
-    snprintf(failure, sizeof failure, "cannot open %s: %s", lp.data, err.msg);
-    goto greet;
-  }
-  if ((rc = bk_exec_local_new(&ex, s->run.slots)) != 0) {
-    snprintf(failure, sizeof failure, "cannot start the executor: %s",
-             bk_strerror(rc));
-    goto greet;
-  }
-  bk_dispatch_opts_t dop = {
-      .study = s,
-      .records = rec,
-      .exec = ex,
-      .work_dir = wd.data,
-      .host = host,
-  };
-  if (bk_dispatch_new(&d, &dop)) {
-    snprintf(failure, sizeof failure, "out of memory");
-    goto greet;
-  }
 greet:;
-  bk_evaluator_t local;
-  if (d)
-    bk_dispatch_evaluator(d, &local);
-  bk_mpi_worker_opts_t wo = {s, &local, rec, wd.data, kd.data, host};
+  bk_mpi_worker_opts_t wo = {s, wd.data, kd.data, host};
   bk_stop_install();
-  rc = bk_mpi_worker_run(d ? &wo : NULL, failure[0] ? failure : NULL);
-  bk_dispatch_free(d);
-  bk_exec_free(ex);
-  bk_records_close(rec);
-  if (lp.data) {
-    unlink(lp.data);
-    bk_buf_t lk;
-    bk_buf_init(&lk);
-    bk_buf_printf(&lk, "%s.lock", lp.data);
-    if (lk.data)
-      unlink(lk.data);
-    bk_buf_close(&lk);
-  }
+  rc = bk_mpi_worker_run(&wo, failure[0] ? failure : NULL);
   /* The scratch folder goes when nothing was left in it. */
   if (kd.data && wd.data)
     rmdir(wd.data);
   bk_buf_close(&wd);
   bk_buf_close(&kd);
-  bk_buf_close(&lp);
   bk_study_free(s);
   return rc ? BK_EXIT_RUNTIME : BK_EXIT_DONE;
 }
@@ -613,8 +560,9 @@ int bk__cmd_run(int argc, char **argv) {
     return BK_EXIT_USAGE;
   }
   int rank = 0, size = 1;
-  if (bk_mpi_init(NULL, NULL, &rank, &size)) {
-    fprintf(stderr, "brink: cannot start MPI\n");
+  char why[400];
+  if (bk_mpi_init(&rank, &size, why, sizeof why)) {
+    fprintf(stderr, "brink: cannot start MPI: %s\n", why);
     return BK_EXIT_RUNTIME;
   }
   int code;
@@ -626,7 +574,7 @@ int bk__cmd_run(int argc, char **argv) {
     if (size == 1 && !quiet)
       fprintf(stderr, "brink: one MPI rank: running the models on it\n");
     code = run_study(path, quiet, &mode);
-    bk_mpi_quit_workers();
+    bk_mpi_coord_quit_workers();
   }
   bk_mpi_finalize();
   return code;

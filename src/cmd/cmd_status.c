@@ -48,6 +48,11 @@ typedef struct {
   uint64_t by_kind[BK_FAULT__COUNT];
   double recent[RECENT]; /* run times of the last RECENT runs */
   size_t nrecent;
+  /* The latest model error in the log. */
+  char last_key[96];
+  int last_fault;
+  char last_reason[256];
+  char last_folder[512];
 } tally_t;
 
 static int on_record(void *data, const bk_record_t *r) {
@@ -59,6 +64,12 @@ static int on_record(void *data, const bk_record_t *r) {
       t->failed++;
   } else if (r->fault > 0 && r->fault < BK_FAULT__COUNT) {
     t->by_kind[r->fault]++;
+    snprintf(t->last_key, sizeof t->last_key, "%s", r->key);
+    t->last_fault = r->fault;
+    snprintf(t->last_reason, sizeof t->last_reason, "%s",
+             r->reason ? r->reason : "");
+    snprintf(t->last_folder, sizeof t->last_folder, "%s",
+             r->folder ? r->folder : "");
   }
   if (isfinite(r->seconds))
     t->recent[t->nrecent++ % RECENT] = r->seconds;
@@ -327,6 +338,13 @@ int bk__cmd_status(int argc, char **argv) {
     if (nerr && t->n)
       printf(" (%.1f%% of runs)", 100.0 * (double)nerr / (double)t->n);
     printf("\n");
+    if (t->last_key[0]) {
+      printf("  last error     %s: %s", t->last_key,
+             t->last_reason[0] ? t->last_reason : bk_fault_name(t->last_fault));
+      if (t->last_folder[0])
+        printf("; run folder %s", t->last_folder);
+      printf("\n");
+    }
     size_t m = t->nrecent < RECENT ? t->nrecent : RECENT;
     double sum = 0;
     for (size_t i = 0; i < m; i++)

@@ -7,14 +7,25 @@
  * make brink write outside the run folder.
  *
  * A finished folder that is not kept and holds no subfolder is emptied of
- * everything but the files brink itself writes (decks, copies, stdout,
- * stderr) and renamed to a spare name instead of removed; the next run's
+ * everything but the files brink itself writes before the run (decks,
+ * copies) and renamed to a spare name instead of removed; the next run's
  * folder is that spare renamed again, with those files rewritten from the
  * start. To the model the folder is as fresh as a new one, and the file
  * system is spared creating and deleting most inodes of every run (ext4
  * without a journal scans past every inode deleted in the last half minute
  * on each creation, which made that the largest cost of a trivial model
- * run). Spares are removed when the dispatcher is freed.
+ * run). The tidying and renaming run on a helper thread of the executor
+ * (bk_exec_work). Spares are removed when the dispatcher is freed. A file of
+ * brink's own in a reused folder is written over only when it is a regular
+ * file with no other link; a hard link a model made to a file elsewhere is
+ * removed and a new file made, so nothing outside the folder is written.
+ *
+ * A finished evaluation goes to the sink only when it is final: a fault
+ * with retries left is run again, or, when the run is stopping, left out
+ * (it runs again, with all its retries, on resume), so a resumed run
+ * records exactly what an uninterrupted one records. A failure of brink's
+ * own (records, a full disk, a folder that cannot be made) cancels the
+ * executor, never the user's stop flag.
  *
  * SPDX-License-Identifier: MIT
  */
@@ -35,9 +46,10 @@
 
 #include "base/alloc.h"
 #include "base/buf.h"
-#include "study/extract.h"
 #include "base/fault.h"
 #include "base/stop.h"
+#include "eval/replay.h"
+#include "study/extract.h"
 #include "study/template.h"
 
 extern char **environ;
@@ -46,7 +58,7 @@ extern char **environ;
 typedef struct {
   bk_dispatch_t *d;
   bk_point_t *pt;
-  char key[96];
+  char key[BK_REPLAY_KEY_MAX];
   char *dir;
   int attempts;
   int done;
@@ -56,11 +68,14 @@ typedef struct {
 struct bk_dispatch {
   bk_dispatch_opts_t o;
   bk_dispatch_stats_t st;
-  char **base_env; /* environ + model.env, without BRINK_* */
+  bk_sink_t records_sink; /* when no sink is given */
+  char **base_env;        /* environ + model.env, without BRINK_* */
   size_t nbase_env;
   double *vals; /* x then y, for the limit state */
   char **spare; /* folders to reuse (see the top of this file) */
   size_t nspare;
+  size_t capspare;
+  long pid;                /* for spare names */
   unsigned long spare_seq; /* for unique spare names */
   /* The batch being run. Folders are made just before their job is
    * submitted, at most `window` ahead, so that finished ones can be
@@ -70,10 +85,29 @@ struct bk_dispatch {
   size_t next;     /* the next job to consider submitting */
   size_t inflight; /* submitted, not finished */
   size_t window;
-  int fatal; /* a records failure: stop the batch */
+  int fatal; /* a failure of brink's own: the batch is cancelled */
   bk_error_t fatal_err;
-  const char *prefix;
 };
+
+static int records_put(bk_sink_t *sk, const bk_record_t *rec, bk_error_t *err) {
+  return bk_records_append(sk->data, rec, err);
+}
+
+void bk_sink_records(bk_sink_t *sk, bk_records_t *r) {
+  sk->put = records_put;
+  sk->data = r;
+}
+
+/* Records a failure of brink's own (the first one wins) and cancels the
+ * executor, so the batch ends. err_in, when not NULL, is the error. */
+static void fail(bk_dispatch_t *d, int code, const bk_error_t *err_in) {
+  if (!d->fatal) {
+    d->fatal = code;
+    if (err_in && err_in->code)
+      d->fatal_err = *err_in;
+  }
+  bk_exec_cancel(d->o.exec);
+}
 
 void bk_dispatch_folder_name(const char *key, char *out, size_t cap) {
   size_t i = 0;
@@ -174,6 +208,11 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
   if (!d)
     return BK_ENOMEM;
   d->o = *opts;
+  d->pid = (long)getpid();
+  if (!d->o.sink) {
+    bk_sink_records(&d->records_sink, opts->records);
+    d->o.sink = &d->records_sink;
+  }
   const bk_study_t *s = opts->study;
   d->vals = bk_calloc(s->nvars + s->model.noutputs + 1, sizeof *d->vals);
   if (!d->vals || build_base_env(d)) {
@@ -201,24 +240,44 @@ const bk_dispatch_stats_t *bk_dispatch_stats(const bk_dispatch_t *d) {
   return &d->st;
 }
 
-/* Open flags for a file brink writes into a run folder: never through a
- * link; new in a new folder, overwritten in a reused one (and cut to its
- * new length after writing: truncating first would free and allocate its
- * blocks again, which costs a discard on some disks). */
-static int new_file_flags(int reused) {
-  return O_WRONLY | O_CREAT | O_NOFOLLOW | O_CLOEXEC | (reused ? 0 : O_EXCL);
+/* Opens dir/name for writing a file of brink's own into a run folder:
+ * never through a symbolic link; new in a new folder; in a reused one the
+ * old file is written over (and cut to its new length after writing:
+ * truncating first would free and allocate its blocks again, which costs
+ * a discard on some disks; and not at all when the old file was no
+ * longer) when it is a regular file with no other link, and removed and
+ * made anew otherwise (a hard link the model made to a file outside the
+ * folder must not be written through). Returns a descriptor, with the
+ * old file's size in *old_size (0 for a new file), or -errno. */
+static int open_own(const char *path, int reused, off_t *old_size) {
+  int flags = O_WRONLY | O_CREAT | O_NOFOLLOW | O_CLOEXEC;
+  *old_size = 0;
+  int fd = open(path, flags | (reused ? 0 : O_EXCL), 0666);
+  if (fd < 0 || !reused)
+    return fd < 0 ? -errno : fd;
+  struct stat st;
+  if (fstat(fd, &st) == 0 && S_ISREG(st.st_mode) && st.st_nlink == 1) {
+    *old_size = st.st_size;
+    return fd;
+  }
+  close(fd);
+  if (unlink(path) != 0 && errno != ENOENT)
+    return -errno;
+  fd = open(path, flags | O_EXCL, 0666);
+  return fd < 0 ? -errno : fd;
 }
 
-/* Writes `len` bytes to dir/name, refusing to follow a link. */
+/* Writes `len` bytes to dir/name (see open_own). */
 static int write_new_file(const char *dir, const char *name, const char *data,
                           size_t len, int reused) {
   char path[4096];
   int n = snprintf(path, sizeof path, "%s/%s", dir, name);
   if (n < 0 || (size_t)n >= sizeof path)
     return -ENAMETOOLONG;
-  int fd = open(path, new_file_flags(reused), 0666);
+  off_t old;
+  int fd = open_own(path, reused, &old);
   if (fd < 0)
-    return -errno;
+    return fd;
   size_t off = 0;
   while (off < len) {
     ssize_t w = write(fd, data + off, len - off);
@@ -231,7 +290,7 @@ static int write_new_file(const char *dir, const char *name, const char *data,
     }
     off += (size_t)w;
   }
-  if (reused && ftruncate(fd, (off_t)len) != 0) {
+  if (old > (off_t)len && ftruncate(fd, (off_t)len) != 0) {
     int e = -errno;
     close(fd);
     return e;
@@ -247,12 +306,12 @@ static int copy_file(const char *src, const char *dir, const char *name,
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", dir, name);
-  int out = p.data ? open(p.data, new_file_flags(reused), 0666) : -1;
+  off_t old = 0;
+  int out = p.data ? open_own(p.data, reused, &old) : BK_ENOMEM;
   bk_buf_close(&p);
   if (out < 0) {
-    int e = -errno;
     close(in);
-    return e;
+    return out;
   }
   char buf[65536];
   int rc = 0;
@@ -279,7 +338,7 @@ static int copy_file(const char *src, const char *dir, const char *name,
     if (rc)
       break;
   }
-  if (rc == 0 && reused && ftruncate(out, total) != 0)
+  if (rc == 0 && old > total && ftruncate(out, total) != 0)
     rc = -errno;
   close(in);
   if (close(out) != 0 && rc == 0)
@@ -292,10 +351,14 @@ static const char *base_name(const char *p) {
   return s ? s + 1 : p;
 }
 
-/* Is `name` one of the files brink writes into a run folder? */
+/* Is `name` one of the files brink writes into a run folder before the
+ * run, and that a reused folder keeps to write over? Not `stdout` and
+ * `stderr`: they are removed with the model's files and made anew by the
+ * executor. Emptying them in place instead (truncating to zero) makes
+ * ext4 write their next contents out to disk when the model closes them
+ * (its guard for files replaced by truncation), which cost more than a
+ * new file. */
 static int own_file(const bk_study_t *s, const char *name) {
-  if (strcmp(name, "stdout") == 0 || strcmp(name, "stderr") == 0)
-    return 1;
   for (size_t i = 0; i < s->model.ndecks; i++)
     if (strcmp(name, s->model.decks[i].to) == 0)
       return 1;
@@ -343,25 +406,87 @@ static int tidy_for_reuse(const bk_study_t *s, const char *dir) {
   return ok;
 }
 
+/* Adds a folder to the spares, or removes it when a window's worth are
+ * kept already (the folders of a batch's last runs, which the next batch's
+ * first runs take again). Takes the path. */
+static void add_spare(bk_dispatch_t *d, char *path) {
+  size_t most = d->window > 64 ? d->window : 64;
+  if (d->nspare < most && d->nspare == d->capspare) {
+    size_t cap = d->capspare ? 2 * d->capspare : 64;
+    char **sp = bk_realloc(d->spare, cap * sizeof *sp);
+    if (sp) {
+      d->spare = sp;
+      d->capspare = cap;
+    }
+  }
+  if (d->nspare < most && d->nspare < d->capspare) {
+    d->spare[d->nspare++] = path;
+    return;
+  }
+  bk_remove_tree(path);
+  bk_free(path);
+}
+
+/* A finished folder on its way to the spares: tidied and renamed on a
+ * helper thread of the executor, so that the deletions (the slowest part
+ * of a trivial run on some file systems) do not hold up the starting of
+ * the next models. */
+typedef struct {
+  const bk_study_t *study;
+  bk_dispatch_t *d;
+  char *dir;
+  char *spare;
+  int ok;
+} retiring_t;
+
+static void retire_work(void *data) {
+  retiring_t *r = data;
+  r->ok = tidy_for_reuse(r->study, r->dir) && rename(r->dir, r->spare) == 0;
+  if (!r->ok)
+    bk_remove_tree(r->dir);
+}
+
+static void retire_done(void *data) {
+  retiring_t *r = data;
+  if (r->ok) {
+    add_spare(r->d, r->spare);
+    r->spare = NULL;
+  }
+  bk_free(r->spare);
+  bk_free(r->dir);
+  bk_free(r);
+}
+
 /* Keeps a finished folder as a spare when it can be reused, and removes it
  * otherwise. */
-#define MAX_SPARE 64
 static void retire_folder(bk_dispatch_t *d, const char *dir) {
-  if (d->nspare < MAX_SPARE && tidy_for_reuse(d->o.study, dir)) {
-    if (!d->spare && !(d->spare = bk_calloc(MAX_SPARE, sizeof *d->spare)))
-      goto remove;
-    bk_buf_t p;
-    bk_buf_init(&p);
-    bk_buf_printf(&p, "%s/.spare-%s-%ld-%lu", d->o.work_dir,
-                  d->o.host ? d->o.host : "", (long)getpid(), d->spare_seq++);
-    if (p.data && rename(dir, p.data) == 0) {
-      d->spare[d->nspare++] = p.data;
-      return;
-    }
-    bk_buf_close(&p);
+  retiring_t *r = bk_calloc(1, sizeof *r);
+  bk_buf_t p;
+  bk_buf_init(&p);
+  bk_buf_printf(&p, "%s/.spare-%s-%ld-%lu", d->o.work_dir,
+                d->o.host ? d->o.host : "", d->pid, d->spare_seq++);
+  if (r) {
+    r->study = d->o.study;
+    r->d = d;
+    r->dir = bk_strdup(dir);
+    r->spare = p.data;
+    p.data = NULL;
   }
-remove:
-  bk_remove_tree(dir);
+  if (!r || !r->dir || !r->spare) {
+    bk_remove_tree(dir);
+  } else if (bk_exec_work(d->o.exec, retire_work, retire_done, r) == 0) {
+    return;
+  } else {
+    retire_work(r);
+    retire_done(r);
+    return;
+  }
+  if (r) {
+    bk_free(r->dir);
+    bk_free(r->spare);
+    bk_free(r);
+  }
+  bk_buf_close(&p);
 }
 
 /* Makes the job's folder from a spare. Returns 1 when it did. */
@@ -431,17 +556,20 @@ static int prepare_folder(job_t *j, char *why, size_t whycap) {
 
 static void on_done(void *data, const bk_job_result_t *res);
 
-/* Starts (or restarts) one job. On a preparation failure the run is
- * finished at once as a fault-free failure to run: records stop. */
+/* Starts (or restarts) one job. Returns 0, or a negative code: a folder
+ * that cannot be made or filled is a failure of brink's own (d->fatal is
+ * set and the executor cancelled); a refused submission is left to the
+ * caller. */
 static int submit(job_t *j) {
   bk_dispatch_t *d = j->d;
   const bk_study_t *s = d->o.study;
   char why[512];
   int rc = prepare_folder(j, why, sizeof why);
   if (rc) {
-    d->fatal = rc;
-    bk_error_set(&d->fatal_err, rc == -ENOSPC ? BK_ENOSPC : rc, NULL, 0, 0,
-                 "%s", why);
+    bk_error_t e;
+    bk_error_clear(&e);
+    bk_error_set(&e, rc == -ENOSPC ? BK_ENOSPC : rc, NULL, 0, 0, "%s", why);
+    fail(d, e.code, &e);
     return rc;
   }
   size_t ne = d->nbase_env;
@@ -536,14 +664,16 @@ static int disk_full(const char *dir) {
          (sv.f_files > 0 && sv.f_favail == 0);
 }
 
+/* A finished attempt. Sets j->done to 1 when the evaluation is final and
+ * went to the sink, -1 when it is left out (it runs again on resume), and
+ * leaves it 0 when the job was submitted again. */
 static void run_done(job_t *j, const bk_job_result_t *res) {
   bk_dispatch_t *d = j->d;
   const bk_study_t *s = d->o.study;
   bk_point_t *pt = j->pt;
-  if (res->fault == BK_FAULT_INTERRUPTED || d->fatal) {
-    j->done = -1;
+  j->done = -1;
+  if (res->fault == BK_FAULT_INTERRUPTED || d->fatal)
     return;
-  }
   char why[512] = "";
   pt->fault = res->fault;
   pt->g = NAN;
@@ -555,36 +685,40 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
     snprintf(why, sizeof why, "%s", res->why);
   if (pt->fault != BK_FAULT_NONE && disk_full(j->dir)) {
     /* Not recorded: after space is freed the run is made again. */
-    d->fatal = BK_ENOSPC;
-    bk_error_set(&d->fatal_err, BK_ENOSPC, NULL, 0, 0,
+    bk_error_t e;
+    bk_error_clear(&e);
+    bk_error_set(&e, BK_ENOSPC, NULL, 0, 0,
                  "%s failed (%s) while the file system of %s has no space "
                  "left; the run is not recorded",
                  j->key, why, j->dir);
-    bk_stop_set(SIGTERM);
-    j->done = -1;
+    fail(d, BK_ENOSPC, &e);
     return;
   }
-  if (pt->fault != BK_FAULT_NONE && j->attempts <= s->model.retries &&
-      !bk_stop_requested()) {
-    if (submit(j) == 0)
+  if (pt->fault != BK_FAULT_NONE && j->attempts <= s->model.retries) {
+    /* Retries left. While the run stops, the fault is not final: left out,
+     * it runs again with all its retries on resume, as it would have
+     * without the stop. */
+    if (bk_exec_stopping(d->o.exec))
       return;
-    if (d->fatal) {
-      bk_stop_set(SIGTERM);
-      j->done = -1;
+    j->done = 0;
+    int rc = submit(j);
+    if (rc == 0)
       return;
+    j->done = -1;
+    if (!d->fatal) {
+      bk_error_t e;
+      bk_error_clear(&e);
+      bk_error_set(&e, rc, NULL, 0, 0, "cannot start %s again: %s", j->key,
+                   bk_strerror(rc));
+      if (rc != BK_ESTOPPED && rc != BK_ECANCELED)
+        fail(d, rc, &e);
     }
+    return;
   }
   d->st.completed++;
   if (pt->fault != BK_FAULT_NONE)
     d->st.errors++;
   int keep = keep_folder(s, pt);
-  char note[700];
-  if (pt->fault != BK_FAULT_NONE)
-    snprintf(note, sizeof note, "%s; folder %s", why, j->dir);
-  else if (keep)
-    snprintf(note, sizeof note, "folder %s", j->dir);
-  else
-    note[0] = '\0';
   bk_record_t rec = {
       .key = j->key,
       .nx = s->nvars,
@@ -596,13 +730,14 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
       .attempts = j->attempts,
       .seconds = res->seconds,
       .host = d->o.host,
-      .note = note,
+      .reason = pt->fault != BK_FAULT_NONE ? why : "",
+      .folder = keep ? j->dir : "",
   };
-  int rc = bk_records_append(d->o.records, &rec, &d->fatal_err);
+  bk_error_t e;
+  bk_error_clear(&e);
+  int rc = d->o.sink->put(d->o.sink, &rec, &e);
   if (rc) {
-    d->fatal = rc;
-    bk_stop_set(SIGTERM);
-    j->done = -1;
+    fail(d, rc, &e);
     return;
   }
   if (!keep)
@@ -614,28 +749,38 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
   }
 }
 
-#define FIRST_WINDOW 64
-#define MAX_WINDOW   ((size_t)1 << 20)
+/* The first window: a few folders beyond the slots. A larger one would
+ * only make folders that wait, new ones (the spares come back at the rate
+ * runs end), and remove them again at the end. */
+#define FIRST_WINDOW(slots) (2 * (size_t)(slots) + 2)
+#define MAX_WINDOW          ((size_t)1 << 20)
 
-/* Submits the batch's next jobs while the window has room. Returns 0 or
- * the code of a submission that failed (d->fatal set for a failure to
- * make a folder). */
-static int feed(bk_dispatch_t *d) {
+/* Submits the batch's next jobs while the window has room. A job that
+ * cannot be started is a failure of brink's own (the batch is cancelled);
+ * a stop leaves the rest unsubmitted. */
+static void feed(bk_dispatch_t *d) {
   while (d->next < d->nbatch && d->inflight < d->window) {
     job_t *j = &d->batch[d->next];
     if (!j->need) {
       d->next++;
       continue;
     }
-    if (bk_stop_requested() || d->fatal)
-      return 0;
+    if (d->fatal || bk_exec_stopping(d->o.exec))
+      return;
     int rc = submit(j);
-    if (rc)
-      return rc;
+    if (rc) {
+      if (!d->fatal && rc != BK_ESTOPPED && rc != BK_ECANCELED) {
+        bk_error_t e;
+        bk_error_clear(&e);
+        bk_error_set(&e, rc, NULL, 0, 0, "cannot start %s: %s", j->key,
+                     bk_strerror(rc));
+        fail(d, rc, &e);
+      }
+      return;
+    }
     d->next++;
     d->inflight++;
   }
-  return 0;
 }
 
 static void on_done(void *data, const bk_job_result_t *res) {
@@ -645,22 +790,13 @@ static void on_done(void *data, const bk_job_result_t *res) {
   if (j->done == 0)
     return; /* submitted again */
   d->inflight--;
-  /* Nothing queued behind the running processes: look further ahead. */
-  if (d->window < MAX_WINDOW &&
+  /* Nothing queued behind the running processes while more jobs wait:
+   * the folders are not made fast enough, look further ahead. (At the
+   * tail of a batch nothing is queued either, but nothing waits.) */
+  if (d->window < MAX_WINDOW && d->next < d->nbatch &&
       (size_t)bk_exec_running(d->o.exec) >= d->inflight)
     d->window *= 2;
-  int rc = feed(d);
-  if (rc && !d->fatal) {
-    d->fatal = rc;
-    bk_error_set(&d->fatal_err, rc, NULL, 0, 0, "cannot start %s: %s",
-                 d->batch[d->next].key, bk_strerror(rc));
-  }
-  if (rc)
-    bk_stop_set(SIGTERM);
-}
-
-static int same_doubles(const double *a, const double *b, size_t n) {
-  return n == 0 || memcmp(a, b, n * sizeof *a) == 0;
+  feed(d);
 }
 
 static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
@@ -670,34 +806,31 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
   job_t *jobs = bk_calloc(n, sizeof *jobs);
   if (!jobs)
     return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
-  d->prefix = prefix;
-  int rc = 0, pending = 0;
+  int rc = 0;
+  d->fatal = 0;
+  bk_error_clear(&d->fatal_err);
+  bk_records_t *logs[1] = {d->o.records};
   for (size_t i = 0; i < n; i++) {
     job_t *j = &jobs[i];
     j->d = d;
     j->pt = &pts[i];
-    snprintf(j->key, sizeof j->key, "%s/%llu", prefix,
-             (unsigned long long)pts[i].index);
-    bk_record_t rec;
-    if (bk_records_find(d->o.records, j->key, &rec)) {
-      if (rec.nx != s->nvars || !same_doubles(rec.x, pts[i].x, s->nvars)) {
-        rc = bk_error_set(err, BK_EMISMATCH, NULL, 0, 0,
-                          "the recorded inputs of %s differ from the ones "
-                          "this study gives; the records were made "
-                          "differently (another brink version?). Use a new "
-                          "run.folder",
-                          j->key);
-        goto out;
-      }
-      for (size_t k = 0; k < s->model.noutputs && k < rec.ny; k++)
-        pts[i].y[k] = rec.y[k];
-      pts[i].g = rec.g;
-      pts[i].fault = rec.fault;
+    if (bk_replay_key(j->key, sizeof j->key, prefix, pts[i].index)) {
+      rc = bk_error_set(err, BK_ERANGE, NULL, 0, 0,
+                        "the key %s/%llu is too long", prefix,
+                        (unsigned long long)pts[i].index);
+      goto out;
+    }
+    rc = bk_replay_point(logs, 1, j->key, s->nvars, s->model.noutputs, &pts[i],
+                         NULL, err);
+    if (rc < 0)
+      goto out;
+    if (rc == 1) {
+      rc = 0;
       j->done = 1;
       d->st.replayed++;
       continue;
     }
-    char name[120];
+    char name[BK_REPLAY_KEY_MAX];
     bk_dispatch_folder_name(j->key, name, sizeof name);
     bk_buf_t p;
     bk_buf_init(&p);
@@ -707,42 +840,29 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
       rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
       goto out;
     }
-    if (bk_stop_requested() || d->fatal)
-      continue;
     j->need = 1;
-    pending++;
   }
   d->batch = jobs;
   d->nbatch = n;
   d->next = 0;
   d->inflight = 0;
-  if (d->window < FIRST_WINDOW)
-    d->window = FIRST_WINDOW;
-  rc = feed(d);
-  if (rc && d->fatal) {
-    bk_stop_set(SIGTERM);
-  } else if (rc && d->inflight == 0) {
-    rc = bk_error_set(err, rc, NULL, 0, 0, "cannot start %s: %s",
-                      jobs[d->next].key, bk_strerror(rc));
-    goto out;
-  } else if (rc) {
-    d->fatal = rc;
-    bk_error_set(&d->fatal_err, rc, NULL, 0, 0, "cannot start %s: %s",
-                 jobs[d->next].key, bk_strerror(rc));
-    bk_stop_set(SIGTERM);
-  }
-  rc = 0;
+  size_t first = FIRST_WINDOW(s->run.slots > 0 ? s->run.slots : 1);
+  if (d->window < first)
+    d->window = first;
+  feed(d);
   int wrc = bk_exec_wait(d->o.exec);
   /* A batch boundary is a natural point to put the records on disk. */
-  bk_records_sync(d->o.records);
+  if (d->o.records)
+    bk_records_sync(d->o.records);
   if (d->fatal) {
     *err = d->fatal_err;
     if (!err->code)
-      err->code = d->fatal;
+      bk_error_set(err, d->fatal, NULL, 0, 0, "%s", bk_strerror(d->fatal));
     rc = d->fatal;
     goto out;
   }
-  if (wrc == BK_ESTOPPED || bk_stop_requested()) {
+  /* A stop request, or a cancel from outside (a stop sent by message). */
+  if (wrc == BK_ESTOPPED || wrc == BK_ECANCELED || bk_stop_requested()) {
     rc = BK_ESTOPPED;
     goto out;
   }
@@ -757,7 +877,6 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
                         "%s did not finish (internal error)", jobs[i].key);
       goto out;
     }
-  (void)pending;
 out:
   d->batch = NULL;
   d->nbatch = d->next = d->inflight = 0;

@@ -1,11 +1,12 @@
 /*
  * The dispatcher: the evaluator of studies with a model section. For each
- * keyed point of a batch it looks the key up in the record log; recorded
- * keys return at once (this is how a study resumes), the others get a run
- * folder with the rendered decks and copied files, run through the
- * executor, have their outputs extracted and the limit state evaluated,
- * with retries on faults, and are appended to the log. The keep policy then
- * removes the run folders no one needs.
+ * keyed point of a batch it looks the key up in the record log (replay.h);
+ * recorded keys return at once (this is how a study resumes), the others
+ * get a run folder with the rendered decks and copied files, run through
+ * the executor, have their outputs extracted and the limit state
+ * evaluated, with retries on faults, and go to the sink: the record log in
+ * a local run, the reply to the coordinator on an MPI worker. The keep
+ * policy then removes the run folders no one needs.
  *
  * SPDX-License-Identifier: MIT
  */
@@ -14,10 +15,26 @@
 
 #include <stdint.h>
 
-#include "eval/exec.h"
 #include "eval/evaluator.h"
+#include "eval/exec.h"
 #include "eval/records.h"
 #include "study/study.h"
+
+/* Where the dispatcher puts each finished evaluation, exactly once per
+ * evaluation and only when it is final: a run cut short by a stop or a
+ * cancel, or a fault with retries left when the run stops, never reaches
+ * the sink (it runs again on resume). */
+typedef struct bk_sink bk_sink_t;
+struct bk_sink {
+  /* Takes the finished evaluation; everything in rec is borrowed for the
+   * call. Returns 0, or a negative code with err set: the dispatcher then
+   * cancels the batch and returns that code. */
+  int (*put)(bk_sink_t *sk, const bk_record_t *rec, bk_error_t *err);
+  void *data;
+};
+
+/* A sink appending to an open record log. */
+void bk_sink_records(bk_sink_t *sk, bk_records_t *r);
 
 typedef struct {
   uint64_t replayed;  /* keys found in the records */
@@ -30,10 +47,12 @@ typedef void (*bk_dispatch_tick_cb)(void *data, const bk_dispatch_stats_t *st);
 
 typedef struct {
   const bk_study_t *study;
-  bk_records_t *records;   /* borrowed; open for writing */
-  bk_exec_t *exec;         /* borrowed */
-  const char *work_dir;    /* run folders are made below it */
-  const char *host;        /* recorded with each evaluation */
+  bk_records_t *records;    /* borrowed; keys recorded here are replayed;
+                               NULL: none is */
+  bk_sink_t *sink;          /* borrowed; NULL: append to `records` */
+  bk_exec_t *exec;          /* borrowed */
+  const char *work_dir;     /* run folders are made below it */
+  const char *host;         /* recorded with each evaluation */
   bk_dispatch_tick_cb tick; /* after each finished run; may be NULL */
   void *tick_data;
 } bk_dispatch_opts_t;

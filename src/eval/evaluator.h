@@ -5,8 +5,8 @@
  * evaluator; the evaluator fills the outputs, g and the fault of each
  * point. Implementations: in process (below, studies without a model
  * section), the local dispatcher (dispatch.h), the MPI coordinator
- * (mpi.h), a shard filter and a records server (shard.h). Evaluators know
- * nothing of statistics.
+ * (mpi_coord.h), a shard filter and a records server (shard.h).
+ * Evaluators know nothing of statistics.
  *
  * SPDX-License-Identifier: MIT
  */

@@ -9,11 +9,15 @@
  * fork costs a large parent. They are reaped from a SIGCHLD watcher, by pid,
  * so children that other parts of the program start are left alone. After the
  * group leader exits, however it exits, the group gets SIGKILL, so no child it
- * left behind outlives the run. Timeouts send SIGTERM to the group and SIGKILL
- * after the grace; a stop request (stop.h) does the same to every running group
- * and drops the queue. Every accepted job's callback runs exactly once, always
- * from inside the event loop: never from bk_exec_submit itself, which would
- * surprise a caller holding locks or iterating a list.
+ * left behind outlives the run: the leader's end is seen without reaping it
+ * (WNOWAIT), the group is killed while the unreaped leader keeps its id from
+ * being reused, and only then is the leader reaped. No signal ever goes to a
+ * group whose leader was reaped. Timeouts send SIGTERM to the group and
+ * SIGKILL after the grace; a stop request (stop.h) or a cancel does the same
+ * to every running group and drops the queue. Every accepted job's callback
+ * runs exactly once, always from inside the event loop: never from
+ * bk_exec_submit itself, which would surprise a caller holding locks or
+ * iterating a list.
  *
  * SPDX-License-Identifier: MIT
  */
@@ -32,12 +36,20 @@
 #include <stdint.h>
 #include <stdio.h>
 #include <string.h>
+#include <stdatomic.h>
+#include <sys/stat.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
 #include <uv.h>
 
 extern char **environ;
+
+static bk__exec_kill_fn kill_fn = kill;
+
+void bk__exec_set_kill(bk__exec_kill_fn fn) {
+  kill_fn = fn ? fn : kill;
+}
 
 /* How often the loop looks at the stop flag. A signal handler cannot touch
  * the loop safely, so the flag is polled; 50 ms is quick for a person and
@@ -110,8 +122,11 @@ struct bk_exec {
   job_list_t running;
   job_list_t deferred; /* finished without a process; callback pending */
   int nrunning;
-  int in_wait;  /* inside bk_exec_wait: handles exist, jobs may start */
-  int stopping; /* a stop was seen in this bk_exec_wait */
+  int in_wait;          /* inside bk_exec_wait: handles exist, jobs may start */
+  int stopping;         /* a stop or cancel is carried out in this wait */
+  atomic_int cancelled; /* bk_exec_cancel was called; cleared by the wait */
+  bk_exec_poll_cb poll_cb;
+  void *poll_data;
 };
 
 static void list_push(job_list_t *l, job_t *j) {
@@ -293,7 +308,7 @@ static void job_timer_init(job_t *j) {
 static void job_terminate(job_t *j) {
   if (j->phase != TIMER_TIMEOUT)
     return;
-  kill(-j->pid, SIGTERM);
+  kill_fn(-j->pid, SIGTERM);
   j->phase = TIMER_GRACE;
   job_timer_init(j);
   uv_timer_stop(&j->timer);
@@ -306,7 +321,7 @@ static void on_job_timer(uv_timer_t *t) {
     j->timed_out = 1;
     job_terminate(j);
   } else if (j->phase == TIMER_GRACE) {
-    kill(-j->pid, SIGKILL);
+    kill_fn(-j->pid, SIGKILL);
     j->phase = TIMER_IDLE;
   }
 }
@@ -353,14 +368,20 @@ static void running_remove(bk_exec_t *ex, job_t *j) {
     uv_unref((uv_handle_t *)&ex->chld);
 }
 
-/* The job's process was reaped with wait status `ws`. */
-static void job_exited(job_t *j, int ws) {
+/* The job's process has ended but is not reaped yet. */
+static void job_exited(job_t *j) {
   bk_exec_t *ex = j->ex;
 
   /* The leader is gone but its process group may not be: kill whatever it
-   * left behind. The group id cannot be reused while a member lives. */
-  kill(-j->pid, SIGKILL);
+   * left behind. The unreaped leader keeps the group id from being reused,
+   * so this cannot reach another group; reaping comes after. */
+  kill_fn(-j->pid, SIGKILL);
   bk_stop_unregister_pgid(j->pid);
+  int ws = 0;
+  pid_t r;
+  do
+    r = waitpid(j->pid, &ws, 0);
+  while (r < 0 && errno == EINTR);
 
   j->res.seconds = (double)(uv_hrtime() - j->t0) / 1e9;
   if (WIFSIGNALED(ws))
@@ -388,22 +409,28 @@ static job_t *running_find(bk_exec_t *ex, pid_t pid) {
   return NULL;
 }
 
+/* 1 when the process has ended (it stays unreaped). */
+static int has_ended(pid_t pid) {
+  siginfo_t si;
+  int r;
+  si.si_pid = 0;
+  do
+    r = waitid(P_PID, (id_t)pid, &si, WEXITED | WNOHANG | WNOWAIT);
+  while (r < 0 && errno == EINTR);
+  return r == 0 && si.si_pid == pid;
+}
+
 /* Asks every running job's process whether it has ended. */
 static void reap_each(bk_exec_t *ex) {
   job_t *next;
   for (job_t *j = ex->running.head; j; j = next) {
     next = j->next;
-    int ws;
-    pid_t r;
-    do
-      r = waitpid(j->pid, &ws, WNOHANG);
-    while (r < 0 && errno == EINTR);
-    if (r == j->pid)
-      job_exited(j, ws);
+    if (has_ended(j->pid))
+      job_exited(j);
   }
 }
 
-/* Reaps the ended processes of running jobs. A peek at any ended child
+/* Handles the ended processes of running jobs. A peek at any ended child
  * finds ours in one call each; a child this executor did not start (its
  * owner reaps it) sends us asking each of ours instead. */
 static void on_chld(uv_signal_t *h, int signum) {
@@ -420,17 +447,20 @@ static void on_chld(uv_signal_t *h, int signum) {
     if (si.si_pid == 0)
       break;
     job_t *j = running_find(ex, si.si_pid);
-    int ws;
-    if (!j || waitpid(j->pid, &ws, WNOHANG) != j->pid) {
+    if (!j) {
       reap_each(ex);
       break;
     }
-    job_exited(j, ws);
+    job_exited(j);
   }
 }
 
 /* Opens dir/name for the child's stdout or stderr (the shared /dev/null
- * when there is no name). Returns a descriptor >= 3, so the child's dup2
+ * when there is no name), empty. A file left there (a reused run folder)
+ * is written over only when it is a regular file with no other link: a
+ * hard link that a model made to a file elsewhere is removed and a new
+ * file made, so nothing outside the folder is truncated or written. Never
+ * follows a symbolic link. Returns a descriptor >= 3, so the child's dup2
  * onto 0, 1 and 2 cannot overwrite it, or a negative libuv code. */
 static int open_output(bk_exec_t *ex, const char *dir, const char *name) {
   char path[4096];
@@ -439,10 +469,22 @@ static int open_output(bk_exec_t *ex, const char *dir, const char *name) {
   int n = snprintf(path, sizeof path, "%s/%s", dir, name);
   if (n < 0 || (size_t)n >= sizeof path)
     return UV_ENAMETOOLONG;
-  int fd =
-      open(path, O_CREAT | O_TRUNC | O_WRONLY | O_CLOEXEC | O_NOFOLLOW, 0644);
+  int fd = open(path, O_CREAT | O_WRONLY | O_CLOEXEC | O_NOFOLLOW, 0644);
   if (fd < 0)
     return -errno;
+  struct stat st;
+  if (fstat(fd, &st) != 0 || !S_ISREG(st.st_mode) || st.st_nlink != 1) {
+    close(fd);
+    if (unlink(path) != 0 && errno != ENOENT)
+      return -errno;
+    fd = open(path, O_CREAT | O_EXCL | O_WRONLY | O_CLOEXEC | O_NOFOLLOW, 0644);
+    if (fd < 0)
+      return -errno;
+  } else if (st.st_size > 0 && ftruncate(fd, 0) != 0) {
+    int e = -errno;
+    close(fd);
+    return e;
+  }
   if (fd < 3) {
     int hi = fcntl(fd, F_DUPFD_CLOEXEC, 3);
     int e = errno;
@@ -651,10 +693,69 @@ static void begin_stop(bk_exec_t *ex) {
   }
 }
 
+static int must_stop(bk_exec_t *ex) {
+  return bk_stop_requested() || atomic_load(&ex->cancelled);
+}
+
 static void on_poll(uv_timer_t *t) {
   bk_exec_t *ex = t->data;
-  if (!ex->stopping && bk_stop_requested())
+  if (ex->poll_cb)
+    ex->poll_cb(ex->poll_data, ex);
+  if (!ex->stopping && must_stop(ex))
     begin_stop(ex);
+}
+
+void bk_exec_cancel(bk_exec_t *ex) {
+  atomic_store(&ex->cancelled, 1);
+  if (ex->in_wait && !ex->stopping)
+    begin_stop(ex);
+}
+
+int bk_exec_stopping(const bk_exec_t *ex) {
+  return ex->stopping || bk_stop_requested() ||
+         atomic_load(&((bk_exec_t *)ex)->cancelled);
+}
+
+typedef struct {
+  uv_work_t req;
+  bk_exec_work_cb work;
+  bk_exec_work_cb done;
+  void *data;
+} work_t;
+
+static void work_run(uv_work_t *req) {
+  work_t *w = req->data;
+  w->work(w->data);
+}
+
+static void work_after(uv_work_t *req, int status) {
+  (void)status;
+  work_t *w = req->data;
+  w->done(w->data);
+  bk_free(w);
+}
+
+int bk_exec_work(bk_exec_t *ex, bk_exec_work_cb work, bk_exec_work_cb done,
+                 void *data) {
+  if (!ex || !ex->in_wait || !work || !done)
+    return BK_EINVAL;
+  work_t *w = bk_malloc(sizeof *w);
+  if (!w)
+    return BK_ENOMEM;
+  w->req.data = w;
+  w->work = work;
+  w->done = done;
+  w->data = data;
+  if (uv_queue_work(&ex->loop, &w->req, work_run, work_after) != 0) {
+    bk_free(w);
+    return BK_EIO;
+  }
+  return 0;
+}
+
+void bk_exec_set_poll(bk_exec_t *ex, bk_exec_poll_cb cb, void *data) {
+  ex->poll_cb = cb;
+  ex->poll_data = data;
 }
 
 /* Runs the callbacks of jobs that finished without a process. Only the jobs
@@ -746,8 +847,10 @@ int bk_exec_submit(bk_exec_t *ex, const bk_job_t *job, bk_exec_cb cb,
                    void *data) {
   if (!ex || !job || !cb || !job->dir || !job->argv || !job->argv[0])
     return BK_EINVAL;
-  if (bk_stop_requested() || ex->stopping)
+  if (bk_stop_requested())
     return BK_ESTOPPED;
+  if (ex->stopping || atomic_load(&ex->cancelled))
+    return BK_ECANCELED;
 
   job_t *j = job_alloc(job);
   if (!j)
@@ -784,7 +887,7 @@ int bk_exec_wait(bk_exec_t *ex) {
   /* The poll timer alone must not keep the loop alive. */
   uv_unref((uv_handle_t *)&ex->poll);
 
-  if (bk_stop_requested())
+  if (must_stop(ex))
     begin_stop(ex);
   else
     fill_slots(ex);
@@ -799,10 +902,14 @@ int bk_exec_wait(bk_exec_t *ex) {
   uv_close((uv_handle_t *)&ex->idle, NULL);
   uv_run(&ex->loop, UV_RUN_DEFAULT);
 
-  int stopped = ex->stopping || bk_stop_requested();
+  int rc = bk_stop_requested()                ? BK_ESTOPPED
+           : atomic_load(&ex->cancelled) != 0 ? BK_ECANCELED
+           : ex->stopping                     ? BK_ESTOPPED
+                                              : 0;
+  atomic_store(&ex->cancelled, 0);
   ex->in_wait = 0;
   ex->stopping = 0;
-  return stopped ? BK_ESTOPPED : 0;
+  return rc;
 }
 
 int bk_exec_running(const bk_exec_t *ex) {

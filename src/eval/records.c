@@ -35,10 +35,20 @@
 #include "base/buf.h"
 #include "base/fault.h"
 
-#define FORMAT_MAGIC   "# brink-records "
-#define FORMAT_VERSION 1
+#define FORMAT_MAGIC "# brink-records "
+/* The version new logs get. Version 1 logs (one `note` column where
+ * version 2 has `reason` and `folder`) are still read, and appended to in
+ * their own format, so a run started by an earlier brink resumes. */
+#define FORMAT_VERSION 2
+#define FORMAT_OLDEST  1
 /* key status attempts seconds host g, before the x values. */
 #define NFIXED 6
+/* The text columns after the outputs, before crc: `reason` and `folder`
+ * (version 2), or `note` (version 1). */
+#define NTEXT(version) ((version) >= 2 ? 2 : 1)
+/* How a version 1 note joined the reason and the folder. */
+#define NOTE_FOLDER "folder "
+#define NOTE_JOIN   "; folder "
 /* The checksum field: TAB, 8 hex digits, newline. */
 #define CRC_TAIL      10
 #define READ_CHUNK    (1u << 20)
@@ -133,6 +143,7 @@ typedef struct {
  */
 struct bk_records {
   /* read-only after open */
+  int version; /* of the log's format: FORMAT_OLDEST..FORMAT_VERSION */
   char *path;
   char *lock_path;
   char *lock_text; /* "host:pid\n" when we hold the lock */
@@ -319,8 +330,8 @@ static int reader_next(reader_t *rd, const char **line, size_t *len,
 
 /* ---- Encoding ---------------------------------------------------------- */
 
-/* Text fields (host, note, names) are written with \\, \t, \n, \r and \xHH
- * for other control bytes, '#' and '"', so that a line never holds a TAB
+/* Text fields (host, reason, folder, names) are written with \\, \t, \n, \r and
+ * \xHH for other control bytes, '#' and '"', so that a line never holds a TAB
  * or newline of its own, every '#' in the file starts a header line (tools
  * that treat '#' as a comment anywhere read the log unharmed), and no field
  * starts with a quote that CSV readers would take as quoting. */
@@ -433,9 +444,20 @@ static int put_crc_tail(bk_buf_t *b, size_t from) {
   return bk_buf_printf(b, "\t%08" PRIx32 "\n", crc);
 }
 
-/* Appends the encoded line of rec to b. On failure b may hold a partial
- * line; the caller resets it. */
-static int encode_into(bk_buf_t *b, const bk_record_t *rec) {
+/* The note of a version 1 line: "REASON; folder PATH", "folder PATH",
+ * "REASON" or "". */
+static int put_note(bk_buf_t *b, const char *reason, const char *folder) {
+  int rc = put_escaped(b, reason);
+  if (*folder) {
+    rc |= bk_buf_puts(b, *reason ? NOTE_JOIN : NOTE_FOLDER);
+    rc |= put_escaped(b, folder);
+  }
+  return rc;
+}
+
+/* Appends the encoded line of rec, in format `version`, to b. On failure b
+ * may hold a partial line; the caller resets it. */
+static int encode_into(bk_buf_t *b, const bk_record_t *rec, int version) {
   if (!key_is_valid(rec->key) || rec->fault < 0 ||
       rec->fault >= BK_FAULT__COUNT || rec->attempts < 0 ||
       (rec->nx && !rec->x) || (rec->ny && !rec->y))
@@ -457,8 +479,16 @@ static int encode_into(bk_buf_t *b, const bk_record_t *rec) {
     rc |= bk_buf_putc(b, '\t');
     rc |= put_double(b, rec->y[i]);
   }
+  const char *reason = rec->reason ? rec->reason : "";
+  const char *folder = rec->folder ? rec->folder : "";
   rc |= bk_buf_putc(b, '\t');
-  rc |= put_escaped(b, rec->note ? rec->note : "");
+  if (version >= 2) {
+    rc |= put_escaped(b, reason);
+    rc |= bk_buf_putc(b, '\t');
+    rc |= put_escaped(b, folder);
+  } else {
+    rc |= put_note(b, reason, folder);
+  }
   if (rc)
     return BK_ENOMEM;
   return put_crc_tail(b, from);
@@ -469,7 +499,7 @@ int bk_records_encode(const bk_record_t *rec, char **line, size_t *len) {
   *len = 0;
   bk_buf_t b;
   bk_buf_init(&b);
-  int rc = encode_into(&b, rec);
+  int rc = encode_into(&b, rec, FORMAT_VERSION);
   if (rc) {
     bk_buf_close(&b);
     return rc;
@@ -497,6 +527,28 @@ static int parse_int(const char *s, int *v) {
   return 0;
 }
 
+/* Splits a version 1 note, in place, into the record's reason and folder
+ * (see put_note). A reason that itself held "; folder " is cut at the last
+ * one, which is where brink put the folder. */
+static void split_note(char *note, bk_record_t *rec) {
+  unescape(note);
+  rec->reason = note;
+  rec->folder = "";
+  size_t nf = sizeof NOTE_FOLDER - 1, nj = sizeof NOTE_JOIN - 1;
+  if (strncmp(note, NOTE_FOLDER, nf) == 0) {
+    rec->reason = "";
+    rec->folder = note + nf;
+    return;
+  }
+  char *last = NULL;
+  for (char *p = note; (p = strstr(p, NOTE_JOIN)); p++)
+    last = p;
+  if (last) {
+    *last = '\0';
+    rec->folder = last + nj;
+  }
+}
+
 /* Parses line [data, data+n) (newline included) into p. Returns 0, or -1
  * when the line is not a record of this log's shape (a line that passed
  * its checksum can fail here only if it was written by another program). */
@@ -507,9 +559,10 @@ static int parse_line(const bk_records_t *r, parsed_t *p, const char *data,
   bk_buf_reset(&p->line);
   if (bk_buf_append(&p->line, data, n - CRC_TAIL))
     return -1;
-  /* Fields key..note: NFIXED + nx + ny + 1 of them. */
-  size_t want = NFIXED + r->nx + r->ny + 1, k = 0;
-  char *fixed[NFIXED + 1];
+  /* Fields key..folder: NFIXED + nx + ny + NTEXT of them. */
+  size_t ntext = NTEXT(r->version);
+  size_t want = NFIXED + r->nx + r->ny + ntext, k = 0;
+  char *fixed[NFIXED + 2];
   char *s = p->line.data;
   for (;;) {
     char *tab = strchr(s, '\t');
@@ -520,11 +573,11 @@ static int parse_line(const bk_records_t *r, parsed_t *p, const char *data,
     } else if (k < NFIXED + r->nx) {
       if (parse_double(s, &p->x[k - NFIXED]))
         return -1;
-    } else if (k < want - 1) {
+    } else if (k < NFIXED + r->nx + r->ny) {
       if (parse_double(s, &p->y[k - NFIXED - r->nx]))
         return -1;
-    } else if (k == want - 1) {
-      fixed[NFIXED] = s;
+    } else if (k < want) {
+      fixed[k - r->nx - r->ny] = s;
     }
     k++;
     if (!tab)
@@ -541,9 +594,15 @@ static int parse_line(const bk_records_t *r, parsed_t *p, const char *data,
       parse_double(fixed[3], &rec->seconds) || parse_double(fixed[5], &rec->g))
     return -1;
   unescape(fixed[4]);
-  unescape(fixed[NFIXED]);
   rec->host = fixed[4];
-  rec->note = fixed[NFIXED];
+  if (ntext == 2) {
+    unescape(fixed[NFIXED]);
+    unescape(fixed[NFIXED + 1]);
+    rec->reason = fixed[NFIXED];
+    rec->folder = fixed[NFIXED + 1];
+  } else {
+    split_note(fixed[NFIXED], rec);
+  }
   rec->nx = r->nx;
   rec->x = p->x;
   rec->ny = r->ny;
@@ -708,7 +767,7 @@ static int put_header(bk_buf_t *b, const bk_records_opts_t *o) {
     rc |= bk_buf_putc(b, '\t');
     rc |= put_escaped(b, o->ynames[i]);
   }
-  rc |= bk_buf_puts(b, "\tnote\tcrc\n");
+  rc |= bk_buf_puts(b, "\treason\tfolder\tcrc\n");
   return rc ? BK_ENOMEM : 0;
 }
 
@@ -954,13 +1013,15 @@ static int load(bk_records_t *r, const bk_records_opts_t *o, bk_error_t *err) {
                           FORMAT_VERSION);
         goto done;
       }
-      if (version != FORMAT_VERSION) {
+      if (version < FORMAT_OLDEST || version > FORMAT_VERSION) {
         rc = bk_error_set(err, BK_EMISMATCH, r->path, 1, 0,
                           "records format version %d; this brink reads "
-                          "version %d",
-                          version, FORMAT_VERSION);
+                          "versions %d to %d. Use the brink that wrote it, "
+                          "or a new run.folder",
+                          version, FORMAT_OLDEST, FORMAT_VERSION);
         goto done;
       }
+      r->version = version;
       continue;
     }
     if (line[0] != '#')
@@ -981,7 +1042,8 @@ static int load(bk_records_t *r, const bk_records_opts_t *o, bk_error_t *err) {
   }
   h.ncolumns = (size_t)nc;
   if (h.nx < 0 || h.ny < 0 ||
-      h.ncolumns != NFIXED + (size_t)h.nx + (size_t)h.ny + 2 ||
+      h.ncolumns !=
+          NFIXED + (size_t)h.nx + (size_t)h.ny + NTEXT(r->version) + 1 ||
       strcmp(h.columns[0], "key") != 0) {
     rc = bk_error_set(err, BK_ECORRUPT, r->path, lineno, 0,
                       "the column line does not match the '# inputs' and "
@@ -1022,7 +1084,7 @@ static int load(bk_records_t *r, const bk_records_opts_t *o, bk_error_t *err) {
 
   /* The records. A line that fails its check is dropped when it is the
    * last line; before the last it is damage we refuse. */
-  size_t want_tabs = NFIXED + r->nx + r->ny;
+  size_t want_tabs = NFIXED + r->nx + r->ny + NTEXT(r->version) - 1;
   const char *bad = NULL;
   int bad_line = 0;
   uint64_t bad_off = 0;
@@ -1432,7 +1494,7 @@ int bk_records_append(bk_records_t *r, const bk_record_t *rec,
                         rec->key ? rec->key : "(null)", rec->nx, rec->ny,
                         r->path, r->nx, r->ny);
   bk_buf_reset(&r->wbuf);
-  int rc = encode_into(&r->wbuf, rec);
+  int rc = encode_into(&r->wbuf, rec, r->version);
   if (rc == BK_EINVAL)
     return bk_error_set(err, rc, NULL, 0, 0,
                         "cannot record '%s': a key must be non-empty "
@@ -1452,8 +1514,8 @@ int bk_records_append(bk_records_t *r, const bk_record_t *rec,
     if (ftruncate(r->fd, (off_t)end) != 0)
       r->broken = rc;
     if (rc == -ENOSPC || rc == -EDQUOT) {
-      bk_error_set(err, BK_ENOSPC, NULL, 0, 0,
-                   "cannot write records to %s: %s", r->path, strerror(-rc));
+      bk_error_set(err, BK_ENOSPC, NULL, 0, 0, "cannot write records to %s: %s",
+                   r->path, strerror(-rc));
       return BK_ENOSPC;
     }
     return bk_error_set(err, rc, NULL, 0, 0, "cannot write records to %s: %s",
@@ -1536,6 +1598,10 @@ const bk_fingerprint_part_t *bk_records_parts(const bk_records_t *r,
                                               size_t *nparts) {
   *nparts = r->nparts;
   return r->parts;
+}
+
+int bk_records_version(const bk_records_t *r) {
+  return r->version;
 }
 
 const char *bk_records_tool(const bk_records_t *r) {

@@ -32,7 +32,9 @@ typedef struct {
   int attempts;
   double seconds; /* wall time of the last attempt */
   const char *host;
-  const char *note; /* fault reason or run folder kept; may be "" */
+  const char *reason; /* why the run faulted ("exit status 3"); "" when ok */
+  const char *folder; /* the run folder kept (a path, or HOST:PATH when it
+                         stayed on a node's scratch disk); "" when removed */
 } bk_record_t;
 
 /* One part of the study fingerprint, e.g. {"study", "3f2a..."} or
@@ -106,10 +108,14 @@ typedef int (*bk_records_cb)(void *data, const bk_record_t *rec);
  * scan are not visited. */
 int bk_records_scan(bk_records_t *r, bk_records_cb cb, void *data);
 
-/* Encodes one record as a log line (with its checksum and newline) into
- * a new string freed with bk_free. Returns 0, BK_EINVAL for a key that is
- * empty or holds a blank, a control character or '#', an unknown fault or
- * negative attempts, or BK_ENOMEM. */
+/* The format version of the open log (2 for new logs; 1 for a log made
+ * by an earlier brink, which is appended to in its own format). */
+int bk_records_version(const bk_records_t *r);
+
+/* Encodes one record as a log line of the current format (with its
+ * checksum and newline) into a new string freed with bk_free. Returns 0,
+ * BK_EINVAL for a key that is empty or holds a blank, a control character or
+ * '#', an unknown fault or negative attempts, or BK_ENOMEM. */
 int bk_records_encode(const bk_record_t *rec, char **line, size_t *len);
 
 /* What the header says, for report and export on a folder (any_study).

@@ -14,6 +14,7 @@
 #include "base/alloc.h"
 #include "base/buf.h"
 #include "base/fault.h"
+#include "eval/replay.h"
 
 #define MAX_SHARDS 1000000u
 
@@ -178,37 +179,25 @@ static int serve_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
   bk_serve_t *sv = ev->data;
   const bk_study_t *s = sv->study;
   for (size_t i = 0; i < n; i++) {
-    char key[96];
-    snprintf(key, sizeof key, "%s/%llu", prefix,
-             (unsigned long long)pts[i].index);
-    bk_record_t rec;
-    int found = 0;
-    for (size_t l = 0; !found && l < sv->nlogs; l++)
-      found = bk_records_find(sv->logs[l], key, &rec);
-    if (!found) {
-      uint32_t owner = sv->count ? (uint32_t)(pts[i].index % sv->count) : 0;
-      if (sv->missing) {
-        if (sv->missing[owner]++ == 0 && sv->first)
-          snprintf(sv->first[owner], sizeof sv->first[owner], "%s", key);
-      }
-      for (size_t k = 0; k < s->model.noutputs; k++)
-        pts[i].y[k] = NAN;
-      pts[i].g = 1.0;
-      pts[i].fault = BK_FAULT_NONE;
+    char key[BK_REPLAY_KEY_MAX];
+    bk_replay_key(key, sizeof key, prefix, pts[i].index);
+    int found = bk_replay_point(sv->logs, sv->nlogs, key, s->nvars,
+                                s->model.noutputs, &pts[i], NULL, err);
+    if (found < 0)
+      return found;
+    if (found) {
+      sv->served++;
       continue;
     }
-    if (rec.nx != s->nvars ||
-        (s->nvars && memcmp(rec.x, pts[i].x, s->nvars * sizeof *rec.x)))
-      return bk_error_set(err, BK_EMISMATCH, NULL, 0, 0,
-                          "the recorded inputs of %s differ from the ones "
-                          "this study gives; the records were made "
-                          "differently (another brink version?)",
-                          key);
-    for (size_t k = 0; k < s->model.noutputs && k < rec.ny; k++)
-      pts[i].y[k] = rec.y[k];
-    pts[i].g = rec.g;
-    pts[i].fault = rec.fault;
-    sv->served++;
+    uint32_t owner = sv->count ? (uint32_t)(pts[i].index % sv->count) : 0;
+    if (sv->missing) {
+      if (sv->missing[owner]++ == 0 && sv->first)
+        snprintf(sv->first[owner], sizeof sv->first[owner], "%s", key);
+    }
+    for (size_t k = 0; k < s->model.noutputs; k++)
+      pts[i].y[k] = NAN;
+    pts[i].g = 1.0;
+    pts[i].fault = BK_FAULT_NONE;
   }
   return 0;
 }

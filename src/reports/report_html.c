@@ -213,11 +213,17 @@ static int read_file(const char *path, bk_buf_t *b) {
 
 /* ---- the samples behind the charts ------------------------------------ */
 
+/* A model error as the report lists it. */
 typedef struct {
   char *key;
   int fault;
-  char *note;
+  char *reason;
+  char *folder;
+  double *x; /* the run's inputs, nx of them */
 } model_error_t;
+
+/* How many model errors the report lists (all are counted). */
+#define ERRSHOWN 500
 
 typedef struct {
   size_t nx;
@@ -226,8 +232,8 @@ typedef struct {
   double *g;
   double *sec; /* NaN in process */
   size_t nok, nfail;
-  model_error_t *err;
-  size_t nerr, caperr;
+  model_error_t *err;  /* the first ERRSHOWN */
+  size_t nerr, caperr; /* nerr counts them all */
   size_t errs_by_kind[BK_FAULT__COUNT];
   int from_records;
   size_t limit; /* in process: how many points were kept */
@@ -271,9 +277,11 @@ static void samples_close(samples_t *s) {
   bk_free(s->x);
   bk_free(s->g);
   bk_free(s->sec);
-  for (size_t i = 0; i < s->nerr; i++) {
+  for (size_t i = 0; i < s->nerr && i < ERRSHOWN; i++) {
     bk_free(s->err[i].key);
-    bk_free(s->err[i].note);
+    bk_free(s->err[i].reason);
+    bk_free(s->err[i].folder);
+    bk_free(s->err[i].x);
   }
   bk_free(s->err);
   bk_free(s->sum);
@@ -315,6 +323,10 @@ static int on_record(void *data, const bk_record_t *r) {
   if (r->fault != BK_FAULT_NONE) {
     if (r->fault > 0 && r->fault < BK_FAULT__COUNT)
       s->errs_by_kind[r->fault]++;
+    if (s->nerr >= ERRSHOWN) {
+      s->nerr++;
+      return 0;
+    }
     if (s->nerr == s->caperr) {
       size_t cap = s->caperr ? 2 * s->caperr : 16;
       model_error_t *ne = bk_realloc(s->err, cap * sizeof *ne);
@@ -323,10 +335,16 @@ static int on_record(void *data, const bk_record_t *r) {
       s->err = ne;
       s->caperr = cap;
     }
-    s->err[s->nerr].key = bk_strdup(r->key);
-    s->err[s->nerr].fault = r->fault;
-    s->err[s->nerr].note = bk_strdup(r->note ? r->note : "");
-    s->nerr++;
+    model_error_t *e = &s->err[s->nerr++];
+    e->key = bk_strdup(r->key);
+    e->fault = r->fault;
+    e->reason = bk_strdup(r->reason ? r->reason : "");
+    e->folder = bk_strdup(r->folder ? r->folder : "");
+    e->x = r->nx == s->nx ? bk_calloc(s->nx + 1, sizeof *e->x) : NULL;
+    if (!e->key || !e->reason || !e->folder || (r->nx == s->nx && !e->x))
+      return BK_ENOMEM;
+    if (e->x && s->nx)
+      memcpy(e->x, r->x, s->nx * sizeof *e->x);
     return 0;
   }
   if (r->nx != s->nx)
@@ -1043,7 +1061,8 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
   bk_buf_close(&v);
 }
 
-static void errors_section(bk_buf_t *o, const samples_t *s) {
+static void errors_section(bk_buf_t *o, const bk_study_t *st,
+                           const samples_t *s) {
   if (!s->from_records)
     return;
   bk_buf_puts(o, "<h2>Model errors</h2>\n");
@@ -1052,15 +1071,27 @@ static void errors_section(bk_buf_t *o, const samples_t *s) {
     return;
   }
   bk_buf_puts(o, "<table data-table=\"model-errors\">\n<tr><th>evaluation"
-                 "</th><th>kind</th><th>what happened, and the run folder "
-                 "kept</th></tr>\n");
-  size_t shown = s->nerr < 500 ? s->nerr : 500;
+                 "</th><th>kind</th><th>what happened</th><th>inputs</th>"
+                 "<th>run folder kept</th></tr>\n");
+  size_t shown = s->nerr < ERRSHOWN ? s->nerr : ERRSHOWN;
   for (size_t i = 0; i < shown; i++) {
+    const model_error_t *e = &s->err[i];
     bk_buf_puts(o, "<tr><td><code>");
-    esc(o, s->err[i].key);
-    bk_buf_printf(o, "</code></td><td>%s</td><td>",
-                  bk_fault_name(s->err[i].fault));
-    esc(o, s->err[i].note);
+    esc(o, e->key);
+    bk_buf_printf(o, "</code></td><td>%s</td><td>", bk_fault_name(e->fault));
+    esc(o, e->reason);
+    bk_buf_puts(o, "</td><td class=\"n\">");
+    for (size_t k = 0; e->x && k < s->nx && k < st->nvars; k++) {
+      bk_buf_puts(o, k ? ", " : "");
+      esc(o, st->vars[k].name);
+      bk_buf_printf(o, " = %.6g", e->x[k]);
+    }
+    bk_buf_puts(o, "</td><td>");
+    if (e->folder[0]) {
+      bk_buf_puts(o, "<code>");
+      esc(o, e->folder);
+      bk_buf_puts(o, "</code>");
+    }
     bk_buf_puts(o, "</td></tr>\n");
   }
   bk_buf_puts(o, "</table>\n");
@@ -1192,7 +1223,7 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
     chart_scatter(o, st, &s, rk, nr);
   chart_times(o, &s);
   bk_free(rk);
-  errors_section(o, &s);
+  errors_section(o, st, &s);
   study_section(o, st, &j);
   bk_buf_puts(o, "</body>\n</html>\n");
   samples_close(&s);

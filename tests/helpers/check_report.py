@@ -48,7 +48,7 @@ if not inproc:
     for r, j in zip(rows, lines):
         check(r["key"] == j["key"], "key order differs")
         for name, v in r.items():
-            if name in ("key", "status", "host", "note", "failed") or \
+            if name in ("key", "status", "host", "reason", "folder", "failed") or \
                     name.startswith("_"):
                 continue
             jv = j[name]

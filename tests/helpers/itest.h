@@ -110,8 +110,8 @@ static inline pid_t brink_background(const char *args) {
 }
 
 /* The records of a log as comparable text: every line without '#', with
- * the columns that do not depend on timing or place (seconds, host, note,
- * checksum) removed, sorted by key. */
+ * the columns that depend on timing or place (seconds, host, folder,
+ * checksum) removed, sorted by key. The reason of a fault is kept. */
 static inline char *canonical_records(const char *folder) {
   /* The text is kept in the test folder itself (FOLDER with '/' made '_'),
    * not below FOLDER, which may be on a file system a test filled up. */
