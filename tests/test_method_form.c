@@ -72,6 +72,20 @@ static int has_warning(const bk_result_t *r, const char *text) {
   return 0;
 }
 
+static int has_note(const bk_result_t *r, const char *text) {
+  for (size_t i = 0; i < r->nnotes; i++)
+    if (strstr(r->notes[i], text))
+      return 1;
+  return 0;
+}
+
+static double detail(const bk_result_t *r, const char *label) {
+  for (size_t i = 0; i < r->ndetails; i++)
+    if (strcmp(r->details[i].label, label) == 0)
+      return r->details[i].value;
+  return NAN;
+}
+
 /* Cornell (1969): g = R - S with normal R, S is linear in u, so FORM is
  * exact: beta = (mR - mS) / sqrt(sR^2 + sS^2 - 2 rho sR sS). With
  * correlation the Nataf rho0 of two normals is rho itself (Liu & Der
@@ -101,9 +115,13 @@ Test(method_form, linear_in_normals_gives_the_exact_beta) {
       cr_expect(fabs(r.est.pf - bk_norm_cdf(-beta)) < 1e-10 * r.est.pf);
       cr_assert(r.dp.present && r.dp.converged);
       /* The linear case converges on the second iterate: the first step
-       * lands on the surface. */
+       * lands on the surface; the exploration adds its own runs and finds
+       * no other design point. */
       cr_expect_eq(r.dp.iterations, 2);
-      cr_expect_eq(r.evaluations, 2 * (di ? 5 : 3));
+      cr_expect_eq(r.evaluations - (uint64_t)detail(&r, "exploration runs"),
+                   2 * (di ? 5 : 3));
+      cr_expect_eq(detail(&r, "design points found"), 1);
+      cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
       cr_expect_str_eq(r.est.ci_method,
                        "none (FORM is not a sampling estimate)");
       cr_expect(isnan(r.est.cov));
@@ -324,15 +342,15 @@ static int spy_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
 
 /* Each iteration is one batch "form/iK": the iterate and its nu (forward)
  * or 2 nu (central) difference points; the curvature points are one batch
- * "form/h" of 2 m^2 points for m = nu - 1. */
+ * "form/h" of 2 m^2 points for m = nu - 1 (without exploration). */
 Test(method_form, each_iteration_is_one_batch) {
-  bk_study_t *s = study_from(
-      "variables:\n"
-      "  a: {type: normal, mean: 0, sd: 1}\n"
-      "  b: {type: normal, mean: 0, sd: 1}\n"
-      "  c: {type: normal, mean: 0, sd: 1}\n"
-      "limit_state: 3 - c + 0.05*a^2 + 0.02*b^2\n"
-      "analysis: {method: form, form: {sorm: true, differences: central}}\n");
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "  c: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3 - c + 0.05*a^2 + 0.02*b^2\n"
+                             "analysis: {method: form, form: {sorm: true, "
+                             "differences: central, explore: false}}\n");
   spy_t sp = {.s = s};
   bk_evaluator_t ev = {spy_batch, &sp};
   bk_result_t r;
@@ -351,6 +369,53 @@ Test(method_form, each_iteration_is_one_batch) {
   cr_expect_str_eq(sp.prefixes[sp.nbatches - 1], "form/h");
   cr_expect_eq(sp.sizes[sp.nbatches - 1], 8); /* 2 m^2, m = 2 */
   cr_expect_eq(r.evaluations, (uint64_t)(7 * (sp.nbatches - 1) + 8));
+  cr_expect(has_note(&r, "exploration is off"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* With exploration (the default) the keys name each part: search 0
+ * "form/iK", the curvature check of its design point "form/h" (the 2 m
+ * points u +- h r_i, the first of the SORM batch, whose other 2 m (m - 1)
+ * points follow under the same prefix from index 2 m), the probe
+ * "form/p" of 2 nu + 32 points from index 0. On this single design point
+ * the probe starts no search. */
+Test(method_form, exploration_batches_are_named_per_part) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "  c: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3 - c + 0.05*a^2 + 0.02*b^2\n"
+                             "analysis: {method: form, form: {sorm: true}}\n");
+  spy_t sp = {.s = s};
+  bk_evaluator_t ev = {spy_batch, &sp};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), 0, "%s", err.msg);
+  cr_assert(r.dp.converged);
+  int n = sp.nbatches;
+  cr_assert_geq(n, 4);
+  for (int i = 0; i < n - 3; i++)
+    cr_expect(strncmp(sp.prefixes[i], "form/i", 6) == 0, "%s",
+              sp.prefixes[i]);
+  cr_expect_str_eq(sp.prefixes[n - 3], "form/h");
+  cr_expect_eq(sp.sizes[n - 3], 4);
+  cr_expect_eq(sp.first[n - 3], 0);
+  cr_expect_str_eq(sp.prefixes[n - 2], "form/p");
+  cr_expect_eq(sp.sizes[n - 2], 2 * 3 + 32);
+  cr_expect_eq(sp.first[n - 2], 0);
+  cr_expect_str_eq(sp.prefixes[n - 1], "form/h");
+  cr_expect_eq(sp.sizes[n - 1], 4);
+  cr_expect_eq(sp.first[n - 1], 4);
+  cr_expect_eq(detail(&r, "exploration runs"), 4 + 38);
+  cr_expect_eq(detail(&r, "design points found"), 1);
+  cr_expect(has_note(&r, "design-point exploration: 42 runs"), "%s",
+            r.nnotes ? r.notes[0] : "(none)");
+  /* Breitung's product with kappa = 0.1, 0.04 (2 k_i). */
+  double want = bk_norm_cdf(-3) / sqrt((1 + 0.3) * (1 + 0.12));
+  cr_expect(fabs(r.dp.pf_sorm - want) < 1e-4 * want, "SORM %.8g want %.8g",
+            r.dp.pf_sorm, want);
   bk_result_close(&r);
   bk_study_free(s);
 }
@@ -392,7 +457,7 @@ Test(method_form, faulted_gradient_points_are_retried_then_reported) {
 
 /* With a model, FORM obeys model.max_error_fraction like every method
  * (mctx.h): one faulted gradient point among the dozen evaluations of the
- * search is above the default 5%, and the run stops with a message naming
+ * search (without exploration) is above the default 5%, and the run stops with a message naming
  * the fault kind and its first key; allowed 20%, the same search ends
  * normally. (The spy evaluates the limit state itself; the model section
  * only makes the study one with a model.) */
@@ -405,7 +470,7 @@ Test(method_form, the_error_limit_applies_to_form) {
                       "  outputs: {y: {file: out.txt, pattern: 'y = (\\S+)'}}\n"
                       "  max_error_fraction: %s\n"
                       "limit_state: 3 - b + 0.1*a^2\n"
-                      "analysis: {method: form}\n";
+                      "analysis: {method: form, form: {explore: false}}\n";
   bk_study_t *s = study_from(study, "0.05");
   spy_t sp = {.s = s, .fault_prefix = "form/i1", .fault_index = 2};
   bk_evaluator_t ev = {spy_batch, &sp};
