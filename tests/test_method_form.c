@@ -14,6 +14,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/resource.h>
 #include <unistd.h>
 
 #include "base/fault.h"
@@ -558,5 +559,202 @@ Test(method_form, runs_are_reproducible) {
   cr_expect(memcmp(&a.dp.pf_sorm, &b.dp.pf_sorm, sizeof(double)) == 0);
   bk_result_close(&a);
   bk_result_close(&b);
+  bk_study_free(s);
+}
+
+/* g = 5 - b - a^2/2 from the medians with central differences: the
+ * search goes straight up the b axis to (0, 5), where the gradient is
+ * (0, -1) and the iteration converges, but the curvature there is -1 and
+ * 1 + beta kappa = -4 <= 0: a saddle of the distance, not a design point
+ * (Der Kiureghian & Dakessian 1998 use this parabola). The restarts on
+ * both sides along the tangent axis find the two design points: on the
+ * surface |u|^2 = a^2 + b^2 = 10 - 2b + b^2, least at b = 1, a = +-sqrt(8),
+ * beta = 3 (closed form). */
+Test(method_form, a_saddle_restarts_towards_both_design_points) {
+  bk_study_t *s =
+      study_from("variables:\n"
+                 "  a: {type: normal, mean: 0, sd: 1}\n"
+                 "  b: {type: normal, mean: 0, sd: 1}\n"
+                 "limit_state: 5 - b - 0.5*a^2\n"
+                 "analysis: {method: form, form: {differences: central, "
+                 "tolerance: 1e-6}}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta - 3) < 1e-4, "beta %.8g", r.dp.beta);
+  cr_expect(fabs(fabs(r.dp.u[0]) - sqrt(8)) < 1e-3 &&
+                fabs(r.dp.u[1] - 1) < 1e-3,
+            "u* (%g, %g)", r.dp.u[0], r.dp.u[1]);
+  cr_expect_eq(detail(&r, "design points found"), 2);
+  cr_expect(has_warning(&r, "FORM found 2 design points"));
+  cr_expect(has_note(&r, "1 saddle point of the distance left"), "%s",
+            r.nnotes ? r.notes[0] : "(none)");
+  bk_result_close(&r);
+  /* Without exploration the saddle is what the search reports. */
+  bk_study_free(s);
+  s = study_from("variables:\n"
+                 "  a: {type: normal, mean: 0, sd: 1}\n"
+                 "  b: {type: normal, mean: 0, sd: 1}\n"
+                 "limit_state: 5 - b - 0.5*a^2\n"
+                 "analysis: {method: form, form: {differences: central, "
+                 "explore: false}}\n");
+  run(s, &r);
+  cr_expect(fabs(r.dp.beta - 5) < 1e-6, "beta %.8g", r.dp.beta);
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* The modified Rastrigin limit state of the coverage problems
+ * (tests/ref/gen_problems.py; Echard, Gayton & Lemaire 2011): g = 20 at
+ * the medians and many small failure regions. From the medians the search
+ * converges on the far side of one (beta < 0 with g(0) > 0), which is no
+ * design point: it is never called converged with a negative beta, and
+ * the result warns. With central differences the gradient vanishes at the
+ * medians (g is even in each u_i), which is said, and the probe's
+ * searches go on from elsewhere; failures exist, so the result is not "no
+ * failure domain". */
+Test(method_form, rastrigin_far_sides_and_a_vanishing_gradient) {
+  const char *diffs[] = {"forward", "central"};
+  for (int i = 0; i < 2; i++) {
+    bk_study_t *s = study_from(
+        "variables:\n"
+        "  u1: {type: normal, mean: 0, sd: 1}\n"
+        "  u2: {type: normal, mean: 0, sd: 1}\n"
+        "limit_state: 10 - (u1^2 - 5*cos(2*3.141592653589793*u1)) - "
+        "(u2^2 - 5*cos(2*3.141592653589793*u2))\n"
+        "analysis: {method: form, form: {differences: %s}}\n",
+        diffs[i]);
+    bk_result_t r;
+    run(s, &r);
+    cr_expect(!(r.dp.converged && r.dp.beta < 0), "%s: beta %g converged",
+              diffs[i], r.dp.beta);
+    cr_expect(!(r.est.pf > 0.5), "%s: Pf %g", diffs[i], r.est.pf);
+    cr_expect_gt(r.nwarnings, 0, "%s", diffs[i]);
+    cr_expect(!has_warning(&r, "no failure domain"), "%s", diffs[i]);
+    cr_expect_gt(r.est.failures, 0);
+    bk_result_close(&r);
+    bk_study_free(s);
+  }
+  /* Without exploration the vanishing gradient is named as such. */
+  bk_study_t *s = study_from(
+      "variables:\n"
+      "  u1: {type: normal, mean: 0, sd: 1}\n"
+      "  u2: {type: normal, mean: 0, sd: 1}\n"
+      "limit_state: 10 - (u1^2 - 5*cos(2*3.141592653589793*u1)) - "
+      "(u2^2 - 5*cos(2*3.141592653589793*u2))\n"
+      "analysis: {method: form, form: {differences: central, explore: "
+      "false}}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_expect(has_warning(&r, "the gradient of g vanishes at the medians"),
+            "%s", r.nwarnings ? r.warnings[0] : "(none)");
+  cr_expect(!has_warning(&r, "no failure domain"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* g = -1 + (a + b)/sqrt(2) fails at the medians: beta is negative,
+ * -1, and Pf = Phi(1) = 0.8413447461 (Abramowitz & Stegun Table 26.1),
+ * with a note that says so (Cornell 1969: linear in normals, exact). */
+Test(method_form, failing_medians_give_a_negative_beta) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: -1 + (a + b)/sqrt(2)\n"
+                             "analysis: {method: form}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta + 1) < 1e-8, "beta %.10g", r.dp.beta);
+  cr_expect(fabs(r.est.pf - 0.8413447461) < 1e-9, "Pf %.10g", r.est.pf);
+  cr_expect(has_note(&r, "the medians fail"));
+  cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* Above 50 variables the exploration is a probe only, and the report says
+ * that further design points cannot be excluded. SORM on 60 variables,
+ * g = 3 - u60 + sum_{i<60} k_i u_i^2 with k_i = 0.01 i - 0.15 (59
+ * curvatures 2 k_i, from -0.28 to 0.88), against Breitung's product
+ * prod (1 + 6 k_i)^-1/2 computed here in closed form; the curvatures
+ * (eigenvalues of a 59 x 59 Hessian) come from the tridiagonal QL
+ * routine, the details list the smallest and largest. */
+Test(method_form, sorm_in_60_variables_and_the_note_of_a_large_study) {
+  char text[8192];
+  int o = snprintf(text, sizeof text, "variables:\n");
+  for (int i = 1; i <= 60; i++)
+    o += snprintf(text + o, sizeof text - o,
+                  "  u%d: {type: normal, mean: 0, sd: 1}\n", i);
+  o += snprintf(text + o, sizeof text - o, "limit_state: 3 - u60");
+  double logf = 0;
+  for (int i = 1; i < 60; i++) {
+    double k = 0.01 * i - 0.15;
+    o += snprintf(text + o, sizeof text - o, " + %.2f*u%d^2", k, i);
+    logf -= 0.5 * log(1 + 6 * k);
+  }
+  snprintf(text + o, sizeof text - o,
+           "\nanalysis: {method: form, form: {sorm: true, differences: "
+           "central, tolerance: 1e-6}}\n");
+  bk_study_t *s = study_from("%s", text);
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta - 3) < 1e-6, "beta %.10g", r.dp.beta);
+  double want = bk_norm_cdf(-3) * exp(logf);
+  cr_expect(fabs(r.dp.pf_sorm / want - 1) < 1e-3, "SORM %.8g want %.8g",
+            r.dp.pf_sorm, want);
+  cr_expect(fabs(detail(&r, "smallest curvature") + 0.28) < 1e-3);
+  cr_expect(fabs(detail(&r, "largest curvature") - 0.88) < 1e-3);
+  cr_expect(has_note(&r, "further design points cannot be excluded"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* FORM and SORM with 1000 variables, g = 3.09 sqrt(1000) - sum u_i (the
+ * coverage problem `linear 1000 3.09`, Cornell 1969: beta = 3.09 exact,
+ * all curvatures 0 so SORM = FORM): the 2 (nu - 1)^2 = 1996002 curvature
+ * points go to the evaluator in chunks generated by index, so the whole
+ * run stays within a few tens of MB (it once allocated the batch whole and
+ * was killed at 24 GB). The peak resident size of this test's process is
+ * checked against 512 MB (getrusage, ru_maxrss in kB). */
+Test(method_form, sorm_with_1000_variables_in_flat_memory, .timeout = 0) {
+  size_t cap = 1 << 17, o = 0;
+  char *text = malloc(cap);
+  cr_assert(text);
+  o += (size_t)snprintf(text + o, cap - o, "variables:\n");
+  for (int i = 1; i <= 1000; i++)
+    o += (size_t)snprintf(text + o, cap - o,
+                          "  u%d: {type: normal, mean: 0, sd: 1}\n", i);
+  o += (size_t)snprintf(text + o, cap - o, "limit_state: \"%.17g",
+                        3.09 * sqrt(1000.0));
+  for (int i = 1; i <= 1000; i++)
+    o += (size_t)snprintf(text + o, cap - o, " - u%d", i);
+  snprintf(text + o, cap - o,
+           "\"\nanalysis: {method: form, form: {sorm: true}}\n");
+  char path[512];
+  snprintf(path, sizeof path, "%s/study.yaml", dir);
+  FILE *fp = fopen(path, "w");
+  cr_assert(fp);
+  fputs(text, fp);
+  fclose(fp);
+  free(text);
+  bk_study_t *s;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_study_load(path, &s, &err), 0, "%s", err.msg);
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta - 3.09) < 1e-6, "beta %.10g", r.dp.beta);
+  cr_expect(fabs(r.dp.pf_sorm / r.dp.pf_form - 1) < 1e-3, "SORM %g FORM %g",
+            r.dp.pf_sorm, r.dp.pf_form);
+  /* Search 0 (2 x 1001), the probe (32), the curvature batch. */
+  cr_expect_eq(r.evaluations, 2 * 1001 + 32 + 2 * 999 * 999);
+  struct rusage ru;
+  cr_assert_eq(getrusage(RUSAGE_SELF, &ru), 0);
+  cr_expect_lt(ru.ru_maxrss, 512 * 1024, "peak resident %ld kB",
+               ru.ru_maxrss);
+  bk_result_close(&r);
   bk_study_free(s);
 }

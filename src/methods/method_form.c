@@ -1334,7 +1334,20 @@ static int fill_result(form_t *f) {
             "no design point";
     if (!why)
       why = "no search converged";
-    if (failures == 0 && !f->capped0) {
+    if (f->zero_grad0 && failures == 0 && f->nprobe == 0) {
+      bk_result_warn(res,
+                     "FORM could not start: the gradient of g vanishes at "
+                     "the medians (g = %g there), so the search has no "
+                     "direction, and none of the %llu evaluations had "
+                     "g <= 0, which says nothing of the failure domain; "
+                     "let the exploration look (analysis.form.explore: "
+                     "true), try forward differences, or use subset "
+                     "simulation",
+                     f->g_med, (unsigned long long)res->evaluations);
+      dp->beta = NAN;
+      dp->pf_form = NAN;
+      memset(dp->alpha2, 0, s->nvars * sizeof *dp->alpha2);
+    } else if (failures == 0 && !f->capped0) {
       bk_result_warn(res,
                      "FORM found no failure domain: none of the %llu "
                      "evaluations had g <= 0 (%s). The limit state may "
