@@ -1429,7 +1429,12 @@ static int hand_over(form_t *f, bk__design_points_t *out) {
   memset(out, 0, sizeof *out);
   out->complement = f->sign < 0;
   out->trusted = n > 0;
-  if (n == 0 && !(isfinite(f->m->res->dp.beta) && f->have_u0))
+  /* Without a design point, search 0's last iterate still centres a
+   * sampling density (any centre gives an unbiased estimate), unless no
+   * evaluation failed at all. */
+  int fallback = f->have_u0 && isfinite(f->beta0) &&
+                 f->m->failures > f->failures0;
+  if (n == 0 && !fallback)
     return 0;
   size_t k = n > 0 ? (size_t)n : 1;
   out->u = bk_calloc(k * nu, sizeof *out->u);
@@ -1442,7 +1447,7 @@ static int hand_over(form_t *f, bk__design_points_t *out) {
   out->n = k;
   for (size_t i = 0; i < k; i++) {
     const double *u = n > 0 ? f->spots[idx[i]].u : f->u0;
-    double b = n > 0 ? f->spots[idx[i]].beta : f->m->res->dp.beta;
+    double b = n > 0 ? f->spots[idx[i]].beta : f->beta0;
     memcpy(out->u + i * nu, u, nu * sizeof *u);
     out->beta[i] = b;
     double lf = n > 0 ? f->spots[idx[i]].log_factor : 0;
