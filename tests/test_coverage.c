@@ -117,8 +117,7 @@ static void expect_form_honest(const form_honesty_t *h, const char *what) {
                "%s: %d of %d runs gave a Pf more than a factor %g from the "
                "reference without a warning",
                what, h->far_silent, h->runs, FORM_FAR);
-  cr_expect_eq(h->failed, 0, "%s: %d runs ended in an error", what,
-               h->failed);
+  cr_expect_eq(h->failed, 0, "%s: %d runs ended in an error", what, h->failed);
 }
 
 /* Where FORM is built for the problem (one design point, nearly linear),
@@ -137,10 +136,10 @@ static void expect_form_quiet(const form_honesty_t *h, const char *what) {
  * point and is far off, and every such run says so. References from
  * scipy (tests/ref/gen_problems.py). */
 Test(coverage, form_warns_where_one_design_point_is_not_enough) {
-  const char *cases[][3] = {{"serieslin", "3.0", ""}, {"series4", "6", ""},
-                            {"parabola", "5.0", ""},  {"parabola", "7.0", ""},
-                            {"rastrigin", "10.0", ""},
-                            {"rastrigin", "14.0", ""}};
+  const char *cases[][3] = {
+      {"serieslin", "3.0", ""},  {"series4", "6", ""},
+      {"parabola", "5.0", ""},   {"parabola", "7.0", ""},
+      {"rastrigin", "10.0", ""}, {"rastrigin", "14.0", ""}};
   for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
     form_honesty_t h = form_honesty_of(cases[i][0], cases[i][1], cases[i][2],
                                        "method: form", 1, 50);
@@ -162,8 +161,8 @@ Test(coverage, form_is_quiet_where_it_holds) {
   }
   const char *mus[] = {"2.0", "3.0", "4.0"};
   for (int i = 0; i < 3; i++) {
-    form_honesty_t h = form_honesty_of("corr", mus[i], "", "method: form", 1,
-                                       50);
+    form_honesty_t h =
+        form_honesty_of("corr", mus[i], "", "method: form", 1, 50);
     expect_form_honest(&h, "form corr");
     expect_form_quiet(&h, "form corr");
   }
@@ -191,8 +190,8 @@ Test(coverage, importance_on_several_design_points) {
                             {"parabola", "5.0"},
                             {"parabola", "7.0"}};
   for (int i = 0; i < 4; i++) {
-    cover_t c = coverage_of(cases[i][0], cases[i][1], "", "method: importance",
-                            1, 200);
+    cover_t c =
+        coverage_of(cases[i][0], cases[i][1], "", "method: importance", 1, 200);
     expect_honest(&c, cases[i][0]);
     expect_few_warnings(&c, 0.1, cases[i][0]);
   }
@@ -205,9 +204,9 @@ Test(coverage, importance_on_several_design_points) {
 Test(coverage, importance_on_scattered_failure_regions) {
   const char *cs[] = {"10.0", "14.0"};
   for (int i = 0; i < 2; i++) {
-    cover_t c = coverage_of("rastrigin", cs[i], "",
-                            "method: importance, max_evaluations: 20000", 1,
-                            50);
+    cover_t c =
+        coverage_of("rastrigin", cs[i], "",
+                    "method: importance, max_evaluations: 20000", 1, 50);
     expect_honest(&c, "importance rastrigin");
   }
 }
@@ -231,8 +230,7 @@ Test(coverage, importance_where_it_is_built_for_the_problem) {
     expect_honest(&c, "importance corr");
     expect_few_warnings(&c, 0.05, "importance corr");
   }
-  cover_t c =
-      coverage_of("linear", "100", "4.75", "method: importance", 1, 30);
+  cover_t c = coverage_of("linear", "100", "4.75", "method: importance", 1, 30);
   expect_honest(&c, "importance linear 100");
   expect_few_warnings(&c, 0.05, "importance linear 100");
   c = coverage_of("linear", "1000", "4.75", "method: importance", 1, 20);

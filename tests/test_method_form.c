@@ -398,8 +398,7 @@ Test(method_form, exploration_batches_are_named_per_part) {
   int n = sp.nbatches;
   cr_assert_geq(n, 4);
   for (int i = 0; i < n - 3; i++)
-    cr_expect(strncmp(sp.prefixes[i], "form/i", 6) == 0, "%s",
-              sp.prefixes[i]);
+    cr_expect(strncmp(sp.prefixes[i], "form/i", 6) == 0, "%s", sp.prefixes[i]);
   cr_expect_str_eq(sp.prefixes[n - 3], "form/h");
   cr_expect_eq(sp.sizes[n - 3], 4);
   cr_expect_eq(sp.first[n - 3], 0);
@@ -458,10 +457,10 @@ Test(method_form, faulted_gradient_points_are_retried_then_reported) {
 
 /* With a model, FORM obeys model.max_error_fraction like every method
  * (mctx.h): one faulted gradient point among the dozen evaluations of the
- * search (without exploration) is above the default 5%, and the run stops with a message naming
- * the fault kind and its first key; allowed 20%, the same search ends
- * normally. (The spy evaluates the limit state itself; the model section
- * only makes the study one with a model.) */
+ * search (without exploration) is above the default 5%, and the run stops with
+ * a message naming the fault kind and its first key; allowed 20%, the same
+ * search ends normally. (The spy evaluates the limit state itself; the model
+ * section only makes the study one with a model.) */
 Test(method_form, the_error_limit_applies_to_form) {
   const char *study = "variables:\n"
                       "  a: {type: normal, mean: 0, sd: 1}\n"
@@ -616,14 +615,14 @@ Test(method_form, a_saddle_restarts_towards_both_design_points) {
 Test(method_form, rastrigin_far_sides_and_a_vanishing_gradient) {
   const char *diffs[] = {"forward", "central"};
   for (int i = 0; i < 2; i++) {
-    bk_study_t *s = study_from(
-        "variables:\n"
-        "  u1: {type: normal, mean: 0, sd: 1}\n"
-        "  u2: {type: normal, mean: 0, sd: 1}\n"
-        "limit_state: 10 - (u1^2 - 5*cos(2*3.141592653589793*u1)) - "
-        "(u2^2 - 5*cos(2*3.141592653589793*u2))\n"
-        "analysis: {method: form, form: {differences: %s}}\n",
-        diffs[i]);
+    bk_study_t *s =
+        study_from("variables:\n"
+                   "  u1: {type: normal, mean: 0, sd: 1}\n"
+                   "  u2: {type: normal, mean: 0, sd: 1}\n"
+                   "limit_state: 10 - (u1^2 - 5*cos(2*3.141592653589793*u1)) - "
+                   "(u2^2 - 5*cos(2*3.141592653589793*u2))\n"
+                   "analysis: {method: form, form: {differences: %s}}\n",
+                   diffs[i]);
     bk_result_t r;
     run(s, &r);
     cr_expect(!(r.dp.converged && r.dp.beta < 0), "%s: beta %g converged",
@@ -646,8 +645,8 @@ Test(method_form, rastrigin_far_sides_and_a_vanishing_gradient) {
       "false}}\n");
   bk_result_t r;
   run(s, &r);
-  cr_expect(has_warning(&r, "the gradient of g vanishes at the medians"),
-            "%s", r.nwarnings ? r.warnings[0] : "(none)");
+  cr_expect(has_warning(&r, "the gradient of g vanishes at the medians"), "%s",
+            r.nwarnings ? r.warnings[0] : "(none)");
   cr_expect(!has_warning(&r, "no failure domain"));
   bk_result_close(&r);
   bk_study_free(s);
@@ -753,8 +752,7 @@ Test(method_form, sorm_with_1000_variables_in_flat_memory, .timeout = 0) {
   cr_expect_eq(r.evaluations, 2 * 1001 + 32 + 2 * 999 * 999);
   struct rusage ru;
   cr_assert_eq(getrusage(RUSAGE_SELF, &ru), 0);
-  cr_expect_lt(ru.ru_maxrss, 512 * 1024, "peak resident %ld kB",
-               ru.ru_maxrss);
+  cr_expect_lt(ru.ru_maxrss, 512 * 1024, "peak resident %ld kB", ru.ru_maxrss);
   bk_result_close(&r);
   bk_study_free(s);
 }

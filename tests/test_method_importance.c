@@ -111,9 +111,8 @@ Test(method_importance, linear_cases_from_1e_3_to_1e_7_inside_intervals) {
       cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
       /* Whole batches of 500 after the FORM phase (2 x 4 evaluations of
        * the search, then the exploration's). */
-      cr_expect_eq((r.evaluations - (uint64_t)detail(&r, "FORM evaluations")) %
-                       500,
-                   0);
+      cr_expect_eq(
+          (r.evaluations - (uint64_t)detail(&r, "FORM evaluations")) % 500, 0);
       cr_expect_eq(detail(&r, "mixture components"), 1);
       cr_expect(detail(&r, "effective sample size") > 0);
       bk_result_close(&r);

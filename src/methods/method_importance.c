@@ -328,8 +328,7 @@ static int report_evidence(is_t *t, const bk_weighted_t *w,
                      "FORM and importance sampling disagree (Pf FORM "
                      "%.3e%s, sampling %.3e); the limit state may be "
                      "strongly nonlinear or have further design points",
-                     pff, t->k > 1 ? " summed over the design points" : "",
-                     pf);
+                     pff, t->k > 1 ? " summed over the design points" : "", pf);
   }
   return 0;
 }

@@ -116,8 +116,7 @@ void bk_plan_compute(const bk_plan_opts_t *o, bk_plan_row_t *rows) {
   /* FORM runs its iterations one batch after another. */
   double per = o->central ? 2.0 * (double)o->nu + 1 : (double)o->nu + 1;
   double n_form = bk_plan_form(o->nu, o->central, it, o->sorm);
-  double n_explore =
-      o->explore ? bk_plan_explore(o->nu, o->probe, o->sorm) : 0;
+  double n_explore = o->explore ? bk_plan_explore(o->nu, o->probe, o->sorm) : 0;
   double w_form = NAN;
   if (isfinite(o->seconds)) {
     w_form = it * ceil(per / o->slots) * o->seconds;

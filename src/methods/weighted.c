@@ -84,8 +84,7 @@ int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
     size_t n = left < batch ? (size_t)left : batch;
     for (size_t done = 0; done < n;) {
       size_t c = n - done < chunk ? n - done : chunk;
-      rc = bk_weighted_batch(m, w->prefix, next, c, w->draw, w->data, us,
-                             logw);
+      rc = bk_weighted_batch(m, w->prefix, next, c, w->draw, w->data, us, logw);
       if (rc)
         goto out;
       next += c;

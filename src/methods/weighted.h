@@ -45,8 +45,8 @@ struct bk_weighted {
   const char *prefix;
   size_t batch; /* points per batch, at least 1 */
   bk_weighted_draw_cb draw;
-  bk_weighted_seen_cb seen;          /* may be NULL */
-  bk_weighted_stop_cb may_stop;      /* may be NULL: always */
+  bk_weighted_seen_cb seen;     /* may be NULL */
+  bk_weighted_stop_cb may_stop; /* may be NULL: always */
   void *data;
   /* Filled by bk_weighted_run. */
   bk_estimate_wsum_t est;    /* the estimate's values, after on_error */

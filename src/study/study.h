@@ -103,8 +103,8 @@ typedef struct {
 
 /* analysis.importance: sampling around a design point. */
 typedef struct {
-  int has_center; /* center given by the user (x-space) */
-  double *center; /* nvars values (constants keep their value) */
+  int has_center;   /* center given by the user (x-space) */
+  double *center;   /* nvars values (constants keep their value) */
   double defensive; /* share of the original density in the mixture; 0.1 */
 } bk_importance_opts_t;
 
