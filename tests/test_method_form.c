@@ -756,3 +756,61 @@ Test(method_form, sorm_with_1000_variables_in_flat_memory, .timeout = 0) {
   bk_result_close(&r);
   bk_study_free(s);
 }
+
+/* Model errors in the exploration: faulted probe points count as safe,
+ * and faulted curvature points skip the check, which the note says; the
+ * design point stands and every fault is counted (no model section, so
+ * no error limit applies). */
+Test(method_form, faults_in_the_exploration_are_counted_and_said) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3 - b + 0.1*a^2\n"
+                             "analysis: {method: form}\n");
+  spy_t sp = {.s = s, .fault_prefix = "form/p", .fault_always = 1};
+  bk_evaluator_t ev = {spy_batch, &sp};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), 0, "%s", err.msg);
+  cr_expect(r.dp.converged && fabs(r.dp.beta - 3) < 1e-6);
+  cr_expect_eq(r.model_errors, 35); /* probe points 1..35 of 36 */
+  cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
+  bk_result_close(&r);
+
+  spy_t sp2 = {.s = s, .fault_prefix = "form/h", .fault_index = 1};
+  bk_evaluator_t ev2 = {spy_batch, &sp2};
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev2, NULL, &r, &err), 0, "%s", err.msg);
+  cr_expect(r.dp.converged && fabs(r.dp.beta - 3) < 1e-6);
+  cr_expect_eq(r.model_errors, 1);
+  cr_expect(has_note(&r, "a curvature check was skipped"), "%s",
+            r.nnotes ? r.notes[0] : "(none)");
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* A fault at the first point of a further search ends that search only:
+ * on two failure modes, b > 4 and (a + b)/sqrt(2) > 3, the probe starts
+ * search 1 towards the nearer one (keys form/d1/...); when its first
+ * point faults, the next search from the probe finds it (Phi(-3) +
+ * Phi(-4) as above). */
+Test(method_form, a_fault_at_a_search_start_ends_that_search) {
+  bk_study_t *s =
+      study_from("variables:\n"
+                 "  a: {type: normal, mean: 0, sd: 1}\n"
+                 "  b: {type: normal, mean: 0, sd: 1}\n"
+                 "limit_state: min(4 - b, 10*(3 - (a + b)/sqrt(2)))\n"
+                 "analysis: {method: form}\n");
+  spy_t sp = {.s = s, .fault_prefix = "form/d1/i0", .fault_index = 0};
+  bk_evaluator_t ev = {spy_batch, &sp};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), 0, "%s", err.msg);
+  cr_expect_eq(r.model_errors, 1);
+  cr_expect(r.dp.converged && fabs(r.dp.beta - 3) < 1e-3, "beta %g", r.dp.beta);
+  cr_expect(has_warning(&r, "FORM found 2 design points"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
