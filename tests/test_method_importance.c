@@ -370,10 +370,9 @@ static int faulty_is_batch(bk_evaluator_t *ev, const char *prefix,
 
 /* The FORM phase and the sampling share one method context, so the error
  * limit counts the whole run (mctx.h): 10 faulted samples in the first
- * batch of 100, over the 8 evaluations of FORM (without exploration) and
- * those 100, is above the
- * default 5% and stops the run, the message counting all 108 and naming
- * the first faulted key. */
+ * batch of 100, over FORM's 8 evaluations (without exploration) and those
+ * 100, is above the default 5% and stops the run, the message counting
+ * all 108 and naming the first faulted key. */
 Test(method_importance, the_error_limit_counts_form_and_sampling) {
   bk_study_t *s = study_from("variables:\n"
                              "  a: {type: normal, mean: 0, sd: 1}\n"
