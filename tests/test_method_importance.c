@@ -399,3 +399,41 @@ Test(method_importance, the_error_limit_counts_form_and_sampling) {
   bk_result_close(&r);
   bk_study_free(s);
 }
+
+/* g = 1.5 - |b| fails on both sides, b > 1.5 and b < -1.5: Pf = 2
+ * Phi(-1.5) = 0.1336144 (scipy.stats.norm.sf(1.5) = 0.0668072, times 2).
+ * Without exploration FORM finds one side only; the defensive share of
+ * the mixture still samples the other, with bounded weights, and those
+ * failing samples, far from the one design point and carrying much of
+ * the estimate, bring the warning that names the methods to use. With
+ * exploration both sides are design points and nothing is warned. */
+Test(method_importance, failures_no_design_point_explains_are_reported) {
+  const char *explore[] = {"false", "true"};
+  for (int i = 0; i < 2; i++) {
+    bk_study_t *s = study_from("seed: 6\n"
+                               "variables:\n"
+                               "  a: {type: normal, mean: 0, sd: 1}\n"
+                               "  b: {type: normal, mean: 0, sd: 1}\n"
+                               "limit_state: 1.5 - abs(b) + 0*a\n"
+                               "analysis: {method: importance, ci_level: "
+                               "0.99, form: {explore: %s}}\n",
+                               explore[i]);
+    bk_result_t r;
+    run(s, &r);
+    double exact = 0.1336144;
+    cr_expect(r.est.ci[0] <= exact && exact <= r.est.ci[1],
+              "explore %s: [%.4e, %.4e] (estimate %.4e)", explore[i],
+              r.est.ci[0], r.est.ci[1], r.est.pf);
+    int warned = has_warning(&r, "where no design point's component");
+    if (i == 0) {
+      cr_expect(warned, "%s", r.nwarnings ? r.warnings[0] : "(none)");
+      cr_expect(has_warning(&r, "use subset simulation (method: subset) or "
+                                "cross-entropy"));
+    } else {
+      cr_expect_eq(detail(&r, "mixture components"), 2);
+      cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
+    }
+    bk_result_close(&r);
+    bk_study_free(s);
+  }
+}
