@@ -14,6 +14,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/resource.h>
 #include <unistd.h>
 
 #include "base/fault.h"
@@ -72,6 +73,20 @@ static int has_warning(const bk_result_t *r, const char *text) {
   return 0;
 }
 
+static int has_note(const bk_result_t *r, const char *text) {
+  for (size_t i = 0; i < r->nnotes; i++)
+    if (strstr(r->notes[i], text))
+      return 1;
+  return 0;
+}
+
+static double detail(const bk_result_t *r, const char *label) {
+  for (size_t i = 0; i < r->ndetails; i++)
+    if (strcmp(r->details[i].label, label) == 0)
+      return r->details[i].value;
+  return NAN;
+}
+
 /* Cornell (1969): g = R - S with normal R, S is linear in u, so FORM is
  * exact: beta = (mR - mS) / sqrt(sR^2 + sS^2 - 2 rho sR sS). With
  * correlation the Nataf rho0 of two normals is rho itself (Liu & Der
@@ -101,9 +116,13 @@ Test(method_form, linear_in_normals_gives_the_exact_beta) {
       cr_expect(fabs(r.est.pf - bk_norm_cdf(-beta)) < 1e-10 * r.est.pf);
       cr_assert(r.dp.present && r.dp.converged);
       /* The linear case converges on the second iterate: the first step
-       * lands on the surface. */
+       * lands on the surface; the exploration adds its own runs and finds
+       * no other design point. */
       cr_expect_eq(r.dp.iterations, 2);
-      cr_expect_eq(r.evaluations, 2 * (di ? 5 : 3));
+      cr_expect_eq(r.evaluations - (uint64_t)detail(&r, "exploration runs"),
+                   2 * (di ? 5 : 3));
+      cr_expect_eq(detail(&r, "design points found"), 1);
+      cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
       cr_expect_str_eq(r.est.ci_method,
                        "none (FORM is not a sampling estimate)");
       cr_expect(isnan(r.est.cov));
@@ -324,15 +343,15 @@ static int spy_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
 
 /* Each iteration is one batch "form/iK": the iterate and its nu (forward)
  * or 2 nu (central) difference points; the curvature points are one batch
- * "form/h" of 2 m^2 points for m = nu - 1. */
+ * "form/h" of 2 m^2 points for m = nu - 1 (without exploration). */
 Test(method_form, each_iteration_is_one_batch) {
-  bk_study_t *s = study_from(
-      "variables:\n"
-      "  a: {type: normal, mean: 0, sd: 1}\n"
-      "  b: {type: normal, mean: 0, sd: 1}\n"
-      "  c: {type: normal, mean: 0, sd: 1}\n"
-      "limit_state: 3 - c + 0.05*a^2 + 0.02*b^2\n"
-      "analysis: {method: form, form: {sorm: true, differences: central}}\n");
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "  c: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3 - c + 0.05*a^2 + 0.02*b^2\n"
+                             "analysis: {method: form, form: {sorm: true, "
+                             "differences: central, explore: false}}\n");
   spy_t sp = {.s = s};
   bk_evaluator_t ev = {spy_batch, &sp};
   bk_result_t r;
@@ -351,6 +370,52 @@ Test(method_form, each_iteration_is_one_batch) {
   cr_expect_str_eq(sp.prefixes[sp.nbatches - 1], "form/h");
   cr_expect_eq(sp.sizes[sp.nbatches - 1], 8); /* 2 m^2, m = 2 */
   cr_expect_eq(r.evaluations, (uint64_t)(7 * (sp.nbatches - 1) + 8));
+  cr_expect(has_note(&r, "exploration is off"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* With exploration (the default) the keys name each part: search 0
+ * "form/iK", the curvature check of its design point "form/h" (the 2 m
+ * points u +- h r_i, the first of the SORM batch, whose other 2 m (m - 1)
+ * points follow under the same prefix from index 2 m), the probe
+ * "form/p" of 2 nu + 32 points from index 0. On this single design point
+ * the probe starts no search. */
+Test(method_form, exploration_batches_are_named_per_part) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "  c: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3 - c + 0.05*a^2 + 0.02*b^2\n"
+                             "analysis: {method: form, form: {sorm: true}}\n");
+  spy_t sp = {.s = s};
+  bk_evaluator_t ev = {spy_batch, &sp};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), 0, "%s", err.msg);
+  cr_assert(r.dp.converged);
+  int n = sp.nbatches;
+  cr_assert_geq(n, 4);
+  for (int i = 0; i < n - 3; i++)
+    cr_expect(strncmp(sp.prefixes[i], "form/i", 6) == 0, "%s", sp.prefixes[i]);
+  cr_expect_str_eq(sp.prefixes[n - 3], "form/h");
+  cr_expect_eq(sp.sizes[n - 3], 4);
+  cr_expect_eq(sp.first[n - 3], 0);
+  cr_expect_str_eq(sp.prefixes[n - 2], "form/p");
+  cr_expect_eq(sp.sizes[n - 2], 2 * 3 + 32);
+  cr_expect_eq(sp.first[n - 2], 0);
+  cr_expect_str_eq(sp.prefixes[n - 1], "form/h");
+  cr_expect_eq(sp.sizes[n - 1], 4);
+  cr_expect_eq(sp.first[n - 1], 4);
+  cr_expect_eq(detail(&r, "exploration runs"), 4 + 38);
+  cr_expect_eq(detail(&r, "design points found"), 1);
+  cr_expect(has_note(&r, "design-point exploration: 42 runs"), "%s",
+            r.nnotes ? r.notes[0] : "(none)");
+  /* Breitung's product with kappa = 0.1, 0.04 (2 k_i). */
+  double want = bk_norm_cdf(-3) / sqrt((1 + 0.3) * (1 + 0.12));
+  cr_expect(fabs(r.dp.pf_sorm - want) < 1e-4 * want, "SORM %.8g want %.8g",
+            r.dp.pf_sorm, want);
   bk_result_close(&r);
   bk_study_free(s);
 }
@@ -392,10 +457,10 @@ Test(method_form, faulted_gradient_points_are_retried_then_reported) {
 
 /* With a model, FORM obeys model.max_error_fraction like every method
  * (mctx.h): one faulted gradient point among the dozen evaluations of the
- * search is above the default 5%, and the run stops with a message naming
- * the fault kind and its first key; allowed 20%, the same search ends
- * normally. (The spy evaluates the limit state itself; the model section
- * only makes the study one with a model.) */
+ * search (without exploration) is above the default 5%, and the run stops with
+ * a message naming the fault kind and its first key; allowed 20%, the same
+ * search ends normally. (The spy evaluates the limit state itself; the model
+ * section only makes the study one with a model.) */
 Test(method_form, the_error_limit_applies_to_form) {
   const char *study = "variables:\n"
                       "  a: {type: normal, mean: 0, sd: 1}\n"
@@ -405,7 +470,7 @@ Test(method_form, the_error_limit_applies_to_form) {
                       "  outputs: {y: {file: out.txt, pattern: 'y = (\\S+)'}}\n"
                       "  max_error_fraction: %s\n"
                       "limit_state: 3 - b + 0.1*a^2\n"
-                      "analysis: {method: form}\n";
+                      "analysis: {method: form, form: {explore: false}}\n";
   bk_study_t *s = study_from(study, "0.05");
   spy_t sp = {.s = s, .fault_prefix = "form/i1", .fault_index = 2};
   bk_evaluator_t ev = {spy_batch, &sp};
@@ -493,5 +558,267 @@ Test(method_form, runs_are_reproducible) {
   cr_expect(memcmp(&a.dp.pf_sorm, &b.dp.pf_sorm, sizeof(double)) == 0);
   bk_result_close(&a);
   bk_result_close(&b);
+  bk_study_free(s);
+}
+
+/* g = 5 - b - a^2/2 from the medians with central differences: the
+ * search goes straight up the b axis to (0, 5), where the gradient is
+ * (0, -1) and the iteration converges, but the curvature there is -1 and
+ * 1 + beta kappa = -4 <= 0: a saddle of the distance, not a design point
+ * (Der Kiureghian & Dakessian 1998 use this parabola). The restarts on
+ * both sides along the tangent axis find the two design points: on the
+ * surface |u|^2 = a^2 + b^2 = 10 - 2b + b^2, least at b = 1, a = +-sqrt(8),
+ * beta = 3 (closed form). */
+Test(method_form, a_saddle_restarts_towards_both_design_points) {
+  bk_study_t *s =
+      study_from("variables:\n"
+                 "  a: {type: normal, mean: 0, sd: 1}\n"
+                 "  b: {type: normal, mean: 0, sd: 1}\n"
+                 "limit_state: 5 - b - 0.5*a^2\n"
+                 "analysis: {method: form, form: {differences: central, "
+                 "tolerance: 1e-6}}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta - 3) < 1e-4, "beta %.8g", r.dp.beta);
+  cr_expect(fabs(fabs(r.dp.u[0]) - sqrt(8)) < 1e-3 &&
+                fabs(r.dp.u[1] - 1) < 1e-3,
+            "u* (%g, %g)", r.dp.u[0], r.dp.u[1]);
+  cr_expect_eq(detail(&r, "design points found"), 2);
+  cr_expect(has_warning(&r, "FORM found 2 design points"));
+  cr_expect(has_note(&r, "1 saddle point of the distance left"), "%s",
+            r.nnotes ? r.notes[0] : "(none)");
+  bk_result_close(&r);
+  /* Without exploration the saddle is what the search reports. */
+  bk_study_free(s);
+  s = study_from("variables:\n"
+                 "  a: {type: normal, mean: 0, sd: 1}\n"
+                 "  b: {type: normal, mean: 0, sd: 1}\n"
+                 "limit_state: 5 - b - 0.5*a^2\n"
+                 "analysis: {method: form, form: {differences: central, "
+                 "explore: false}}\n");
+  run(s, &r);
+  cr_expect(fabs(r.dp.beta - 5) < 1e-6, "beta %.8g", r.dp.beta);
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* The modified Rastrigin limit state of the coverage problems
+ * (tests/ref/gen_problems.py; Echard, Gayton & Lemaire 2011): g = 20 at
+ * the medians and many small failure regions. From the medians the search
+ * converges on the far side of one (beta < 0 with g(0) > 0), which is no
+ * design point: it is never called converged with a negative beta, and
+ * the result warns. With central differences the gradient vanishes at the
+ * medians (g is even in each u_i), which is said, and the probe's
+ * searches go on from elsewhere; failures exist, so the result is not "no
+ * failure domain". */
+Test(method_form, rastrigin_far_sides_and_a_vanishing_gradient) {
+  const char *diffs[] = {"forward", "central"};
+  for (int i = 0; i < 2; i++) {
+    bk_study_t *s =
+        study_from("variables:\n"
+                   "  u1: {type: normal, mean: 0, sd: 1}\n"
+                   "  u2: {type: normal, mean: 0, sd: 1}\n"
+                   "limit_state: 10 - (u1^2 - 5*cos(2*3.141592653589793*u1)) - "
+                   "(u2^2 - 5*cos(2*3.141592653589793*u2))\n"
+                   "analysis: {method: form, form: {differences: %s}}\n",
+                   diffs[i]);
+    bk_result_t r;
+    run(s, &r);
+    cr_expect(!(r.dp.converged && r.dp.beta < 0), "%s: beta %g converged",
+              diffs[i], r.dp.beta);
+    cr_expect(!(r.est.pf > 0.5), "%s: Pf %g", diffs[i], r.est.pf);
+    cr_expect_gt(r.nwarnings, 0, "%s", diffs[i]);
+    cr_expect(!has_warning(&r, "no failure domain"), "%s", diffs[i]);
+    cr_expect_gt(r.est.failures, 0);
+    bk_result_close(&r);
+    bk_study_free(s);
+  }
+  /* Without exploration the vanishing gradient is named as such. */
+  bk_study_t *s = study_from(
+      "variables:\n"
+      "  u1: {type: normal, mean: 0, sd: 1}\n"
+      "  u2: {type: normal, mean: 0, sd: 1}\n"
+      "limit_state: 10 - (u1^2 - 5*cos(2*3.141592653589793*u1)) - "
+      "(u2^2 - 5*cos(2*3.141592653589793*u2))\n"
+      "analysis: {method: form, form: {differences: central, explore: "
+      "false}}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_expect(has_warning(&r, "the gradient of g vanishes at the medians"), "%s",
+            r.nwarnings ? r.warnings[0] : "(none)");
+  cr_expect(!has_warning(&r, "no failure domain"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* g = -1 + (a + b)/sqrt(2) fails at the medians: beta is negative,
+ * -1, and Pf = Phi(1) = 0.8413447461 (Abramowitz & Stegun Table 26.1),
+ * with a note that says so (Cornell 1969: linear in normals, exact). */
+Test(method_form, failing_medians_give_a_negative_beta) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: -1 + (a + b)/sqrt(2)\n"
+                             "analysis: {method: form}\n");
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta + 1) < 1e-8, "beta %.10g", r.dp.beta);
+  cr_expect(fabs(r.est.pf - 0.8413447461) < 1e-9, "Pf %.10g", r.est.pf);
+  cr_expect(has_note(&r, "the medians fail"));
+  cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* Above 50 variables the exploration is a probe only, and the report says
+ * that further design points cannot be excluded. SORM on 60 variables,
+ * g = 3 - u60 + sum_{i<60} k_i u_i^2 with k_i = 0.01 i - 0.15 (59
+ * curvatures 2 k_i, from -0.28 to 0.88), against Breitung's product
+ * prod (1 + 6 k_i)^-1/2 computed here in closed form; the curvatures
+ * (eigenvalues of a 59 x 59 Hessian) come from the tridiagonal QL
+ * routine, the details list the smallest and largest. */
+Test(method_form, sorm_in_60_variables_and_the_note_of_a_large_study) {
+  char text[8192];
+  int o = snprintf(text, sizeof text, "variables:\n");
+  for (int i = 1; i <= 60; i++)
+    o += snprintf(text + o, sizeof text - o,
+                  "  u%d: {type: normal, mean: 0, sd: 1}\n", i);
+  o += snprintf(text + o, sizeof text - o, "limit_state: 3 - u60");
+  double logf = 0;
+  for (int i = 1; i < 60; i++) {
+    double k = 0.01 * i - 0.15;
+    o += snprintf(text + o, sizeof text - o, " + %.2f*u%d^2", k, i);
+    logf -= 0.5 * log(1 + 6 * k);
+  }
+  snprintf(text + o, sizeof text - o,
+           "\nanalysis: {method: form, form: {sorm: true, differences: "
+           "central, tolerance: 1e-6}}\n");
+  bk_study_t *s = study_from("%s", text);
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta - 3) < 1e-6, "beta %.10g", r.dp.beta);
+  double want = bk_norm_cdf(-3) * exp(logf);
+  cr_expect(fabs(r.dp.pf_sorm / want - 1) < 1e-3, "SORM %.8g want %.8g",
+            r.dp.pf_sorm, want);
+  cr_expect(fabs(detail(&r, "smallest curvature") + 0.28) < 1e-3);
+  cr_expect(fabs(detail(&r, "largest curvature") - 0.88) < 1e-3);
+  cr_expect(has_note(&r, "further design points cannot be excluded"));
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* FORM and SORM with 1000 variables, g = 3.09 sqrt(1000) - sum u_i (the
+ * coverage problem `linear 1000 3.09`, Cornell 1969: beta = 3.09 exact,
+ * all curvatures 0 so SORM = FORM): the 2 (nu - 1)^2 = 1996002 curvature
+ * points go to the evaluator in chunks generated by index, so the whole
+ * run stays within a few tens of MB (it once allocated the batch whole and
+ * was killed at 24 GB). The peak resident size of this test's process is
+ * checked against 512 MB (getrusage, ru_maxrss in kB). Under the address
+ * sanitizer, which makes the 2 million evaluations take minutes, the same
+ * path runs with 400 variables (318402 curvature points, 61 chunks). */
+#if defined(__SANITIZE_ADDRESS__)
+#define BIG_NU 400
+#else
+#define BIG_NU 1000
+#endif
+Test(method_form, sorm_with_1000_variables_in_flat_memory, .timeout = 0) {
+  size_t cap = 1 << 17, o = 0;
+  char *text = malloc(cap);
+  cr_assert(text);
+  o += (size_t)snprintf(text + o, cap - o, "variables:\n");
+  for (int i = 1; i <= BIG_NU; i++)
+    o += (size_t)snprintf(text + o, cap - o,
+                          "  u%d: {type: normal, mean: 0, sd: 1}\n", i);
+  o += (size_t)snprintf(text + o, cap - o, "limit_state: \"%.17g",
+                        3.09 * sqrt((double)BIG_NU));
+  for (int i = 1; i <= BIG_NU; i++)
+    o += (size_t)snprintf(text + o, cap - o, " - u%d", i);
+  snprintf(text + o, cap - o,
+           "\"\nanalysis: {method: form, form: {sorm: true}}\n");
+  char path[512];
+  snprintf(path, sizeof path, "%s/study.yaml", dir);
+  FILE *fp = fopen(path, "w");
+  cr_assert(fp);
+  fputs(text, fp);
+  fclose(fp);
+  free(text);
+  bk_study_t *s;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_study_load(path, &s, &err), 0, "%s", err.msg);
+  bk_result_t r;
+  run(s, &r);
+  cr_assert(r.dp.converged);
+  cr_expect(fabs(r.dp.beta - 3.09) < 1e-6, "beta %.10g", r.dp.beta);
+  cr_expect(fabs(r.dp.pf_sorm / r.dp.pf_form - 1) < 1e-3, "SORM %g FORM %g",
+            r.dp.pf_sorm, r.dp.pf_form);
+  /* Search 0 (2 x 1001), the probe (32), the curvature batch. */
+  cr_expect_eq(r.evaluations,
+               2 * (BIG_NU + 1) + 32 + 2 * (BIG_NU - 1) * (BIG_NU - 1));
+  struct rusage ru;
+  cr_assert_eq(getrusage(RUSAGE_SELF, &ru), 0);
+  cr_expect_lt(ru.ru_maxrss, 512 * 1024, "peak resident %ld kB", ru.ru_maxrss);
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* Model errors in the exploration: faulted probe points count as safe,
+ * and faulted curvature points skip the check, which the note says; the
+ * design point stands and every fault is counted (no model section, so
+ * no error limit applies). */
+Test(method_form, faults_in_the_exploration_are_counted_and_said) {
+  bk_study_t *s = study_from("variables:\n"
+                             "  a: {type: normal, mean: 0, sd: 1}\n"
+                             "  b: {type: normal, mean: 0, sd: 1}\n"
+                             "limit_state: 3 - b + 0.1*a^2\n"
+                             "analysis: {method: form}\n");
+  spy_t sp = {.s = s, .fault_prefix = "form/p", .fault_always = 1};
+  bk_evaluator_t ev = {spy_batch, &sp};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), 0, "%s", err.msg);
+  cr_expect(r.dp.converged && fabs(r.dp.beta - 3) < 1e-6);
+  cr_expect_eq(r.model_errors, 35); /* probe points 1..35 of 36 */
+  cr_expect_eq(r.nwarnings, 0, "%s", r.nwarnings ? r.warnings[0] : "");
+  bk_result_close(&r);
+
+  spy_t sp2 = {.s = s, .fault_prefix = "form/h", .fault_index = 1};
+  bk_evaluator_t ev2 = {spy_batch, &sp2};
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev2, NULL, &r, &err), 0, "%s", err.msg);
+  cr_expect(r.dp.converged && fabs(r.dp.beta - 3) < 1e-6);
+  cr_expect_eq(r.model_errors, 1);
+  cr_expect(has_note(&r, "a curvature check was skipped"), "%s",
+            r.nnotes ? r.notes[0] : "(none)");
+  bk_result_close(&r);
+  bk_study_free(s);
+}
+
+/* A fault at the first point of a further search ends that search only:
+ * on two failure modes, b > 4 and (a + b)/sqrt(2) > 3, the probe starts
+ * search 1 towards the nearer one (keys form/d1/...); when its first
+ * point faults, the next search from the probe finds it (Phi(-3) +
+ * Phi(-4) as above). */
+Test(method_form, a_fault_at_a_search_start_ends_that_search) {
+  bk_study_t *s =
+      study_from("variables:\n"
+                 "  a: {type: normal, mean: 0, sd: 1}\n"
+                 "  b: {type: normal, mean: 0, sd: 1}\n"
+                 "limit_state: min(4 - b, 10*(3 - (a + b)/sqrt(2)))\n"
+                 "analysis: {method: form}\n");
+  spy_t sp = {.s = s, .fault_prefix = "form/d1/i0", .fault_index = 0};
+  bk_evaluator_t ev = {spy_batch, &sp};
+  bk_result_t r;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_method_run(s, &ev, NULL, &r, &err), 0, "%s", err.msg);
+  cr_expect_eq(r.model_errors, 1);
+  cr_expect(r.dp.converged && fabs(r.dp.beta - 3) < 1e-3, "beta %g", r.dp.beta);
+  cr_expect(has_warning(&r, "FORM found 2 design points"));
+  bk_result_close(&r);
   bk_study_free(s);
 }

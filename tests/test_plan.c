@@ -68,6 +68,18 @@ Test(plan, form_batches) {
   cr_expect_eq(bk_plan_form(1, 0, 10, 1), 20);
 }
 
+/* FORM's exploration for one design point (method_form.c): the curvature
+ * check along nu - 1 tangent axes, 2 points each, and the probe of
+ * 2 nu + 32 points up to 50 variables, 32 above; the check's points are
+ * SORM's first, so not counted twice. */
+Test(plan, form_exploration) {
+  cr_expect_eq(bk_plan_explore(2, -1, 0), 2 + 36);
+  cr_expect_eq(bk_plan_explore(3, -1, 1), 38);
+  cr_expect_eq(bk_plan_explore(1000, -1, 0), 32);
+  cr_expect_eq(bk_plan_explore(1, -1, 0), 2);
+  cr_expect_eq(bk_plan_explore(10, 0, 0), 18);
+}
+
 /* The table: wall time = ceil(evaluations / slots) x seconds, FORM's
  * iterations one batch after another. */
 Test(plan, table_rows_and_wall_time) {

@@ -267,3 +267,30 @@ Test(report, convergence_has_one_point_per_stopping_check) {
   bk_result_close(&r);
   bk_study_free(s);
 }
+
+/* Notes (what a method did and could not check) go into the text report
+ * as NOTE lines and into the JSON as "notes", escaped as JSON strings; a
+ * result without notes has an empty list. */
+Test(report, notes_are_printed_and_listed) {
+  bk_study_t *s = load(study);
+  bk_result_t r;
+  run_study(s, &r);
+  bk_buf_t o;
+  bk_buf_init(&o);
+  cr_assert_eq(bk_report_json(s, &r, &o), 0);
+  cr_expect(strstr(o.data, "\"notes\": []"), "%s", o.data);
+  bk_buf_close(&o);
+  cr_assert_eq(bk_result_note(&r, "probe of %d points, \"quoted\"", 36), 0);
+  bk_buf_init(&o);
+  cr_assert_eq(bk_report_json(s, &r, &o), 0);
+  cr_expect(strstr(o.data, "\"notes\": [\"probe of 36 points, "
+                           "\\\"quoted\\\"\"]"),
+            "%s", o.data);
+  bk_buf_close(&o);
+  bk_buf_init(&o);
+  cr_assert_eq(bk_report_text(s, &r, &o), 0);
+  cr_expect(strstr(o.data, "  NOTE: probe of 36 points, \"quoted\"\n"));
+  bk_buf_close(&o);
+  bk_result_close(&r);
+  bk_study_free(s);
+}

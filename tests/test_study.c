@@ -424,8 +424,9 @@ Test(study, the_key_lists_are_the_ones_the_loader_uses) {
                 "analysis:\n"
                 "  method: form\n"
                 "  form: {step: 1e-3, differences: central, max_iterations: "
-                "50, tolerance: 1e-4, sorm: true}\n"
-                "  importance: {center: {x: 1}}\n"
+                "50, tolerance: 1e-4, sorm: true, explore: false, searches: "
+                "3, probe: 0}\n"
+                "  importance: {center: {x: 1}, defensive: 0}\n"
                 "  cross_entropy: {components: 2, rho: 0.2, max_steps: 5}\n"
                 "  subset: {p0: 0.2, max_levels: 5}\n"
                 "run: {folder: out, slots: 1, scratch: /tmp}\n",
@@ -438,4 +439,61 @@ Test(study, the_key_lists_are_the_ones_the_loader_uses) {
                3, 21,
                "unknown key 'p1' in analysis.subset; expected one of: p0, "
                "max_levels");
+}
+
+/* The exploration keys and the defensive share: defaults, the values
+ * given, and each refusal with its place and what is valid. */
+Test(study, exploration_and_defensive_share_keys) {
+  bk_study_t *s;
+  bk_error_t err;
+  int rc = load("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                "limit_state: x\n"
+                "analysis: {method: importance}\n",
+                &s, &err);
+  cr_assert_eq(rc, 0, "%s", err.msg);
+  cr_expect_eq(s->analysis.form.explore, 1);
+  cr_expect_eq(s->analysis.form.searches, 0); /* by dimension */
+  cr_expect_eq(s->analysis.form.probe, -1);   /* by dimension */
+  cr_expect_eq(s->analysis.importance.defensive, 0.1);
+  char d1[33];
+  snprintf(d1, sizeof d1, "%s", s->digest_study);
+  bk_study_free(s);
+  rc = load("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+            "limit_state: x\n"
+            "analysis: {method: importance, form: {explore: false, "
+            "searches: 5, probe: 12}, importance: {defensive: 0.25}}\n",
+            &s, &err);
+  cr_assert_eq(rc, 0, "%s", err.msg);
+  cr_expect_eq(s->analysis.form.explore, 0);
+  cr_expect_eq(s->analysis.form.searches, 5);
+  cr_expect_eq(s->analysis.form.probe, 12);
+  cr_expect_eq(s->analysis.importance.defensive, 0.25);
+  /* They change the keys' points, so they are part of the fingerprint. */
+  cr_expect_str_neq(s->digest_study, d1);
+  bk_study_free(s);
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "analysis: {form: {explore: maybe}}\n",
+               3, 28,
+               "analysis.form.explore must be true or false; got 'maybe'");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "analysis: {form: {searches: 0}}\n",
+               3, 29,
+               "analysis.form.searches must be a whole number >= 1, got '0'");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "analysis: {form: {searches: 65}}\n",
+               3, 29, "analysis.form.searches must be at most 64 (got 65)");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "analysis: {form: {probe: -1}}\n",
+               3, 26,
+               "analysis.form.probe must be a whole number >= 0, got '-1'");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "analysis: {importance: {defensive: 1}}\n",
+               3, 36,
+               "analysis.importance.defensive must lie in [0, 1) (got 1), "
+               "e.g. 0.1");
 }

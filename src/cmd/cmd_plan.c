@@ -221,6 +221,8 @@ int bk__cmd_plan(int argc, char **argv) {
       .nu = bk_transform_nu(s->transform),
       .central = s->analysis.form.central,
       .sorm = s->analysis.form.sorm,
+      .explore = s->analysis.form.explore,
+      .probe = s->analysis.form.probe,
       .p0 = s->analysis.subset.p0,
       .is_batch = s->analysis.method == BK_METHOD_IMPORTANCE
                       ? (double)s->analysis.samples

@@ -816,10 +816,11 @@ static double kl_estimate(const ce_t *ce, const bk_estimate_wsum_t *est) {
 }
 
 /* The stopping gate of the final phase (see the file comment). */
-static int may_stop(void *data, const bk_estimate_wsum_t *est, uint64_t n) {
+static int may_stop(void *data, const bk_weighted_t *w) {
   const ce_t *ce = data;
+  const bk_estimate_wsum_t *est = &w->est;
   return est->k >= MIN_FAILURES && bk_estimate_wsum_ess(est) >= MIN_ESS &&
-         log((double)n) >= kl_estimate(ce, est);
+         log((double)w->n) >= kl_estimate(ce, est);
 }
 
 /* The estimation with the final density (weighted.h), its details and
@@ -833,7 +834,7 @@ static int estimate(ce_t *ce) {
                      .batch = ce->chunk,
                      .draw = draw_mixture,
                      .seen = seen_final,
-                     .gate = may_stop,
+                     .may_stop = may_stop,
                      .data = ce};
   int rc = bk_weighted_run(m, &w);
   if (rc)

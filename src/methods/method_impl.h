@@ -15,14 +15,33 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
                   const bk_method_opts_t *opts, bk_result_t *res,
                   bk_error_t *err);
 
-/* The FORM design-point search under keys "form/..." (method_form.c) in
- * the method context m, also the first phase of importance sampling (whose
- * sampling then goes on in the same context, so that counts and the error
- * limit cover the whole run): fills m->res->dp (converged or not, with a
- * warning when not), adds the failures it saw to res->est.failures, and
- * sets res->stop_reason. The caller applies bk_mctx_finish. Returns 0,
- * BK_ESTOPPED or another negative code with m->err set. */
-int bk__form_search(bk_mctx_t *m);
+/* The design points FORM hands to importance sampling: n points of nu
+ * coordinates, nearest first, each with its beta and the log of its
+ * first-order share of Pf, log Phi(-|beta|) plus the log of the curvature
+ * factor where checked. `trusted` is 0 when no search converged on a
+ * design point and the one point is search 0's last iterate (n is then 0
+ * or 1). `complement` says that the medians fail, so the points border
+ * the safe domain. */
+typedef struct {
+  size_t n;
+  double *u, *beta, *log_share;
+  int trusted;
+  int complement;
+} bk__design_points_t;
+
+void bk__design_points_close(bk__design_points_t *dps);
+
+/* The FORM design-point search with its exploration under keys "form/..."
+ * (method_form.c) in the method context m, also the first phase of
+ * importance sampling (whose sampling then goes on in the same context, so
+ * that counts and the error limit cover the whole run): fills m->res->dp
+ * (the nearest design point, or search 0's last iterate with a warning),
+ * the warnings, notes and details of the exploration, adds the failures
+ * it saw to res->est.failures, and sets res->stop_reason; with `out`, also
+ * the design points for sampling (freed by bk__design_points_close). The
+ * caller applies bk_mctx_finish. Returns 0, BK_ESTOPPED or another
+ * negative code with m->err set. */
+int bk__form_search(bk_mctx_t *m, bk__design_points_t *out);
 
 /* The other methods, one file each. */
 int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,

@@ -60,6 +60,16 @@ double bk_plan_form(size_t nu, int central, int iterations, int sorm) {
   return n;
 }
 
+double bk_plan_explore(size_t nu, int probe, int sorm) {
+  double n = 0;
+  if (nu <= 50 && nu > 1 && !sorm)
+    n += 2.0 * (double)(nu - 1);
+  double p = probe >= 0 ? probe : nu <= 50 ? 2.0 * (double)nu + 32 : 32;
+  if (nu == 1 && p > 2)
+    p = 2;
+  return n + p;
+}
+
 double bk_plan_scaled(double n, double cov_pilot, double cov) {
   return ceil(n * (cov_pilot / cov) * (cov_pilot / cov));
 }
@@ -106,14 +116,21 @@ void bk_plan_compute(const bk_plan_opts_t *o, bk_plan_row_t *rows) {
   /* FORM runs its iterations one batch after another. */
   double per = o->central ? 2.0 * (double)o->nu + 1 : (double)o->nu + 1;
   double n_form = bk_plan_form(o->nu, o->central, it, o->sorm);
+  double n_explore = o->explore ? bk_plan_explore(o->nu, o->probe, o->sorm) : 0;
   double w_form = NAN;
   if (isfinite(o->seconds)) {
     w_form = it * ceil(per / o->slots) * o->seconds;
     if (o->sorm && o->nu > 1)
       w_form += wall(n_form - per * it, o);
+    if (n_explore > 0)
+      w_form += wall(n_explore, o);
   }
+  n_form += n_explore;
   rows[3] =
-      (bk_plan_row_t){"form", n_form, w_form, "10 iterations assumed; no cov"};
+      (bk_plan_row_t){"form", n_form, w_form,
+                      o->explore ? "10 iterations, one design point assumed; "
+                                   "no cov"
+                                 : "10 iterations assumed; no cov"};
   if (o->form_iterations > 0)
     rows[3].note = "no cov (not a sampling estimate)";
   double n_is = ceil(bk_plan_is(o->pf, o->cov) / isb) * isb;

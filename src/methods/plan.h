@@ -22,6 +22,8 @@ typedef struct {
   int central;         /* FORM central differences */
   int sorm;            /* FORM adds a curvature batch */
   int form_iterations; /* assumed FORM iterations; 10 when 0 */
+  int explore;         /* FORM looks for further design points */
+  int probe;           /* FORM probe points; -1: by dimension */
   double p0;           /* subset: conditional probability per level */
   double gamma;        /* subset: chain correlation factor; 2 when 0 */
   double is_batch;     /* importance: evaluations between checks */
@@ -66,6 +68,12 @@ double bk_plan_scaled(double n, double cov_pilot, double cov);
 /* FORM: (nu + 1) forward or (2 nu + 1) central points per iteration times
  * the iterations, plus 2 (nu - 1)^2 curvature points for SORM. */
 double bk_plan_form(size_t nu, int central, int iterations, int sorm);
+/* FORM's exploration when it finds one design point: the curvature check,
+ * 2 (nu - 1) points up to 50 variables (shared with SORM's batch, so not
+ * counted again with `sorm`), and the probe, `probe` points or by default
+ * 2 nu + 32 up to 50 variables and 32 above (2 for one variable);
+ * method_form.c. */
+double bk_plan_explore(size_t nu, int probe, int sorm);
 
 /* Fills rows[BK_PLAN_ROWS]: random, lhs, sobol, form, importance,
  * cross-entropy, subset. */

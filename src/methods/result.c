@@ -23,27 +23,44 @@ void bk_result_close(bk_result_t *r) {
   for (size_t i = 0; i < r->nwarnings; i++)
     bk_free(r->warnings[i]);
   bk_free(r->warnings);
+  for (size_t i = 0; i < r->nnotes; i++)
+    bk_free(r->notes[i]);
+  bk_free(r->notes);
   bk_free(r->details);
   memset(r, 0, sizeof *r);
 }
 
-int bk_result_warn(bk_result_t *r, const char *fmt, ...) {
-  char **w = bk_realloc(r->warnings, (r->nwarnings + 1) * sizeof *w);
+/* Appends a formatted text to the list *texts of *n. */
+static int push_text(char ***texts, size_t *n, const char *fmt, va_list ap) {
+  char **w = bk_realloc(*texts, (*n + 1) * sizeof *w);
   if (!w)
     return BK_ENOMEM;
-  r->warnings = w;
+  *texts = w;
   bk_buf_t b;
   bk_buf_init(&b);
-  va_list ap;
-  va_start(ap, fmt);
   int rc = bk_buf_vprintf(&b, fmt, ap);
-  va_end(ap);
   if (rc || !b.data) {
     bk_buf_close(&b);
     return BK_ENOMEM;
   }
-  r->warnings[r->nwarnings++] = b.data;
+  w[(*n)++] = b.data;
   return 0;
+}
+
+int bk_result_warn(bk_result_t *r, const char *fmt, ...) {
+  va_list ap;
+  va_start(ap, fmt);
+  int rc = push_text(&r->warnings, &r->nwarnings, fmt, ap);
+  va_end(ap);
+  return rc;
+}
+
+int bk_result_note(bk_result_t *r, const char *fmt, ...) {
+  va_list ap;
+  va_start(ap, fmt);
+  int rc = push_text(&r->notes, &r->nnotes, fmt, ap);
+  va_end(ap);
+  return rc;
 }
 
 int bk_result_detail(bk_result_t *r, const char *label, double value) {

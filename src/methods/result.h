@@ -61,6 +61,8 @@ typedef struct {
   bk_design_point_t dp;
   char **warnings; /* evidence against the method's result */
   size_t nwarnings;
+  char **notes; /* what the method did and could not check, in words */
+  size_t nnotes;
   bk_detail_t *details;
   size_t ndetails;
 } bk_result_t;
@@ -71,6 +73,10 @@ void bk_result_close(bk_result_t *r);
 int bk_result_push_history(bk_result_t *r);
 /* Adds a warning (printed in reports); returns 0 or BK_ENOMEM. */
 int bk_result_warn(bk_result_t *r, const char *fmt, ...)
+    __attribute__((format(printf, 2, 3)));
+/* Adds a note: what the method did or could not check, not evidence
+ * against the result (printed in reports); returns 0 or BK_ENOMEM. */
+int bk_result_note(bk_result_t *r, const char *fmt, ...)
     __attribute__((format(printf, 2, 3)));
 /* Adds a labelled number to the report; returns 0 or BK_ENOMEM. */
 int bk_result_detail(bk_result_t *r, const char *label, double value);

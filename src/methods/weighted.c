@@ -53,18 +53,27 @@ static void fill_result(const bk_mctx_t *m, const bk_weighted_t *w) {
   }
 }
 
+/* Points per evaluator call (see BK_WEIGHTED_CHUNK_DOUBLES). */
+static size_t chunk_points(const bk_mctx_t *m, size_t batch) {
+  size_t wd = m->s->nvars > m->nu ? m->s->nvars : m->nu;
+  size_t c = BK_WEIGHTED_CHUNK_DOUBLES / (wd ? wd : 1);
+  if (c < 64)
+    c = 64;
+  return c < batch ? c : batch;
+}
+
 int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
   const bk_analysis_t *a = &m->s->analysis;
   bk_result_t *res = m->res;
-  size_t batch = w->batch;
+  size_t batch = w->batch, chunk = chunk_points(m, w->batch);
   bk_estimate_wsum_init(&w->est);
   bk_estimate_wsum_init(&w->lo);
   bk_estimate_wsum_init(&w->hi);
   w->n = w->errors = 0;
-  double *us = bk_calloc(batch * m->nu, sizeof *us);
-  double *logw = bk_calloc(batch, sizeof *logw);
+  double *us = bk_calloc(chunk * m->nu, sizeof *us);
+  double *logw = bk_calloc(chunk, sizeof *logw);
   int rc;
-  if (!us || !logw || bk_mctx_reserve(m, batch)) {
+  if (!us || !logw || bk_mctx_reserve(m, chunk)) {
     rc = bk_mctx_nomem(m);
     goto out;
   }
@@ -73,19 +82,23 @@ int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
   while (m->n < a->max_evaluations) {
     uint64_t left = a->max_evaluations - m->n;
     size_t n = left < batch ? (size_t)left : batch;
-    rc = bk_weighted_batch(m, w->prefix, next, n, w->draw, w->data, us, logw);
-    if (rc)
-      goto out;
-    next += n;
-    for (size_t i = 0; i < n; i++)
-      add_point(m, w, i, logw[i], us + i * m->nu);
+    for (size_t done = 0; done < n;) {
+      size_t c = n - done < chunk ? n - done : chunk;
+      rc = bk_weighted_batch(m, w->prefix, next, c, w->draw, w->data, us, logw);
+      if (rc)
+        goto out;
+      next += c;
+      done += c;
+      for (size_t i = 0; i < c; i++)
+        add_point(m, w, i, logw[i], us + i * m->nu);
+    }
     fill_result(m, w);
     if ((rc = bk_result_push_history(res))) {
       rc = bk_mctx_nomem(m);
       goto out;
     }
     int reached = res->est.cov <= a->target_cov &&
-                  (!w->gate || w->gate(w->data, &w->est, w->n));
+                  (!w->may_stop || w->may_stop(w->data, w));
     m->planned = m->n + (reached ? 0 : batch);
     bk_mctx_progress(m);
     if (reached) {

@@ -24,6 +24,9 @@
 #include "methods/mctx.h"
 #include "numerics/estimate.h"
 
+/* Inputs (doubles) of one evaluator call at most: 16 MiB. */
+#define BK_WEIGHTED_CHUNK_DOUBLES ((size_t)1 << 21)
+
 /* Draws point `index` of the sampling density from the counter-based
  * stream `stream` (that of the key prefix): fills u (nu values) and
  * returns log phi(u) - log h(u), finite. */
@@ -32,19 +35,18 @@ typedef double (*bk_weighted_draw_cb)(void *data, uint64_t stream,
 /* Sees each evaluated point that has no fault: its key index, u and g. */
 typedef void (*bk_weighted_seen_cb)(void *data, uint64_t index, const double *u,
                                     double g);
-/* Asked after a batch whose estimate reached target_cov: returns nonzero
- * when the evidence allows the stop (enough failures, effective samples,
- * ...), 0 to go on sampling. */
-typedef int (*bk_weighted_gate_cb)(void *data, const bk_estimate_wsum_t *est,
-                                   uint64_t n);
+typedef struct bk_weighted bk_weighted_t;
+/* Whether the phase may stop on target_cov now that the estimate reached
+ * it (the estimate's sums in w->est): e.g. not with degenerate weights. */
+typedef int (*bk_weighted_stop_cb)(void *data, const bk_weighted_t *w);
 
-typedef struct {
+struct bk_weighted {
   /* Set by the caller. */
   const char *prefix;
   size_t batch; /* points per batch, at least 1 */
   bk_weighted_draw_cb draw;
-  bk_weighted_seen_cb seen; /* may be NULL */
-  bk_weighted_gate_cb gate; /* may be NULL: the cov alone decides */
+  bk_weighted_seen_cb seen;     /* may be NULL */
+  bk_weighted_stop_cb may_stop; /* may be NULL: always */
   void *data;
   /* Filled by bk_weighted_run. */
   bk_estimate_wsum_t est;    /* the estimate's values, after on_error */
@@ -53,7 +55,7 @@ typedef struct {
                                 without a fault */
   uint64_t n;                /* points evaluated in this phase */
   uint64_t errors;           /* of those, with a fault */
-} bk_weighted_t;
+};
 
 /* Draws points [first, first + n) with `draw` into rows of us (n * nu) and
  * their log-weights into logw, and evaluates them as one batch of the
@@ -64,8 +66,12 @@ int bk_weighted_batch(bk_mctx_t *m, const char *prefix, uint64_t first,
 
 /* Runs the phase: fills res->est, res->excluded and res->pf_bounds after
  * every batch, pushes the history, reports progress, and sets
- * res->stop_reason. Returns 0, or a negative code with m->err set (res
- * then holds the state after the last whole batch). */
+ * res->stop_reason. A batch goes to the evaluator in calls of at most
+ * BK_WEIGHTED_CHUNK_DOUBLES inputs, so memory stays bounded whatever the
+ * dimension and the batch size; the decision points (target_cov, after
+ * whole batches) and the results do not depend on the split. Returns 0,
+ * or a negative code with m->err set (res then holds the state after the
+ * last whole batch). */
 int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w);
 
 #endif

@@ -187,6 +187,13 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     bk_json_string(o, r->warnings[i]);
   }
   bk_buf_putc(o, ']');
+  key(o, "notes", &first);
+  bk_buf_putc(o, '[');
+  for (size_t i = 0; i < r->nnotes; i++) {
+    bk_buf_puts(o, i ? ", " : "");
+    bk_json_string(o, r->notes[i]);
+  }
+  bk_buf_putc(o, ']');
   key(o, "stop_reason", &first);
   bk_json_string(o, r->stop_reason ? r->stop_reason : "");
   key(o, "seconds", &first);
@@ -308,6 +315,8 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
                   r->details[i].value);
   for (size_t i = 0; i < r->nwarnings; i++)
     bk_buf_printf(o, "  WARNING: %s\n", r->warnings[i]);
+  for (size_t i = 0; i < r->nnotes; i++)
+    bk_buf_printf(o, "  NOTE: %s\n", r->notes[i]);
   bk_buf_printf(o, "  stopped because      %s", r->stop_reason);
   if (s->analysis.target_cov > 0 && !(e->cov <= s->analysis.target_cov))
     bk_buf_printf(o, " (target_cov %g not reached)", s->analysis.target_cov);

@@ -1058,6 +1058,12 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
     esc(o, w->items[i].t == J_STR ? w->items[i].str : "");
     bk_buf_puts(o, "</p>\n");
   }
+  const jv_t *nt = jget(j, "notes");
+  for (size_t i = 0; nt && nt->t == J_ARR && i < nt->n; i++) {
+    bk_buf_puts(o, "<p><b>Note:</b> ");
+    esc(o, nt->items[i].t == J_STR ? nt->items[i].str : "");
+    bk_buf_puts(o, "</p>\n");
+  }
   bk_buf_close(&v);
 }
 

@@ -64,8 +64,9 @@ static const char *const keys_analysis[] = {
     "max_evaluations", "target_beta",   "ci_level",   "form",
     "importance",      "cross_entropy", "subset",     NULL};
 static const char *const keys_form[] = {
-    "step", "differences", "max_iterations", "tolerance", "sorm", NULL};
-static const char *const keys_importance[] = {"center", NULL};
+    "step",    "differences", "max_iterations", "tolerance", "sorm",
+    "explore", "searches",    "probe",          NULL};
+static const char *const keys_importance[] = {"center", "defensive", NULL};
 static const char *const keys_ce[] = {"components", "rho", "max_steps", NULL};
 static const char *const keys_subset[] = {"p0", "max_levels", NULL};
 static const char *const keys_run[] = {"folder", "slots", "scratch", NULL};
@@ -1108,6 +1109,10 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
   a->form.max_iterations = 100;
   a->form.tolerance = 1e-3;
   a->form.sorm = 0;
+  a->form.explore = 1;
+  a->form.searches = 0;
+  a->form.probe = -1;
+  a->importance.defensive = 0.1;
   a->cross_entropy.components = 1;
   a->cross_entropy.rho = 0.1;
   a->cross_entropy.max_steps = 30;
@@ -1156,6 +1161,26 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
                     "'%s'",
                     t);
     }
+    if ((n = lookup(L, m, "explore"))) {
+      const char *t;
+      if ((rc = want_text(L, n, "analysis.form.explore", &t)))
+        return rc;
+      if (strcmp(t, "false") == 0)
+        a->form.explore = 0;
+      else if (strcmp(t, "true") != 0)
+        return FAIL(L, n,
+                    "analysis.form.explore must be true or false; got "
+                    "'%s'",
+                    t);
+    }
+    if ((n = lookup(L, m, "searches")) &&
+        (rc = want_int_range(L, n, "analysis.form.searches", 1, 64,
+                             &a->form.searches)))
+      return rc;
+    if ((n = lookup(L, m, "probe")) &&
+        (rc = want_int_range(L, n, "analysis.form.probe", 0, 100000,
+                             &a->form.probe)))
+      return rc;
   }
   if ((m = lookup(L, an, "importance"))) {
     if ((rc = want_mapping(L, m, "analysis.importance")) ||
@@ -1185,6 +1210,16 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
           return rc;
       }
       a->importance.has_center = 1;
+    }
+    if ((n = lookup(L, m, "defensive"))) {
+      if ((rc = want_number(L, n, "analysis.importance.defensive",
+                            &a->importance.defensive)))
+        return rc;
+      if (!(a->importance.defensive >= 0 && a->importance.defensive < 1))
+        return FAIL(L, n,
+                    "analysis.importance.defensive must lie in [0, 1) "
+                    "(got %g), e.g. 0.1",
+                    a->importance.defensive);
     }
   }
   if ((m = lookup(L, an, "cross_entropy"))) {
@@ -1611,6 +1646,9 @@ static int make_digests(bk_study_t *s) {
     bad |= bk_buf_printf(&b, "form %a %d %d %a %d\n", an->form.step,
                          an->form.central, an->form.max_iterations,
                          an->form.tolerance, an->form.sorm);
+    bad |= bk_buf_printf(&b, "explore %d %d %d defensive %a\n",
+                         an->form.explore, an->form.searches, an->form.probe,
+                         an->importance.defensive);
     bad |= bk_buf_printf(&b, "ce %d %a %d\nsubset %a %d\n",
                          an->cross_entropy.components, an->cross_entropy.rho,
                          an->cross_entropy.max_steps, an->subset.p0,

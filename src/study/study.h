@@ -94,12 +94,18 @@ typedef struct {
   int max_iterations; /* 100 */
   double tolerance;   /* convergence tolerance on u and g; 1e-3 */
   int sorm;           /* also Breitung SORM from a curvature batch; 0 */
+  /* Design-point exploration (method_form.c, docs/methods.md). */
+  int explore;  /* look for further design points; 1 */
+  int searches; /* most searches, the first included; 0: by dimension */
+  int probe;    /* points of the probe around the beta sphere; -1: by
+                   dimension */
 } bk_form_opts_t;
 
 /* analysis.importance: sampling around a design point. */
 typedef struct {
-  int has_center; /* center given by the user (x-space) */
-  double *center; /* nvars values (constants keep their value) */
+  int has_center;   /* center given by the user (x-space) */
+  double *center;   /* nvars values (constants keep their value) */
+  double defensive; /* share of the original density in the mixture; 0.1 */
 } bk_importance_opts_t;
 
 /* analysis.cross_entropy: adaptive Gaussian-mixture importance sampling. */
