@@ -92,11 +92,11 @@
 
 #define P0            0.1    /* conditional probability per population level */
 #define MAX_LEVELS    12     /* so populations reach Pf 1e-12 */
-#define KAPPA         2.0    /* population region: mu - KAPPA s <= 0 */
-#define MAX_COMP      4      /* mixture components */
+#define KAPPA         (getenv("BK_SG_KAPPA") ? atof(getenv("BK_SG_KAPPA")) : 2.0)    /* population region: mu - KAPPA s <= 0 */
+#define MAX_COMP      16     /* mixture components */
 #define DEFENSIVE     0.1    /* weight of phi in the proposal */
 #define MIN_CORR      20     /* correction runs before target_cov counts */
-#define M_LEARN       4000   /* surrogate points per learning estimate */
+#define N0_MAX        20000  /* points of phi in a population's level 0 */
 #define M_FINAL       20000  /* first size of the final surrogate estimate */
 #define M_FINAL_MAX   320000 /* its largest size */
 #define SHARE_CORR    0.9    /* cov allotted to the correction / target */
@@ -143,16 +143,20 @@ typedef struct {
   int have_lengths;
   double warm_nugget;
   /* Population and candidates (level 0 then the last level). */
-  size_t npop;
-  double *cand;      /* 2 npop x nu */
+  size_t n0, npop;   /* level 0's points; each later level's */
+  double *cand;      /* n0 + MAX_LEVELS npop points (see population) */
   double *cmu, *csd; /* their mean and sd */
   int reached;       /* the last level is mu - KAPPA s <= 0 */
-  int levels;
+  int levels;        /* levels after level 0 */
+  double lb[MAX_LEVELS + 2]; /* threshold of each level; lb[0] = inf */
+  double lp[MAX_LEVELS + 2]; /* P(G <= lb[l]) */
   /* Proposal. */
   mix_t q;
   /* Scratch for predictions. */
   double *pu, *pm, *pv;
 } sg_t;
+
+static double mix_logpdf(const mix_t *q, size_t nu, const double *u);
 
 /* ---------------------------------------------------------------------- */
 /* Small helpers                                                          */
@@ -225,6 +229,7 @@ static int fit(sg_t *g) {
   if (o.trend == BK_GP_TREND_LINEAR && g->nt < g->nu + 3)
     o.trend = BK_GP_TREND_CONSTANT;
   o.estimate_nugget = g->o->noisy;
+  if (getenv("BK_SG_LMAX")) o.length_bounds[1] = atof(getenv("BK_SG_LMAX"));
   if (g->have_lengths) {
     o.warm_lengths = g->lengths;
     o.warm_nugget = g->warm_nugget;
@@ -383,63 +388,87 @@ done:
   return rc;
 }
 
-/* Builds the candidates of iteration `it`: level 0 (npop points of phi)
- * into cand[0, npop), the last level into cand[npop, 2 npop). */
+/* Builds the population of iteration `it`: level 0, n0 points of phi, at
+ * cand[0, n0); then levels 1..L of npop points each, level l at
+ * cand[n0 + (l - 1) npop, ...), points of phi restricted to G <= b_l, with
+ * P(G <= b_l) about lp[l]. Level 1 grows from p0 npop seeds taken in index
+ * order among the level-0 points below b_1 (independent points of phi
+ * there, so any choice that ignores their G keeps the distribution). The
+ * last level has b_L = 0 when the surrogate reaches failure (reached). */
 static int population(sg_t *g, int it) {
-  size_t nu = g->nu, N = g->npop, nc = (size_t)(P0 * (double)N);
+  size_t nu = g->nu, N = g->npop, n0 = g->n0;
+  size_t nc = (size_t)(P0 * (double)N);
   char label[48];
   snprintf(label, sizeof label, "sg/p%d", it);
   uint64_t st0 = bk_rng_stream(label);
-  double *lev = g->cand, *lmu = g->cmu, *lsd = g->csd;
-  for (size_t i = 0; i < N; i++)
-    normals(g, st0, i, 0, nu, lev + i * nu);
-  int rc = predict(g, lev, N, lmu, lsd);
+  for (size_t i = 0; i < n0; i++)
+    normals(g, st0, i, 0, nu, g->cand + i * nu);
+  int rc = predict(g, g->cand, n0, g->cmu, g->csd);
   if (rc)
     return rc;
-  /* The working level starts as a copy of level 0. */
-  double *cur = g->cand + N * nu, *cmu = g->cmu + N, *csd = g->csd + N;
-  memcpy(cur, lev, N * nu * sizeof *cur);
-  memcpy(cmu, lmu, N * sizeof *cmu);
-  memcpy(csd, lsd, N * sizeof *csd);
-  rank_t *rk = bk_malloc(N * sizeof *rk);
-  double *seeds = bk_malloc(N * nu * sizeof *seeds);
-  double *smu = bk_malloc(N * sizeof *smu), *ssd = bk_malloc(N * sizeof *ssd);
+  size_t cap = n0 > N ? n0 : N;
+  rank_t *rk = bk_malloc(cap * sizeof *rk);
+  double *seeds = bk_malloc(cap * nu * sizeof *seeds);
+  double *smu = bk_malloc(cap * sizeof *smu),
+         *ssd = bk_malloc(cap * sizeof *ssd);
   if (!rk || !seeds || !smu || !ssd) {
     rc = oom(g);
     goto done;
   }
   g->reached = 0;
+  g->levels = 0;
+  g->lb[0] = INFINITY;
+  g->lp[0] = 1;
+  size_t off = 0, n = n0; /* the current level */
   for (int l = 0; l < MAX_LEVELS; l++) {
-    size_t n0 = 0;
-    for (size_t i = 0; i < N; i++) {
+    const double *cur = g->cand + off * nu;
+    const double *cmu = g->cmu + off, *csd = g->csd + off;
+    size_t nbelow0 = 0;
+    for (size_t i = 0; i < n; i++) {
       rk[i].v = cmu[i] - KAPPA * csd[i];
       rk[i].i = i;
-      n0 += rk[i].v <= 0;
+      nbelow0 += rk[i].v <= 0;
     }
-    qsort(rk, N, sizeof *rk, rank_cmp);
+    size_t need = l == 0 ? (size_t)(P0 * (double)n) : nc;
     double b;
-    size_t ns;
-    if (n0 >= nc) {
+    if (nbelow0 >= need) {
       b = 0;
-      ns = n0;
       g->reached = 1;
     } else {
-      b = rk[nc - 1].v;
-      ns = nc;
+      qsort(rk, n, sizeof *rk, rank_cmp);
+      b = rk[need - 1].v;
     }
-    if (g->reached && ns == N)
-      break; /* every point already lies in the region */
-    for (size_t c = 0; c < ns; c++) {
-      size_t i = rk[c].i;
-      memcpy(seeds + c * nu, cur + i * nu, nu * sizeof *seeds);
-      smu[c] = cmu[i];
-      ssd[c] = csd[i];
+    /* Seeds: the points with G <= b in index order, at most nc of them
+     * (the level-0 ones are independent; later levels' are chain states
+     * and all are used when fewer than nc). */
+    size_t nb = 0, ns = 0;
+    for (size_t i = 0; i < n; i++) {
+      if (!(cmu[i] - KAPPA * csd[i] <= b))
+        continue;
+      nb++;
+      if (ns < nc || (l > 0 && g->reached)) {
+        if (ns < cap) {
+          memcpy(seeds + ns * nu, cur + i * nu, nu * sizeof *seeds);
+          smu[ns] = cmu[i];
+          ssd[ns] = csd[i];
+          ns++;
+        }
+      }
     }
+    if (ns == 0)
+      break;
+    if (g->reached && l > 0 && nb == n)
+      break; /* this level lies in the region already */
+    g->lb[l + 1] = b;
+    g->lp[l + 1] = g->lp[l] * (double)nb / (double)n;
+    size_t noff = n0 + (size_t)l * N;
     snprintf(label, sizeof label, "sg/p%d/l%d", it, l + 1);
-    if ((rc = chains(g, bk_rng_stream(label), seeds, smu, ssd, ns, b, N, cur,
-                     cmu, csd)))
+    if ((rc = chains(g, bk_rng_stream(label), seeds, smu, ssd, ns, b, N,
+                     g->cand + noff * nu, g->cmu + noff, g->csd + noff)))
       goto done;
     g->levels = l + 1;
+    off = noff;
+    n = N;
     if (g->reached)
       break;
   }
@@ -449,6 +478,58 @@ done:
   bk_free(smu);
   bk_free(ssd);
   return rc;
+}
+
+/* The points of the population and their count. */
+static size_t pop_size(const sg_t *g) {
+  return g->n0 + (size_t)g->levels * g->npop;
+}
+
+/* The last level (the proposal is fitted to it). */
+static const double *last_level(const sg_t *g, size_t *n) {
+  if (g->levels == 0) {
+    *n = g->n0;
+    return g->cand;
+  }
+  *n = g->npop;
+  return g->cand + (g->n0 + (size_t)(g->levels - 1) * g->npop) * g->nu;
+}
+
+/* Stratified estimates over the population (subset simulation's levels as
+ * strata S_l = {b_{l+1} < G <= b_l}, the last one G <= b_L; Au & Beck
+ * 2001): E_phi[f] = sum_l P_l mean over level l of f 1{S_l}. Fills, for
+ * the learning curve and the stopping rule, Pf_s = E[pi], the band
+ * E[1{mu + KAPPA s <= 0}] and E[1{mu - KAPPA s <= 0}], and the predicted
+ * variance of one correction term E_phi[pi (1 - pi) phi / q]. */
+static void pop_estimate(const sg_t *g, sest_t *e) {
+  double f[4] = {0};
+  size_t nu = g->nu;
+  for (int l = 0; l <= g->levels; l++) {
+    size_t off = l == 0 ? 0 : g->n0 + (size_t)(l - 1) * g->npop;
+    size_t n = l == 0 ? g->n0 : g->npop;
+    double hi = g->lb[l], lo = l < g->levels ? g->lb[l + 1] : -INFINITY;
+    double s[4] = {0};
+    for (size_t i = off; i < off + n; i++) {
+      double mu = g->cmu[i], sd = g->csd[i], G = mu - KAPPA * sd;
+      if (!(G <= hi && G > lo))
+        continue;
+      double pi = bk_learn_pi(mu, sd);
+      const double *u = g->cand + i * nu;
+      double w = exp(log_phi(u, nu) - mix_logpdf(&g->q, nu, u));
+      s[0] += pi;
+      s[1] += mu + KAPPA * sd <= 0;
+      s[2] += G <= 0;
+      s[3] += pi * (1 - pi) * w;
+    }
+    for (int k = 0; k < 4; k++)
+      f[k] += g->lp[l] * s[k] / (double)n;
+  }
+  e->m = (double)pop_size(g);
+  e->pf = f[0];
+  e->var = 0;
+  e->lo = f[1];
+  e->hi = f[2];
+  e->vpred = f[3];
 }
 
 /* ---------------------------------------------------------------------- */
@@ -537,195 +618,112 @@ static int cholesky(double *a, size_t nu) {
   return 0;
 }
 
-/* The M-step: weights, means and Cholesky factors of K components from
- * responsibilities r (n x K). A ridge of 1e-3 of the mean variance keeps
- * the covariances positive definite. Returns 0 or -1 (a component
- * without points or a factorisation that failed). */
-static int m_step(mix_t *q, const double *x, size_t n, size_t nu,
-                  const double *r, size_t K, double ridge) {
-  for (size_t k = 0; k < K; k++) {
-    double sw = 0;
-    double *m = q->mean + k * nu, *C = q->chol + k * nu * nu;
-    memset(m, 0, nu * sizeof *m);
-    memset(C, 0, nu * nu * sizeof *C);
-    for (size_t i = 0; i < n; i++) {
-      double ri = r[i * K + k];
-      sw += ri;
-      for (size_t j = 0; j < nu; j++)
-        m[j] += ri * x[i * nu + j];
-    }
-    if (!(sw > (double)nu))
-      return -1;
+/* Fits the proposal to the last population (Gaussian mixture importance
+ * densities built from samples of the failure domain: Au & Beck 1999,
+ * Structural Safety 21(2):135-158, with kernels; here clusters): K
+ * clusters by weighted k-means (learn.h; K = n / (20 (nu + 1)), 1 to
+ * MAX_COMP), one Gaussian per cluster with the cluster's mean and
+ * covariance shrunk towards the pooled within-cluster covariance (weight
+ * nu + 2 points for the pooled one, so small clusters stay positive
+ * definite), widened by 1 + 1/sqrt(nu) (a fitted Gaussian has lighter
+ * tails than the truncated density it stands for), weights the clusters'
+ * shares. Many small clusters follow several failure regions and curved
+ * ones, where one Gaussian per region fitted by EM can merge two regions
+ * and leave a third uncovered. */
+static int fit_proposal(sg_t *g) {
+  size_t nu = g->nu, n;
+  const double *x = last_level(g, &n);
+  size_t K = n / (20 * (nu + 1));
+  K = K < 1 ? 1 : K > MAX_COMP ? MAX_COMP : K;
+  double *w = bk_malloc(n * sizeof *w), *cent = bk_malloc(K * nu * sizeof *cent);
+  double *pool = bk_calloc(nu * nu, sizeof *pool);
+  size_t *pick = bk_malloc(K * sizeof *pick), *lab = bk_malloc(n * sizeof *lab);
+  int rc = 0;
+  if (!w || !cent || !pool || !pick || !lab) {
+    rc = oom(g);
+    goto out;
+  }
+  for (size_t i = 0; i < n; i++)
+    w[i] = 1;
+  g->q.lambda = DEFENSIVE;
+  g->q.k = 0;
+  int r = bk_learn_kmeans(x, w, n, nu, K, 100, cent, pick, lab);
+  while (r == BK_EINVAL && K > 1)
+    r = bk_learn_kmeans(x, w, n, nu, --K, 100, cent, pick, lab);
+  if (r == BK_ENOMEM) {
+    rc = oom(g);
+    goto out;
+  }
+  if (r < 0)
+    goto out; /* phi alone: a degenerate population */
+  double cnt[MAX_COMP] = {0};
+  double *mean = g->q.mean, *C = g->q.chol;
+  memset(mean, 0, K * nu * sizeof *mean);
+  memset(C, 0, K * nu * nu * sizeof *C);
+  for (size_t i = 0; i < n; i++) {
+    cnt[lab[i]]++;
     for (size_t j = 0; j < nu; j++)
-      m[j] /= sw;
-    for (size_t i = 0; i < n; i++) {
-      double ri = r[i * K + k];
-      if (ri == 0)
-        continue;
-      const double *xi = x + i * nu;
-      for (size_t a = 0; a < nu; a++)
-        for (size_t b = 0; b <= a; b++)
-          C[a * nu + b] += ri * (xi[a] - m[a]) * (xi[b] - m[b]);
+      mean[lab[i] * nu + j] += x[i * nu + j];
+  }
+  for (size_t k = 0; k < K; k++)
+    for (size_t j = 0; j < nu; j++)
+      mean[k * nu + j] /= cnt[k] > 0 ? cnt[k] : 1;
+  double mv = 0;
+  for (size_t i = 0; i < n; i++) {
+    size_t k = lab[i];
+    const double *xi = x + i * nu, *m = mean + k * nu;
+    double *Ck = C + k * nu * nu;
+    for (size_t a = 0; a < nu; a++)
+      for (size_t b = 0; b <= a; b++) {
+        double v = (xi[a] - m[a]) * (xi[b] - m[b]);
+        Ck[a * nu + b] += v;
+        pool[a * nu + b] += v;
+      }
+  }
+  for (size_t a = 0; a < nu; a++) {
+    for (size_t b = 0; b <= a; b++)
+      pool[a * nu + b] /= (double)(n > K ? n - K : 1);
+    mv += pool[a * nu + a] / (double)nu;
+  }
+  double prior = (double)nu + 2, ridge = 1e-3 * mv + 1e-9;
+  double f = 1 + 1 / sqrt((double)nu);
+  size_t kk = 0;
+  for (size_t k = 0; k < K; k++) {
+    if (cnt[k] == 0)
+      continue;
+    double *Ck = C + kk * nu * nu;
+    if (kk != k) {
+      memcpy(mean + kk * nu, mean + k * nu, nu * sizeof *mean);
+      memcpy(Ck, C + k * nu * nu, nu * nu * sizeof *C);
     }
     for (size_t a = 0; a < nu; a++) {
       for (size_t b = 0; b <= a; b++)
-        C[a * nu + b] /= sw;
-      C[a * nu + a] += ridge;
+        Ck[a * nu + b] = f * (Ck[a * nu + b] + prior * pool[a * nu + b]) /
+                         (cnt[k] + prior);
+      Ck[a * nu + a] += ridge;
     }
-    if (cholesky(C, nu))
-      return -1;
+    if (cholesky(Ck, nu))
+      continue;
     double ld = 0;
     for (size_t a = 0; a < nu; a++)
-      ld += log(C[a * nu + a]);
-    q->logdet[k] = ld;
-    q->w[k] = sw / (double)n;
+      ld += log(Ck[a * nu + a]);
+    g->q.logdet[kk] = ld;
+    g->q.w[kk] = cnt[k];
+    kk++;
   }
-  q->k = K;
-  return 0;
-}
-
-/* Fits K components to the n points x by EM from a farthest-point start
- * (the point nearest the origin, then each next the farthest from those
- * chosen; nearest-centre clusters). Returns the log-likelihood, or -inf
- * when the fit fails. r is scratch of n x K. */
-static double em_fit(mix_t *q, const double *x, size_t n, size_t nu, size_t K,
-                     double *r, double ridge) {
-  size_t cen[MAX_COMP];
-  double best = INFINITY;
-  cen[0] = 0;
-  for (size_t i = 0; i < n; i++) {
-    double r2 = 0;
-    for (size_t j = 0; j < nu; j++)
-      r2 += x[i * nu + j] * x[i * nu + j];
-    if (r2 < best) {
-      best = r2;
-      cen[0] = i;
-    }
-  }
-  for (size_t k = 1; k < K; k++) {
-    double far = -1;
-    for (size_t i = 0; i < n; i++) {
-      double dmin = INFINITY;
-      for (size_t c = 0; c < k; c++) {
-        double d = 0;
-        for (size_t j = 0; j < nu; j++) {
-          double t = x[i * nu + j] - x[cen[c] * nu + j];
-          d += t * t;
-        }
-        if (d < dmin)
-          dmin = d;
-      }
-      if (dmin > far) {
-        far = dmin;
-        cen[k] = i;
-      }
-    }
-  }
-  memset(r, 0, n * K * sizeof *r);
-  for (size_t i = 0; i < n; i++) {
-    size_t bk = 0;
-    double bd = INFINITY;
-    for (size_t c = 0; c < K; c++) {
-      double d = 0;
-      for (size_t j = 0; j < nu; j++) {
-        double t = x[i * nu + j] - x[cen[c] * nu + j];
-        d += t * t;
-      }
-      if (d < bd) {
-        bd = d;
-        bk = c;
-      }
-    }
-    r[i * K + bk] = 1;
-  }
-  if (m_step(q, x, n, nu, r, K, ridge))
-    return -INFINITY;
-  double ll = -INFINITY;
-  for (int iter = 0; iter < 100; iter++) {
-    double lsum = 0;
-    for (size_t i = 0; i < n; i++) {
-      double lv[MAX_COMP], mx = -INFINITY;
-      for (size_t k = 0; k < K; k++) {
-        lv[k] = log(q->w[k]) + comp_logpdf(q, k, nu, x + i * nu);
-        if (lv[k] > mx)
-          mx = lv[k];
-      }
-      double s = 0;
-      for (size_t k = 0; k < K; k++)
-        s += exp(lv[k] - mx);
-      for (size_t k = 0; k < K; k++)
-        r[i * K + k] = exp(lv[k] - mx) / s;
-      lsum += mx + log(s);
-    }
-    int done = iter > 0 && fabs(lsum - ll) <= 1e-8 * fabs(lsum);
-    ll = lsum;
-    if (done)
-      break;
-    if (m_step(q, x, n, nu, r, K, ridge))
-      return -INFINITY;
-  }
-  return ll;
-}
-
-/* Fits the proposal to the last population: 1 to MAX_COMP components by
- * BIC (Schwarz 1978), covariances widened by 1 + 1/sqrt(nu). */
-static int fit_proposal(sg_t *g) {
-  size_t nu = g->nu, n = g->npop;
-  const double *x = g->cand + n * nu;
-  double var = 0;
-  for (size_t j = 0; j < nu; j++) {
-    double m = 0, v = 0;
-    for (size_t i = 0; i < n; i++)
-      m += x[i * nu + j];
-    m /= (double)n;
-    for (size_t i = 0; i < n; i++)
-      v += (x[i * nu + j] - m) * (x[i * nu + j] - m);
-    var += v / (double)(n - 1);
-  }
-  double ridge = 1e-3 * var / (double)nu + 1e-9;
-  double *r = bk_malloc(n * MAX_COMP * sizeof *r);
-  mix_t t = {0};
-  t.mean = bk_malloc(MAX_COMP * nu * sizeof *t.mean);
-  t.chol = bk_malloc(MAX_COMP * nu * nu * sizeof *t.chol);
-  if (!r || !t.mean || !t.chol) {
-    bk_free(r);
-    bk_free(t.mean);
-    bk_free(t.chol);
-    return oom(g);
-  }
-  double par = (double)nu + (double)nu * (double)(nu + 1) / 2;
-  double best = INFINITY;
-  for (size_t K = 1; K <= MAX_COMP; K++) {
-    if ((double)n < 10 * par * (double)K)
-      break;
-    double ll = em_fit(&t, x, n, nu, K, r, ridge);
-    if (!isfinite(ll))
-      continue;
-    double bic = -2 * ll + (par * (double)K + (double)K - 1) * log((double)n);
-    if (bic < best) {
-      best = bic;
-      g->q.k = t.k;
-      memcpy(g->q.w, t.w, sizeof t.w);
-      memcpy(g->q.logdet, t.logdet, sizeof t.logdet);
-      memcpy(g->q.mean, t.mean, K * nu * sizeof *t.mean);
-      memcpy(g->q.chol, t.chol, K * nu * nu * sizeof *t.chol);
-    }
-  }
-  bk_free(r);
-  bk_free(t.mean);
-  bk_free(t.chol);
-  g->q.lambda = DEFENSIVE;
-  if (!isfinite(best)) {
-    g->q.k = 0; /* phi alone: the population was too small or degenerate */
-    return 0;
-  }
-  double f = sqrt(1 + 1 / sqrt((double)nu));
-  for (size_t k = 0; k < g->q.k; k++) {
-    for (size_t a = 0; a < nu * nu; a++)
-      g->q.chol[k * nu * nu + a] *= f;
-    g->q.logdet[k] += (double)nu * log(f);
-  }
-  return 0;
+  double tot = 0;
+  for (size_t k = 0; k < kk; k++)
+    tot += g->q.w[k];
+  for (size_t k = 0; k < kk; k++)
+    g->q.w[k] /= tot;
+  g->q.k = kk;
+out:
+  bk_free(w);
+  bk_free(cent);
+  bk_free(pool);
+  bk_free(pick);
+  bk_free(lab);
+  return rc;
 }
 
 /* ---------------------------------------------------------------------- */
@@ -779,7 +777,7 @@ static double badness(const sg_t *g, double mu, double sd) {
 /* Picks q candidates into pick[]; returns the number picked (may be below
  * q when there are fewer usable candidates). */
 static int pick_batch(sg_t *g, size_t q, size_t *pick, size_t *npicked) {
-  size_t m = 2 * g->npop, nu = g->nu;
+  size_t m = pop_size(g), nu = g->nu;
   rank_t *rk = bk_malloc(m * sizeof *rk);
   if (!rk)
     return oom(g);
@@ -855,9 +853,6 @@ static double predicted_runs(const sg_t *g, const sest_t *e) {
     return INFINITY;
   double a = SHARE_CORR * tc * e->pf;
   double n = e->vpred / (a * a);
-  double floor_n = 1 / (SHARE_CORR * tc) - 2; /* the 1/(N+2) floor */
-  if (n < floor_n)
-    n = floor_n;
   return n < MIN_CORR ? MIN_CORR : ceil(n);
 }
 
@@ -935,11 +930,15 @@ static int learn(sg_t *g, sest_t *last) {
     if ((rc = fit(g)) || (rc = population(g, it)) || (rc = fit_proposal(g)))
       goto out;
     char label[48];
-    snprintf(label, sizeof label, "sg/s%d", it);
-    double sums[6] = {0};
-    if ((rc = surrogate_sums(g, bk_rng_stream(label), 0, M_LEARN, sums)))
-      goto out;
-    sums_to_est(sums, M_LEARN, last);
+    pop_estimate(g, last);
+    if (getenv("BK_SG_DEBUG")) {
+      fprintf(stderr, "it %d n %zu fail %llu levels %d reached %d pf %.4g [%.4g %.4g] vpred %.3g np %.1f k %zu len",
+              it, g->nt, (unsigned long long)g->train_failures, g->levels, g->reached, last->pf, last->lo, last->hi, last->vpred, predicted_runs(g, last), g->q.k);
+      for (size_t j = 0; j < nu; j++) fprintf(stderr, " %.3g", g->gp->lengths[j]);
+      fprintf(stderr, " s2 %.3g trend %d\n", g->gp->sigma2, (int)g->gp->trend);
+      if (nu == 2) { double dp[8] = {2.3,2.3,-2.3,-2.3,2.3,-2.3,-2.3,2.3}, mu[4], sd[4]; predict(g, dp, 4, mu, sd); fprintf(stderr, "   dp mu/sd: %.2f/%.2f %.2f/%.2f %.2f/%.2f %.2f/%.2f\n", mu[0],sd[0],mu[1],sd[1],mu[2],sd[2],mu[3],sd[3]); }
+      for (size_t k = 0; k < g->q.k; k++) { fprintf(stderr, "   comp %zu w %.3f m", k, g->q.w[k]); for (size_t j = 0; j < nu; j++) fprintf(stderr, " %.3f", g->q.mean[k*nu+j]); fprintf(stderr, " L %.3f %.3f %.3f\n", g->q.chol[k*nu*nu], g->q.chol[k*nu*nu+2], g->q.chol[k*nu*nu+3]);}
+    }
     if ((rc = push_learning(g, last)))
       goto out;
     bk_mctx_progress(&g->ctx);
@@ -951,10 +950,17 @@ static int learn(sg_t *g, sest_t *last) {
         g->res->stop_reason = "surrogate accurate";
         break;
       }
-      if (total < best_total) {
+      /* Learning stops paying when the predicted total of runs has not
+       * fallen for PATIENCE_ITER iterations; while the correction would
+       * not fit in the budget, learning goes on regardless. Predictions
+       * count only once the surrogate's band is narrower than its
+       * estimate: an early surrogate can be sure and wrong. */
+      int credible = last->hi - last->lo <= last->pf;
+      if (credible && total < best_total) {
         best_total = total;
         best_it = it;
-      } else if (it - best_it >= PATIENCE_ITER) {
+      } else if (credible && it - best_it >= PATIENCE_ITER &&
+                 total <= (double)a->max_evaluations) {
         g->res->stop_reason = "learning no longer pays";
         break;
       }
@@ -1111,11 +1117,7 @@ static int correct(sg_t *g, const sest_t *se) {
     double vc = sv > 0 ? sv / c.n : 0;
     double vp = se->vpred / c.n;
     pf = se->pf + cm;
-    double vf = pf > 0 ? pf / (c.n + 2) : 0;
-    vf *= vf;
     double v = vc > vp ? vc : vp;
-    if (vf > v)
-      v = vf;
     var = se->var + v;
     fill_estimate(g, pf, var);
     r->est.n = g->ctx.n;
@@ -1254,10 +1256,11 @@ int bk__method_surrogate(const bk_study_t *s, bk_evaluator_t *ev,
   g.npop = 1000 + 100 * g.nu;
   if (g.npop > 4000)
     g.npop = 4000;
-  size_t nu = g.nu;
-  g.cand = bk_malloc(2 * g.npop * nu * sizeof *g.cand);
-  g.cmu = bk_malloc(2 * g.npop * sizeof *g.cmu);
-  g.csd = bk_malloc(2 * g.npop * sizeof *g.csd);
+  g.n0 = 10 * g.npop > N0_MAX ? N0_MAX : 10 * g.npop;
+  size_t nu = g.nu, ncand = g.n0 + MAX_LEVELS * g.npop;
+  g.cand = bk_malloc(ncand * nu * sizeof *g.cand);
+  g.cmu = bk_malloc(ncand * sizeof *g.cmu);
+  g.csd = bk_malloc(ncand * sizeof *g.csd);
   g.q.mean = bk_malloc(MAX_COMP * nu * sizeof *g.q.mean);
   g.q.chol = bk_malloc(MAX_COMP * nu * nu * sizeof *g.q.chol);
   g.pu = bk_malloc(CHUNK * nu * sizeof *g.pu);
