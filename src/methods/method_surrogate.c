@@ -92,7 +92,7 @@
 
 #define P0            0.1    /* conditional probability per population level */
 #define MAX_LEVELS    12     /* so populations reach Pf 1e-12 */
-#define KAPPA         (getenv("BK_SG_KAPPA") ? atof(getenv("BK_SG_KAPPA")) : 2.0)    /* population region: mu - KAPPA s <= 0 */
+#define KAPPA         (getenv("BK_SG_KAPPA") ? atof(getenv("BK_SG_KAPPA")) : 4.0)    /* population region: mu - KAPPA s <= 0 */
 #define MAX_COMP      16     /* mixture components */
 #define DEFENSIVE     0.1    /* weight of phi in the proposal */
 #define MIN_CORR      20     /* correction runs before target_cov counts */
@@ -139,9 +139,9 @@ typedef struct {
   size_t nt, capt;
   uint64_t train_runs, train_faults, train_failures;
   bk_gp_t *gp;
-  double lengths[BK_GP_MAXDIM];
-  int have_lengths;
-  double warm_nugget;
+  double lengths[2][BK_GP_MAXDIM]; /* last fit of each trend */
+  int have_lengths[2];
+  double warm_nugget[2];
   /* Population and candidates (level 0 then the last level). */
   size_t n0, npop;   /* level 0's points; each later level's */
   double *cand;      /* n0 + MAX_LEVELS npop points (see population) */
@@ -219,46 +219,75 @@ static int add_training(sg_t *g, const double *u, double y) {
   return 0;
 }
 
-/* Refits the surrogate to the training set. */
-static int fit(sg_t *g) {
+/* Fits a process with the given trend, warm-started from the last fit of
+ * that trend. Returns 0 with *out set, or a code of bk_gp_new. */
+static int fit_trend(sg_t *g, int linear, bk_gp_t **out) {
   bk_gp_options_t o;
   bk_gp_options_default(&o);
   o.kernel = BK_GP_MATERN52;
-  o.trend = g->o->trend ? BK_GP_TREND_LINEAR : BK_GP_TREND_CONSTANT;
-  /* A linear trend needs more points than coefficients, with a margin. */
-  if (o.trend == BK_GP_TREND_LINEAR && g->nt < g->nu + 3)
-    o.trend = BK_GP_TREND_CONSTANT;
+  o.trend = linear ? BK_GP_TREND_LINEAR : BK_GP_TREND_CONSTANT;
   o.estimate_nugget = g->o->noisy;
-  if (getenv("BK_SG_LMAX")) o.length_bounds[1] = atof(getenv("BK_SG_LMAX"));
-  if (g->have_lengths) {
-    o.warm_lengths = g->lengths;
-    o.warm_nugget = g->warm_nugget;
+  if (g->have_lengths[linear]) {
+    o.warm_lengths = g->lengths[linear];
+    o.warm_nugget = g->warm_nugget[linear];
     o.nstarts = 2;
   }
+  int rc = bk_gp_new(out, g->tu, g->ty, g->nt, g->nu, &o);
+  if (rc == 0) {
+    memcpy(g->lengths[linear], (*out)->lengths, g->nu * sizeof(double));
+    g->warm_nugget[linear] = (*out)->nugget > 0 ? (*out)->nugget : 1e-6;
+    g->have_lengths[linear] = 1;
+  }
+  return rc;
+}
+
+/* Refits the surrogate to the training set. With trend auto, both trends
+ * are fitted and the one of smaller BIC, -2 log-likelihood + (trend
+ * coefficients) ln n (Schwarz 1978), is kept: the linear trend where g is
+ * nearly linear in u (it extrapolates well in many dimensions), the
+ * constant one elsewhere (it extrapolates to the mean, with a variance
+ * that grows away from the data, which keeps unexplored regions
+ * uncertain). A linear trend needs nu + 3 points at least. */
+static int fit(sg_t *g) {
   if (g->nt < 3)
     return bk_error_set(g->err, BK_EMODEL, NULL, 0, 0,
                         "only %zu training runs of the surrogate succeeded; "
                         "it needs at least 3",
                         g->nt);
-  bk_gp_t *gp = NULL;
-  int rc = bk_gp_new(&gp, g->tu, g->ty, g->nt, g->nu, &o);
-  if (rc == BK_ERANGE && o.trend == BK_GP_TREND_LINEAR) {
-    o.trend = BK_GP_TREND_CONSTANT;
-    rc = bk_gp_new(&gp, g->tu, g->ty, g->nt, g->nu, &o);
-  }
-  if (rc == BK_ENOMEM)
+  int want = g->o->trend; /* 0 constant, 1 linear, 2 auto */
+  int can_linear = g->nt >= g->nu + 3;
+  bk_gp_t *c = NULL, *l = NULL;
+  int rc = 0, rl = BK_EINVAL;
+  if (want != 1 || !can_linear)
+    rc = fit_trend(g, 0, &c);
+  if (want != 0 && can_linear)
+    rl = fit_trend(g, 1, &l);
+  if (rc == BK_ENOMEM || rl == BK_ENOMEM) {
+    bk_gp_free(c);
+    bk_gp_free(l);
     return oom(g);
-  if (rc)
-    return bk_error_set(g->err, rc, NULL, 0, 0,
+  }
+  bk_gp_t *gp = c;
+  if (l && c) {
+    double n = (double)g->nt;
+    double bic_c = -2 * c->loglik + 1 * log(n);
+    double bic_l = -2 * l->loglik + (double)(g->nu + 1) * log(n);
+    gp = bic_l < bic_c ? l : c;
+  } else if (l) {
+    gp = l;
+  }
+  if (gp != c)
+    bk_gp_free(c);
+  if (gp != l)
+    bk_gp_free(l);
+  if (!gp)
+    return bk_error_set(g->err, rc ? rc : rl, NULL, 0, 0,
                         "the surrogate cannot be fitted to the %zu training "
                         "runs (all values of g equal, or the points "
                         "degenerate); use method subset instead",
                         g->nt);
   bk_gp_free(g->gp);
   g->gp = gp;
-  memcpy(g->lengths, gp->lengths, g->nu * sizeof(double));
-  g->warm_nugget = gp->nugget > 0 ? gp->nugget : 1e-6;
-  g->have_lengths = 1;
   return 0;
 }
 

@@ -980,10 +980,22 @@ static int load_surrogate_options(loader_t *L, yaml_node_t *m) {
       (rc = want_int_range(L, n, "analysis.surrogate.start_points", 2, 100000,
                            &o->start)))
     return rc;
-  if ((n = lookup(L, m, "trend")) &&
-      (rc = want_choice(L, n, "analysis.surrogate.trend", "constant", "linear",
-                        &o->trend)))
-    return rc;
+  if ((n = lookup(L, m, "trend"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "analysis.surrogate.trend", &t)))
+      return rc;
+    if (strcmp(t, "constant") == 0)
+      o->trend = 0;
+    else if (strcmp(t, "linear") == 0)
+      o->trend = 1;
+    else if (strcmp(t, "auto") == 0)
+      o->trend = 2;
+    else
+      return FAIL(L, n,
+                  "analysis.surrogate.trend must be auto, constant or "
+                  "linear; got '%s'",
+                  t);
+  }
   if ((n = lookup(L, m, "noisy")) &&
       (rc = want_bool(L, n, "analysis.surrogate.noisy", &o->noisy)))
     return rc;
@@ -1022,7 +1034,7 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
   a->cross_entropy.max_steps = 30;
   a->subset.p0 = 0.1;
   a->subset.max_levels = 20;
-  a->surrogate.trend = 1;
+  a->surrogate.trend = 2;
   a->surrogate.train_share = 0.6;
   if (!an)
     return 0;

@@ -122,7 +122,7 @@ typedef struct {
   int batch;          /* model runs per learning iteration and per
                          correction batch; run.slots when not given */
   int start;          /* points of the starting design; 0: automatic */
-  int trend;          /* 0 constant, 1 linear (default) */
+  int trend;          /* 0 constant, 1 linear, 2 auto (default) */
   int noisy;          /* estimate a nugget (noisy model); 0 */
   int eff;            /* learning function: 0 U (default), 1 EFF */
   int believer;       /* batch rule: 0 weighted k-means (default), 1
