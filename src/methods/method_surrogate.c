@@ -1181,6 +1181,13 @@ static int correct(sg_t *g, const sest_t *se) {
                        (var - se->var) / vsum) ||
       bk_result_detail(r, "surrogate points", se->m))
     rc = oom(g);
+  if (c.n >= 2 && c.n < MIN_CORR && rc == 0 &&
+      bk_result_warn(r,
+                     "only %.0f correction runs (fewer than %d): their "
+                     "variance, and so the interval, is itself uncertain; "
+                     "raise analysis.max_evaluations",
+                     c.n, MIN_CORR))
+    rc = oom(g);
   if (c.n < 2 && rc == 0 &&
       bk_result_warn(r, "the correction has fewer than 2 model runs: the "
                         "estimate rests on the surrogate alone and has no "
