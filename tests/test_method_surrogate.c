@@ -139,14 +139,13 @@ Test(method_surrogate, batches_have_their_own_keys_and_size) {
   memset(&sp, 0, sizeof sp);
   bk_result_t r;
   cr_assert_eq(run_rc(s, &r, &sp), 0);
-  cr_expect(!strncmp(sp.prefixes, "sg/t0 sg/t1 sg/t2 ", 18), "%s",
-            sp.prefixes);
+  cr_expect(!strncmp(sp.prefixes, "sg/t0 sg/t1 sg/t2 ", 18), "%s", sp.prefixes);
   cr_expect(strstr(sp.prefixes, "sg/c "), "%s", sp.prefixes);
   cr_expect_eq(sp.sizes[0], 10); /* max(10, 2 nu + 2) */
   for (int i = 1; i < sp.nbatches && i < 512; i++)
     cr_expect_eq(sp.sizes[i], 5, "batch %d of %zu", i, sp.sizes[i]);
-  double train = detail(&r, "training runs"), corr = detail(&r,
-                                                            "correction runs");
+  double train = detail(&r, "training runs"),
+         corr = detail(&r, "correction runs");
   cr_expect_eq(train + corr, (double)r.evaluations);
   cr_expect_geq(corr, 20);
   bk_result_close(&r);
@@ -230,8 +229,8 @@ Test(method_surrogate, faulty_points_are_left_out_and_counted) {
                detail(&r, "training faults") + (double)r.excluded);
   double exact = bk_norm_sf(3.5); /* the faults lie where b is safe */
   cr_expect(r.pf_bounds[0] <= r.est.pf && r.est.pf <= r.pf_bounds[1]);
-  cr_expect(r.est.ci[0] <= exact && exact <= r.est.ci[1],
-            "%g not in [%g, %g]", exact, r.est.ci[0], r.est.ci[1]);
+  cr_expect(r.est.ci[0] <= exact && exact <= r.est.ci[1], "%g not in [%g, %g]",
+            exact, r.est.ci[0], r.est.ci[1]);
   bk_result_close(&r);
   bk_study_free(s);
 }
@@ -246,8 +245,7 @@ Test(method_surrogate, too_small_a_budget_never_claims_target_cov) {
   run(s, &r);
   cr_expect_leq(r.evaluations, 11);
   cr_expect(r.est.cov > 0);
-  cr_expect(has_warning(&r, "correction runs"), "%zu warnings",
-            r.nwarnings);
+  cr_expect(has_warning(&r, "correction runs"), "%zu warnings", r.nwarnings);
   cr_expect_str_neq(r.stop_reason, "target_cov reached");
   bk_result_close(&r);
   bk_study_free(s);
@@ -259,8 +257,9 @@ Test(method_surrogate, many_variables_warn_and_name_subset) {
   char g[2048] = "limit_state: 15";
   for (int i = 1; i <= 24; i++) {
     size_t l = strlen(text);
-    snprintf(text + l, sizeof text - l, "  x%d: {type: normal, mean: 0, sd: "
-                                        "1}\n",
+    snprintf(text + l, sizeof text - l,
+             "  x%d: {type: normal, mean: 0, sd: "
+             "1}\n",
              i);
     l = strlen(g);
     snprintf(g + l, sizeof g - l, " - x%d", i);

@@ -134,34 +134,33 @@ Test(resume_methods, surrogate_resumes_after_kill_9_with_identical_records) {
  * at once is counted from them. */
 Test(resume_methods, surrogate_keeps_every_slot_busy) {
   write_file("deck.txt", "a={{ a : %%.17g }} b={{ b : %%.17g }}\n");
-  write_file("m.sh",
-             "s=$(date +%%s.%%N); sleep 0.4\n"
-             "set -- $(tr '=' ' ' < in.txt)\n"
-             "echo \"g = $(echo \"3.2 - ($2 + $4)/1.4142135623730951\" | bc -l)\" "
-             "> out.txt\n"
-             "echo \"$s $(date +%%s.%%N)\" >> '%s/times.log'\n",
-             dir);
-  write_file("busy.yaml",
-             "name: busy\n"
-             "seed: 5\n"
-             "variables:\n"
-             "  a: {type: normal, mean: 0, sd: 1}\n"
-             "  b: {type: normal, mean: 0, sd: 1}\n"
-             "model:\n"
-             "  files: [{template: deck.txt, to: in.txt}]\n"
-             "  copy: [m.sh]\n"
-             "  command: [sh, m.sh]\n"
-             "  outputs:\n"
-             "    g: {file: out.txt, pattern: 'g = (\\S+)'}\n"
-             "limit_state: g\n"
-             "analysis: {method: surrogate, max_evaluations: 45}\n"
-             "run: {folder: busy, slots: 3}\n");
+  write_file(
+      "m.sh",
+      "s=$(date +%%s.%%N); sleep 0.4\n"
+      "set -- $(tr '=' ' ' < in.txt)\n"
+      "echo \"g = $(echo \"3.2 - ($2 + $4)/1.4142135623730951\" | bc -l)\" "
+      "> out.txt\n"
+      "echo \"$s $(date +%%s.%%N)\" >> '%s/times.log'\n",
+      dir);
+  write_file("busy.yaml", "name: busy\n"
+                          "seed: 5\n"
+                          "variables:\n"
+                          "  a: {type: normal, mean: 0, sd: 1}\n"
+                          "  b: {type: normal, mean: 0, sd: 1}\n"
+                          "model:\n"
+                          "  files: [{template: deck.txt, to: in.txt}]\n"
+                          "  copy: [m.sh]\n"
+                          "  command: [sh, m.sh]\n"
+                          "  outputs:\n"
+                          "    g: {file: out.txt, pattern: 'g = (\\S+)'}\n"
+                          "limit_state: g\n"
+                          "analysis: {method: surrogate, max_evaluations: 45}\n"
+                          "run: {folder: busy, slots: 3}\n");
   cr_assert_eq(brink("run busy.yaml --quiet"), 0, "%s", read_file("err.txt"));
   char *log = read_file("times.log");
   double t0[64], t1[64];
   int n = 0;
-  for (char *p = log; n < 64 && sscanf(p, "%lf %lf", &t0[n], &t1[n]) == 2;
-       n++)
+  for (char *p = log; n < 64 && sscanf(p, "%lf %lf", &t0[n], &t1[n]) == 2; n++)
     p = strchr(p, '\n') + 1;
   cr_assert_geq(n, 20, "%s", log);
   /* For each start, the runs running 0.1 s later (once its wave has

@@ -90,21 +90,26 @@
 #include "numerics/sampler.h"
 #include "numerics/special.h"
 
-#define P0            0.1    /* conditional probability per population level */
-#define MAX_LEVELS    12     /* so populations reach Pf 1e-12 */
-#define KAPPA         (getenv("BK_SG_KAPPA") ? atof(getenv("BK_SG_KAPPA")) : 4.0)    /* population region: mu - KAPPA s <= 0 */
-#define MAX_COMP      16     /* mixture components */
-#define DEFENSIVE     0.1    /* weight of phi in the proposal */
-#define MIN_CORR      20     /* correction runs before target_cov counts */
-#define N0_MAX        20000  /* points of phi in a population's level 0 */
-#define M_FINAL       20000  /* first size of the final surrogate estimate */
-#define M_FINAL_MAX   320000 /* its largest size */
-#define SHARE_CORR    0.9    /* cov allotted to the correction / target */
-#define SHARE_SURR    0.4    /* cov allotted to the surrogate part */
-#define PATIENCE_ITER 3      /* learning iterations without gain */
-#define CHUNK         1024   /* points per prediction call */
-#define MANY_VARS     20     /* beyond this, warn */
-#define MARGIN_K      1.959963984540054 /* Phi^-1(0.975) */
+#define P0         0.1 /* conditional probability per population level */
+#define MAX_LEVELS 12  /* so populations reach Pf 1e-12 */
+#define KAPPA                                                                  \
+  (getenv("BK_SG_KAPPA") ? atof(getenv("BK_SG_KAPPA"))                         \
+                         : 4.0) /* population region: mu - KAPPA s <= 0 */
+#define MAX_COMP      16        /* mixture components */
+#define DEFENSIVE     0.1       /* weight of phi in the proposal */
+#define MIN_CORR      20        /* correction runs before target_cov counts */
+#define N0_MAX        20000     /* points of phi in a population's level 0 */
+#define M_FINAL       20000     /* first size of the final surrogate estimate */
+#define M_FINAL_MAX   320000    /* its largest size */
+#define SHARE_CORR    0.9       /* cov allotted to the correction / target */
+#define SHARE_SURR    0.4       /* cov allotted to the surrogate part */
+#define PATIENCE_ITER 3         /* learning iterations without gain */
+#define CHUNK         1024      /* points per prediction call */
+#define MANY_VARS     20        /* beyond this, warn */
+#define SPHERE_U                                                               \
+  2.0 /* learning goes on while a sphere candidate                             \
+         has U below this (Echard et al. 2011) */
+#define MARGIN_K 1.959963984540054 /* Phi^-1(0.975) */
 
 /* A Gaussian mixture mixed with phi: q = lambda phi + (1 - lambda)
  * sum_k w_k N(mean_k, L_k L_k^T). */
@@ -143,11 +148,12 @@ typedef struct {
   int have_lengths[2];
   double warm_nugget[2];
   /* Population and candidates (level 0 then the last level). */
-  size_t n0, npop;   /* level 0's points; each later level's */
-  double *cand;      /* n0 + MAX_LEVELS npop points (see population) */
-  double *cmu, *csd; /* their mean and sd */
-  int reached;       /* the last level is mu - KAPPA s <= 0 */
-  int levels;        /* levels after level 0 */
+  size_t n0, npop;           /* level 0's points; each later level's */
+  double *cand;              /* n0 + MAX_LEVELS npop points (see population) */
+  double *cmu, *csd;         /* their mean and sd */
+  int reached;               /* the last level is mu - KAPPA s <= 0 */
+  int levels;                /* levels after level 0 */
+  size_t nsphere;            /* candidates on a sphere after the levels */
   double lb[MAX_LEVELS + 2]; /* threshold of each level; lb[0] = inf */
   double lp[MAX_LEVELS + 2]; /* P(G <= lb[l]) */
   /* Proposal. */
@@ -511,7 +517,46 @@ done:
 
 /* The points of the population and their count. */
 static size_t pop_size(const sg_t *g) {
-  return g->n0 + (size_t)g->levels * g->npop;
+  return g->n0 + (size_t)g->levels * g->npop + g->nsphere;
+}
+
+/* Candidates on the sphere of radius beta_s - 0.3 (beta_s the surrogate's
+ * reliability index; at least 0.5), appended after the levels: all of
+ * them have the same density, nearly that of the design points found, so
+ * one with U < 2 marks a direction where the surrogate cannot exclude a
+ * failure region about as likely as the ones it knows (a second design
+ * point that the levels, which follow the regions already found, would
+ * miss). Returns the smallest U among them. */
+static int sphere(sg_t *g, int it, double pf, double *umin) {
+  size_t nu = g->nu, n = g->npop;
+  size_t off = g->n0 + (size_t)g->levels * g->npop;
+  double r = -bk_norm_icdf(pf) - 0.3;
+  if (!(r > 0.5))
+    r = 0.5;
+  char label[48];
+  snprintf(label, sizeof label, "sg/r%d", it);
+  uint64_t st = bk_rng_stream(label);
+  double *x = g->cand + off * nu;
+  for (size_t i = 0; i < n; i++) {
+    normals(g, st, i, 0, nu, x + i * nu);
+    double r2 = 0;
+    for (size_t j = 0; j < nu; j++)
+      r2 += x[i * nu + j] * x[i * nu + j];
+    double f = r / sqrt(r2 > 0 ? r2 : 1);
+    for (size_t j = 0; j < nu; j++)
+      x[i * nu + j] *= f;
+  }
+  int rc = predict(g, x, n, g->cmu + off, g->csd + off);
+  if (rc)
+    return rc;
+  g->nsphere = n;
+  double m = INFINITY;
+  for (size_t i = 0; i < n; i++) {
+    double v = bk_learn_u(g->cmu[off + i], g->csd[off + i]);
+    m = v < m ? v : m;
+  }
+  *umin = m;
+  return 0;
 }
 
 /* The last level (the proposal is fitted to it). */
@@ -664,7 +709,8 @@ static int fit_proposal(sg_t *g) {
   const double *x = last_level(g, &n);
   size_t K = n / (20 * (nu + 1));
   K = K < 1 ? 1 : K > MAX_COMP ? MAX_COMP : K;
-  double *w = bk_malloc(n * sizeof *w), *cent = bk_malloc(K * nu * sizeof *cent);
+  double *w = bk_malloc(n * sizeof *w),
+         *cent = bk_malloc(K * nu * sizeof *cent);
   double *pool = bk_calloc(nu * nu, sizeof *pool);
   size_t *pick = bk_malloc(K * sizeof *pick), *lab = bk_malloc(n * sizeof *lab);
   int rc = 0;
@@ -727,8 +773,8 @@ static int fit_proposal(sg_t *g) {
     }
     for (size_t a = 0; a < nu; a++) {
       for (size_t b = 0; b <= a; b++)
-        Ck[a * nu + b] = f * (Ck[a * nu + b] + prior * pool[a * nu + b]) /
-                         (cnt[k] + prior);
+        Ck[a * nu + b] =
+            f * (Ck[a * nu + b] + prior * pool[a * nu + b]) / (cnt[k] + prior);
       Ck[a * nu + a] += ridge;
     }
     if (cholesky(Ck, nu))
@@ -956,23 +1002,47 @@ static int learn(sg_t *g, sest_t *last) {
   int best_it = 0;
   g->res->stop_reason = "training share spent";
   for (int it = 1;; it++) {
+    g->nsphere = 0;
     if ((rc = fit(g)) || (rc = population(g, it)) || (rc = fit_proposal(g)))
       goto out;
     char label[48];
     pop_estimate(g, last);
+    double umin = INFINITY;
+    if (last->pf > 0 && (rc = sphere(g, it, last->pf, &umin)))
+      goto out;
     if (getenv("BK_SG_DEBUG")) {
-      fprintf(stderr, "it %d n %zu fail %llu levels %d reached %d pf %.4g [%.4g %.4g] vpred %.3g np %.1f k %zu len",
-              it, g->nt, (unsigned long long)g->train_failures, g->levels, g->reached, last->pf, last->lo, last->hi, last->vpred, predicted_runs(g, last), g->q.k);
-      for (size_t j = 0; j < nu; j++) fprintf(stderr, " %.3g", g->gp->lengths[j]);
+      fprintf(stderr, "umin %.2f ", umin);
+      fprintf(stderr,
+              "it %d n %zu fail %llu levels %d reached %d pf %.4g [%.4g %.4g] "
+              "vpred %.3g np %.1f k %zu len",
+              it, g->nt, (unsigned long long)g->train_failures, g->levels,
+              g->reached, last->pf, last->lo, last->hi, last->vpred,
+              predicted_runs(g, last), g->q.k);
+      for (size_t j = 0; j < nu; j++)
+        fprintf(stderr, " %.3g", g->gp->lengths[j]);
       fprintf(stderr, " s2 %.3g trend %d\n", g->gp->sigma2, (int)g->gp->trend);
-      if (nu == 2) { double dp[8] = {2.3,2.3,-2.3,-2.3,2.3,-2.3,-2.3,2.3}, mu[4], sd[4]; predict(g, dp, 4, mu, sd); fprintf(stderr, "   dp mu/sd: %.2f/%.2f %.2f/%.2f %.2f/%.2f %.2f/%.2f\n", mu[0],sd[0],mu[1],sd[1],mu[2],sd[2],mu[3],sd[3]); }
-      for (size_t k = 0; k < g->q.k; k++) { fprintf(stderr, "   comp %zu w %.3f m", k, g->q.w[k]); for (size_t j = 0; j < nu; j++) fprintf(stderr, " %.3f", g->q.mean[k*nu+j]); fprintf(stderr, " L %.3f %.3f %.3f\n", g->q.chol[k*nu*nu], g->q.chol[k*nu*nu+2], g->q.chol[k*nu*nu+3]);}
+      if (nu == 2) {
+        double dp[8] = {2.3, 2.3, -2.3, -2.3, 2.3, -2.3, -2.3, 2.3}, mu[4],
+               sd[4];
+        predict(g, dp, 4, mu, sd);
+        fprintf(stderr,
+                "   dp mu/sd: %.2f/%.2f %.2f/%.2f %.2f/%.2f %.2f/%.2f\n", mu[0],
+                sd[0], mu[1], sd[1], mu[2], sd[2], mu[3], sd[3]);
+      }
+      for (size_t k = 0; k < g->q.k; k++) {
+        fprintf(stderr, "   comp %zu w %.3f m", k, g->q.w[k]);
+        for (size_t j = 0; j < nu; j++)
+          fprintf(stderr, " %.3f", g->q.mean[k * nu + j]);
+        fprintf(stderr, " L %.3f %.3f %.3f\n", g->q.chol[k * nu * nu],
+                g->q.chol[k * nu * nu + 2], g->q.chol[k * nu * nu + 3]);
+      }
     }
     if ((rc = push_learning(g, last)))
       goto out;
     bk_mctx_progress(&g->ctx);
     /* Stopping (see the top of this file). */
-    if (g->reached && g->train_failures > 0 && last->pf > 0) {
+    if (g->reached && g->train_failures > 0 && last->pf > 0 &&
+        umin >= SPHERE_U) {
       double np = predicted_runs(g, last);
       double total = (double)g->ctx.n + np;
       if (np <= MIN_CORR) {
@@ -1293,7 +1363,7 @@ int bk__method_surrogate(const bk_study_t *s, bk_evaluator_t *ev,
   if (g.npop > 4000)
     g.npop = 4000;
   g.n0 = 10 * g.npop > N0_MAX ? N0_MAX : 10 * g.npop;
-  size_t nu = g.nu, ncand = g.n0 + MAX_LEVELS * g.npop;
+  size_t nu = g.nu, ncand = g.n0 + (MAX_LEVELS + 1) * g.npop;
   g.cand = bk_malloc(ncand * nu * sizeof *g.cand);
   g.cmu = bk_malloc(ncand * sizeof *g.cmu);
   g.csd = bk_malloc(ncand * sizeof *g.csd);
