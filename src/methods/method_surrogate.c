@@ -1021,21 +1021,8 @@ static int learn(sg_t *g, sest_t *last) {
       for (size_t j = 0; j < nu; j++)
         fprintf(stderr, " %.3g", g->gp->lengths[j]);
       fprintf(stderr, " s2 %.3g trend %d\n", g->gp->sigma2, (int)g->gp->trend);
-      if (nu == 2) {
-        double dp[8] = {2.3, 2.3, -2.3, -2.3, 2.3, -2.3, -2.3, 2.3}, mu[4],
-               sd[4];
-        predict(g, dp, 4, mu, sd);
-        fprintf(stderr,
-                "   dp mu/sd: %.2f/%.2f %.2f/%.2f %.2f/%.2f %.2f/%.2f\n", mu[0],
-                sd[0], mu[1], sd[1], mu[2], sd[2], mu[3], sd[3]);
-      }
-      for (size_t k = 0; k < g->q.k; k++) {
-        fprintf(stderr, "   comp %zu w %.3f m", k, g->q.w[k]);
-        for (size_t j = 0; j < nu; j++)
-          fprintf(stderr, " %.3f", g->q.mean[k * nu + j]);
-        fprintf(stderr, " L %.3f %.3f %.3f\n", g->q.chol[k * nu * nu],
-                g->q.chol[k * nu * nu + 2], g->q.chol[k * nu * nu + 3]);
-      }
+      for (int l = 0; l <= g->levels; l++) { size_t off = l == 0 ? 0 : g->n0 + (size_t)(l - 1) * g->npop, n = l == 0 ? g->n0 : g->npop; size_t np = 0, nn = 0; for (size_t i = off; i < off + n; i++) { if (g->cand[i*nu] > 0) np++; else nn++; } fprintf(stderr, "   level %d b %.3g p %.3g: a>0 %zu a<0 %zu\n", l, g->lb[l], g->lp[l], np, nn); }
+      if (nu == 2) { double dp[26], mu[13], sd[13]; for (int k = 0; k < 13; k++) { dp[2*k] = -6 + k; dp[2*k+1] = 0; } predict(g, dp, 13, mu, sd); fprintf(stderr, "   axis"); for (int k = 0; k < 13; k++) fprintf(stderr, " %.1f/%.2f", mu[k], sd[k]); fprintf(stderr, "\n"); fprintf(stderr, "   train"); for (size_t k = 0; k < g->nt; k++) fprintf(stderr, " (%.1f,%.1f:%.1f)", g->tu[2*k], g->tu[2*k+1], g->ty[k]); fprintf(stderr, "\n"); }
     }
     if ((rc = push_learning(g, last)))
       goto out;
