@@ -99,6 +99,8 @@
 #define DEFENSIVE     0.1       /* weight of phi in the proposal */
 #define MIN_CORR      20        /* correction runs before target_cov counts */
 #define N0_MAX        20000     /* points of phi in a population's level 0 */
+#define M_ADAPT       4000      /* points per refit of the proposal */
+#define M_LEARN       4000      /* points per learning estimate */
 #define M_FINAL       20000     /* first size of the final surrogate estimate */
 #define M_FINAL_MAX   320000    /* its largest size */
 #define SHARE_CORR    0.9       /* cov allotted to the correction / target */
@@ -704,22 +706,37 @@ static int cholesky(double *a, size_t nu) {
  * shares. Many small clusters follow several failure regions and curved
  * ones, where one Gaussian per region fitted by EM can merge two regions
  * and leave a third uncovered. */
-static int fit_proposal(sg_t *g) {
-  size_t nu = g->nu, n;
-  const double *x = last_level(g, &n);
-  size_t K = n / (20 * (nu + 1));
+static int fit_mixture(sg_t *g, const double *x, const double *wt,
+                       size_t n) {
+  size_t nu = g->nu;
+  g->q.lambda = DEFENSIVE;
+  double *w = bk_malloc(n * sizeof *w);
+  if (!w)
+    return oom(g);
+  /* Weights scaled to sum to the effective number of points, so that
+   * cluster weights count points and the prior below weighs nu + 2 of
+   * them. */
+  double s1 = 0, s2 = 0;
+  for (size_t i = 0; i < n; i++) {
+    w[i] = wt ? wt[i] : 1;
+    s1 += w[i];
+    s2 += w[i] * w[i];
+  }
+  double neff = s2 > 0 ? s1 * s1 / s2 : 0;
+  for (size_t i = 0; i < n; i++)
+    w[i] *= s1 > 0 ? neff / s1 : 0;
+  size_t K = (size_t)(neff / (20 * (double)(nu + 1)));
   K = K < 1 ? 1 : K > MAX_COMP ? MAX_COMP : K;
-  double *w = bk_malloc(n * sizeof *w),
-         *cent = bk_malloc(K * nu * sizeof *cent);
+  double *cent = bk_malloc(K * nu * sizeof *cent);
   double *pool = bk_calloc(nu * nu, sizeof *pool);
   size_t *pick = bk_malloc(K * sizeof *pick), *lab = bk_malloc(n * sizeof *lab);
   int rc = 0;
-  if (!w || !cent || !pool || !pick || !lab) {
+  if (!cent || !pool || !pick || !lab) {
     rc = oom(g);
     goto out;
   }
-  for (size_t i = 0; i < n; i++)
-    w[i] = 1;
+  if (!(neff >= 2))
+    goto out_phi;
   g->q.lambda = DEFENSIVE;
   g->q.k = 0;
   int r = bk_learn_kmeans(x, w, n, nu, K, 100, cent, pick, lab);
@@ -730,15 +747,15 @@ static int fit_proposal(sg_t *g) {
     goto out;
   }
   if (r < 0)
-    goto out; /* phi alone: a degenerate population */
+    goto out_phi; /* phi alone: a degenerate population */
   double cnt[MAX_COMP] = {0};
   double *mean = g->q.mean, *C = g->q.chol;
   memset(mean, 0, K * nu * sizeof *mean);
   memset(C, 0, K * nu * nu * sizeof *C);
   for (size_t i = 0; i < n; i++) {
-    cnt[lab[i]]++;
+    cnt[lab[i]] += w[i];
     for (size_t j = 0; j < nu; j++)
-      mean[lab[i] * nu + j] += x[i * nu + j];
+      mean[lab[i] * nu + j] += w[i] * x[i * nu + j];
   }
   for (size_t k = 0; k < K; k++)
     for (size_t j = 0; j < nu; j++)
@@ -750,21 +767,21 @@ static int fit_proposal(sg_t *g) {
     double *Ck = C + k * nu * nu;
     for (size_t a = 0; a < nu; a++)
       for (size_t b = 0; b <= a; b++) {
-        double v = (xi[a] - m[a]) * (xi[b] - m[b]);
+        double v = w[i] * (xi[a] - m[a]) * (xi[b] - m[b]);
         Ck[a * nu + b] += v;
         pool[a * nu + b] += v;
       }
   }
   for (size_t a = 0; a < nu; a++) {
     for (size_t b = 0; b <= a; b++)
-      pool[a * nu + b] /= (double)(n > K ? n - K : 1);
+      pool[a * nu + b] /= neff > (double)K + 1 ? neff - (double)K : 1;
     mv += pool[a * nu + a] / (double)nu;
   }
   double prior = (double)nu + 2, ridge = 1e-3 * mv + 1e-9;
   double f = 1 + 1 / sqrt((double)nu);
   size_t kk = 0;
   for (size_t k = 0; k < K; k++) {
-    if (cnt[k] == 0)
+    if (!(cnt[k] > 0))
       continue;
     double *Ck = C + kk * nu * nu;
     if (kk != k) {
@@ -792,12 +809,63 @@ static int fit_proposal(sg_t *g) {
   for (size_t k = 0; k < kk; k++)
     g->q.w[k] /= tot;
   g->q.k = kk;
+  goto out;
+out_phi:
+  g->q.k = 0;
 out:
   bk_free(w);
   bk_free(cent);
   bk_free(pool);
   bk_free(pick);
   bk_free(lab);
+  return rc;
+}
+
+/* The proposal from the last population level. */
+static int fit_proposal(sg_t *g) {
+  size_t n;
+  const double *x = last_level(g, &n);
+  return fit_mixture(g, x, NULL, n);
+}
+
+/* Refits the proposal to points of itself weighted by pi phi / q, twice:
+ * adaptive importance sampling on the surrogate alone (no model run; the
+ * cross-entropy idea of Rubinstein 1999 with the surrogate's pi in place
+ * of the indicator). The chains of the population do not move between
+ * separate failure regions, so the share of points each region gets there
+ * is a matter of chance; the weights restore each region's share of Pf. */
+static int refine_proposal(sg_t *g, int it) {
+  size_t nu = g->nu, m = M_ADAPT;
+  double *x = bk_malloc(m * nu * sizeof *x), *v = bk_malloc(m * sizeof *v);
+  double *mu = bk_malloc(m * sizeof *mu), *sd = bk_malloc(m * sizeof *sd);
+  int rc = 0;
+  if (!x || !v || !mu || !sd) {
+    rc = oom(g);
+    goto out;
+  }
+  for (int r = 0; r < 2 && g->q.k > 0; r++) {
+    char label[48];
+    snprintf(label, sizeof label, "sg/a%d/%d", it, r);
+    uint64_t st = bk_rng_stream(label);
+    for (size_t i = 0; i < m; i++)
+      v[i] = mix_sample(g, &g->q, st, i, x + i * nu);
+    if ((rc = predict(g, x, m, mu, sd)))
+      goto out;
+    double sum = 0;
+    for (size_t i = 0; i < m; i++) {
+      v[i] *= bk_learn_pi(mu[i], sd[i]);
+      sum += v[i];
+    }
+    if (!(sum > 0))
+      break;
+    if ((rc = fit_mixture(g, x, v, m)))
+      goto out;
+  }
+out:
+  bk_free(x);
+  bk_free(v);
+  bk_free(mu);
+  bk_free(sd);
   return rc;
 }
 
@@ -1003,10 +1071,19 @@ static int learn(sg_t *g, sest_t *last) {
   g->res->stop_reason = "training share spent";
   for (int it = 1;; it++) {
     g->nsphere = 0;
-    if ((rc = fit(g)) || (rc = population(g, it)) || (rc = fit_proposal(g)))
+    if ((rc = fit(g)) || (rc = population(g, it)) || (rc = fit_proposal(g)) ||
+        (rc = refine_proposal(g, it)))
       goto out;
     char label[48];
-    pop_estimate(g, last);
+    {
+      /* The learning estimate by importance sampling with the proposal
+       * the estimate will use. */
+      snprintf(label, sizeof label, "sg/s%d", it);
+      double sums[6] = {0};
+      if ((rc = surrogate_sums(g, bk_rng_stream(label), 0, M_LEARN, sums)))
+        goto out;
+      sums_to_est(sums, M_LEARN, last);
+    }
     double umin = INFINITY;
     if (last->pf > 0 && (rc = sphere(g, it, last->pf, &umin)))
       goto out;
