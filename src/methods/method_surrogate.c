@@ -92,9 +92,8 @@
 
 #define P0         0.1 /* conditional probability per population level */
 #define MAX_LEVELS 12  /* so populations reach Pf 1e-12 */
-#define KAPPA                                                                  \
-  (getenv("BK_SG_KAPPA") ? atof(getenv("BK_SG_KAPPA"))                         \
-                         : 4.0) /* population region: mu - KAPPA s <= 0 */
+#define KAPPA      4.0 /* exploring population: mu - KAPPA s <= 0 */
+#define BAND_K     2.0 /* the learning curve's band: mu -+ BAND_K s */
 #define MAX_COMP      16        /* mixture components */
 #define DEFENSIVE     0.1       /* weight of phi in the proposal */
 #define MIN_CORR      20        /* correction runs before target_cov counts */
@@ -108,9 +107,8 @@
 #define PATIENCE_ITER 3         /* learning iterations without gain */
 #define CHUNK         1024      /* points per prediction call */
 #define MANY_VARS     20        /* beyond this, warn */
-#define SPHERE_U                                                               \
-  2.0 /* learning goes on while a sphere candidate                             \
-         has U below this (Echard et al. 2011) */
+#define SPHERE_U 3.0 /* learning goes on, and explores, while a sphere  \
+                        candidate has U below this */
 #define MARGIN_K 1.959963984540054 /* Phi^-1(0.975) */
 
 /* A Gaussian mixture mixed with phi: q = lambda phi + (1 - lambda)
@@ -156,6 +154,10 @@ typedef struct {
   int reached;               /* the last level is mu - KAPPA s <= 0 */
   int levels;                /* levels after level 0 */
   size_t nsphere;            /* candidates on a sphere after the levels */
+  size_t nmean;              /* the last level of the population on mu
+                                alone, right after the levels */
+  double kappa;              /* the population's region: mu - kappa s */
+  double *keep, *kmu, *ksd;  /* scratch: a last level kept */
   double lb[MAX_LEVELS + 2]; /* threshold of each level; lb[0] = inf */
   double lp[MAX_LEVELS + 2]; /* P(G <= lb[l]) */
   /* Proposal. */
@@ -165,6 +167,7 @@ typedef struct {
 } sg_t;
 
 static double mix_logpdf(const mix_t *q, size_t nu, const double *u);
+static const double *last_level(const sg_t *g, size_t *n);
 
 /* ---------------------------------------------------------------------- */
 /* Small helpers                                                          */
@@ -398,7 +401,7 @@ static int chains(sg_t *g, uint64_t stream, const double *seeds,
       goto done;
     size_t acc = 0;
     for (size_t c = 0; c < ns; c++) {
-      if (pmu[c] - KAPPA * psd[c] <= b) {
+      if (pmu[c] - g->kappa * psd[c] <= b) {
         memcpy(cur + c * nu, prop + c * nu, nu * sizeof *cur);
         cmu[c] = pmu[c];
         csd[c] = psd[c];
@@ -432,11 +435,11 @@ done:
  * order among the level-0 points below b_1 (independent points of phi
  * there, so any choice that ignores their G keeps the distribution). The
  * last level has b_L = 0 when the surrogate reaches failure (reached). */
-static int population(sg_t *g, int it) {
+static int population(sg_t *g, const char *prefix, int it) {
   size_t nu = g->nu, N = g->npop, n0 = g->n0;
   size_t nc = (size_t)(P0 * (double)N);
   char label[48];
-  snprintf(label, sizeof label, "sg/p%d", it);
+  snprintf(label, sizeof label, "%s%d", prefix, it);
   uint64_t st0 = bk_rng_stream(label);
   for (size_t i = 0; i < n0; i++)
     normals(g, st0, i, 0, nu, g->cand + i * nu);
@@ -462,7 +465,7 @@ static int population(sg_t *g, int it) {
     const double *cmu = g->cmu + off, *csd = g->csd + off;
     size_t nbelow0 = 0;
     for (size_t i = 0; i < n; i++) {
-      rk[i].v = cmu[i] - KAPPA * csd[i];
+      rk[i].v = cmu[i] - g->kappa * csd[i];
       rk[i].i = i;
       nbelow0 += rk[i].v <= 0;
     }
@@ -480,7 +483,7 @@ static int population(sg_t *g, int it) {
      * and all are used when fewer than nc). */
     size_t nb = 0, ns = 0;
     for (size_t i = 0; i < n; i++) {
-      if (!(cmu[i] - KAPPA * csd[i] <= b))
+      if (!(cmu[i] - g->kappa * csd[i] <= b))
         continue;
       nb++;
       if (ns < nc || (l > 0 && g->reached)) {
@@ -499,7 +502,7 @@ static int population(sg_t *g, int it) {
     g->lb[l + 1] = b;
     g->lp[l + 1] = g->lp[l] * (double)nb / (double)n;
     size_t noff = n0 + (size_t)l * N;
-    snprintf(label, sizeof label, "sg/p%d/l%d", it, l + 1);
+    snprintf(label, sizeof label, "%s%d/l%d", prefix, it, l + 1);
     if ((rc = chains(g, bk_rng_stream(label), seeds, smu, ssd, ns, b, N,
                      g->cand + noff * nu, g->cmu + noff, g->csd + noff)))
       goto done;
@@ -517,9 +520,38 @@ done:
   return rc;
 }
 
+/* The populations of iteration `it`: on mu alone (kappa 0, streams
+ * "sg/m<it>..."), whose regions keep the shares the surrogate gives them,
+ * then the exploring one (kappa KAPPA, "sg/p<it>..."), whose levels drift
+ * towards where the surrogate is unsure and can lose a well-known region
+ * on the way. The candidates are the exploring population's levels; the
+ * last level of the first follows them, and both last levels seed the
+ * proposal. */
+static int two_populations(sg_t *g, int it) {
+  size_t nu = g->nu, n;
+  g->kappa = 0;
+  int rc = population(g, "sg/m", it);
+  if (rc)
+    return rc;
+  const double *x = last_level(g, &n);
+  const double *mu = g->cmu + (x - g->cand) / nu, *sd = g->csd + (x - g->cand) / nu;
+  memcpy(g->keep, x, n * nu * sizeof *x);
+  memcpy(g->kmu, mu, n * sizeof *mu);
+  memcpy(g->ksd, sd, n * sizeof *sd);
+  g->kappa = KAPPA;
+  if ((rc = population(g, "sg/p", it)))
+    return rc;
+  size_t off = g->n0 + (size_t)g->levels * g->npop;
+  memcpy(g->cand + off * nu, g->keep, n * nu * sizeof *x);
+  memcpy(g->cmu + off, g->kmu, n * sizeof *mu);
+  memcpy(g->csd + off, g->ksd, n * sizeof *sd);
+  g->nmean = n;
+  return 0;
+}
+
 /* The points of the population and their count. */
 static size_t pop_size(const sg_t *g) {
-  return g->n0 + (size_t)g->levels * g->npop + g->nsphere;
+  return g->n0 + (size_t)g->levels * g->npop + g->nmean + g->nsphere;
 }
 
 /* Candidates on the sphere of radius beta_s - 0.3 (beta_s the surrogate's
@@ -529,9 +561,9 @@ static size_t pop_size(const sg_t *g) {
  * failure region about as likely as the ones it knows (a second design
  * point that the levels, which follow the regions already found, would
  * miss). Returns the smallest U among them. */
-static int sphere(sg_t *g, int it, double pf, double *umin) {
+static int sphere(sg_t *g, int it, double pf, double *umin, size_t *imin) {
   size_t nu = g->nu, n = g->npop;
-  size_t off = g->n0 + (size_t)g->levels * g->npop;
+  size_t off = g->n0 + (size_t)g->levels * g->npop + g->nmean;
   double r = -bk_norm_icdf(pf) - 0.3;
   if (!(r > 0.5))
     r = 0.5;
@@ -555,7 +587,10 @@ static int sphere(sg_t *g, int it, double pf, double *umin) {
   double m = INFINITY;
   for (size_t i = 0; i < n; i++) {
     double v = bk_learn_u(g->cmu[off + i], g->csd[off + i]);
-    m = v < m ? v : m;
+    if (v < m) {
+      m = v;
+      *imin = off + i;
+    }
   }
   *umin = m;
   return 0;
@@ -571,11 +606,12 @@ static const double *last_level(const sg_t *g, size_t *n) {
   return g->cand + (g->n0 + (size_t)(g->levels - 1) * g->npop) * g->nu;
 }
 
+
 /* Stratified estimates over the population (subset simulation's levels as
  * strata S_l = {b_{l+1} < G <= b_l}, the last one G <= b_L; Au & Beck
  * 2001): E_phi[f] = sum_l P_l mean over level l of f 1{S_l}. Fills, for
  * the learning curve and the stopping rule, Pf_s = E[pi], the band
- * E[1{mu + KAPPA s <= 0}] and E[1{mu - KAPPA s <= 0}], and the predicted
+ * E[1{mu + BAND_K s <= 0}] and E[1{mu - BAND_K s <= 0}], and the predicted
  * variance of one correction term E_phi[pi (1 - pi) phi / q]. */
 static void pop_estimate(const sg_t *g, sest_t *e) {
   double f[4] = {0};
@@ -586,15 +622,15 @@ static void pop_estimate(const sg_t *g, sest_t *e) {
     double hi = g->lb[l], lo = l < g->levels ? g->lb[l + 1] : -INFINITY;
     double s[4] = {0};
     for (size_t i = off; i < off + n; i++) {
-      double mu = g->cmu[i], sd = g->csd[i], G = mu - KAPPA * sd;
+      double mu = g->cmu[i], sd = g->csd[i], G = mu - g->kappa * sd;
       if (!(G <= hi && G > lo))
         continue;
       double pi = bk_learn_pi(mu, sd);
       const double *u = g->cand + i * nu;
       double w = exp(log_phi(u, nu) - mix_logpdf(&g->q, nu, u));
       s[0] += pi;
-      s[1] += mu + KAPPA * sd <= 0;
-      s[2] += G <= 0;
+      s[1] += mu + BAND_K * sd <= 0;
+      s[2] += mu - BAND_K * sd <= 0;
       s[3] += pi * (1 - pi) * w;
     }
     for (int k = 0; k < 4; k++)
@@ -821,11 +857,13 @@ out:
   return rc;
 }
 
-/* The proposal from the last population level. */
+/* The proposal from the last level of the exploring population and the
+ * last level of the population on mu alone (which follow one another in
+ * cand). */
 static int fit_proposal(sg_t *g) {
   size_t n;
   const double *x = last_level(g, &n);
-  return fit_mixture(g, x, NULL, n);
+  return fit_mixture(g, x, NULL, n + g->nmean);
 }
 
 /* Refits the proposal to points of itself weighted by pi phi / q, twice:
@@ -891,8 +929,8 @@ static int surrogate_sums(sg_t *g, uint64_t stream, uint64_t from, uint64_t to,
       sums[0] += v;
       sums[1] += v * v;
       sums[2] += p * (1 - p) * w[k] * w[k];
-      sums[3] += (g->pm[k] + KAPPA * g->pv[k] <= 0) * w[k];
-      sums[4] += (g->pm[k] - KAPPA * g->pv[k] <= 0) * w[k];
+      sums[3] += (g->pm[k] + BAND_K * g->pv[k] <= 0) * w[k];
+      sums[4] += (g->pm[k] - BAND_K * g->pv[k] <= 0) * w[k];
     }
   }
   return 0;
@@ -920,7 +958,7 @@ static double badness(const sg_t *g, double mu, double sd) {
 /* Picks q candidates into pick[]; returns the number picked (may be below
  * q when there are fewer usable candidates). */
 static int pick_batch(sg_t *g, size_t q, size_t *pick, size_t *npicked) {
-  size_t m = pop_size(g), nu = g->nu;
+  size_t m = pop_size(g) - g->nsphere, nu = g->nu;
   rank_t *rk = bk_malloc(m * sizeof *rk);
   if (!rk)
     return oom(g);
@@ -1070,9 +1108,9 @@ static int learn(sg_t *g, sest_t *last) {
   int best_it = 0;
   g->res->stop_reason = "training share spent";
   for (int it = 1;; it++) {
-    g->nsphere = 0;
-    if ((rc = fit(g)) || (rc = population(g, it)) || (rc = fit_proposal(g)) ||
-        (rc = refine_proposal(g, it)))
+    g->nsphere = g->nmean = 0;
+    if ((rc = fit(g)) || (rc = two_populations(g, it)) ||
+        (rc = fit_proposal(g)) || (rc = refine_proposal(g, it)))
       goto out;
     char label[48];
     {
@@ -1083,9 +1121,18 @@ static int learn(sg_t *g, sest_t *last) {
       if ((rc = surrogate_sums(g, bk_rng_stream(label), 0, M_LEARN, sums)))
         goto out;
       sums_to_est(sums, M_LEARN, last);
+      /* The predicted correction variance also from the exploring
+       * population's strata, which reach regions where the surrogate is
+       * unsure and the proposal puts little mass, so that importance
+       * sampling with it would rarely see them. */
+      sest_t st;
+      pop_estimate(g, &st);
+      if (st.vpred > last->vpred)
+        last->vpred = st.vpred;
     }
     double umin = INFINITY;
-    if (last->pf > 0 && (rc = sphere(g, it, last->pf, &umin)))
+    size_t imin = 0;
+    if (last->pf > 0 && (rc = sphere(g, it, last->pf, &umin, &imin)))
       goto out;
     if (getenv("BK_SG_DEBUG")) {
       fprintf(stderr, "umin %.2f ", umin);
@@ -1099,7 +1146,7 @@ static int learn(sg_t *g, sest_t *last) {
         fprintf(stderr, " %.3g", g->gp->lengths[j]);
       fprintf(stderr, " s2 %.3g trend %d\n", g->gp->sigma2, (int)g->gp->trend);
       for (int l = 0; l <= g->levels; l++) { size_t off = l == 0 ? 0 : g->n0 + (size_t)(l - 1) * g->npop, n = l == 0 ? g->n0 : g->npop; size_t np = 0, nn = 0; for (size_t i = off; i < off + n; i++) { if (g->cand[i*nu] > 0) np++; else nn++; } fprintf(stderr, "   level %d b %.3g p %.3g: a>0 %zu a<0 %zu\n", l, g->lb[l], g->lp[l], np, nn); }
-      if (nu == 2) { double dp[26], mu[13], sd[13]; for (int k = 0; k < 13; k++) { dp[2*k] = -6 + k; dp[2*k+1] = 0; } predict(g, dp, 13, mu, sd); fprintf(stderr, "   axis"); for (int k = 0; k < 13; k++) fprintf(stderr, " %.1f/%.2f", mu[k], sd[k]); fprintf(stderr, "\n"); fprintf(stderr, "   train"); for (size_t k = 0; k < g->nt; k++) fprintf(stderr, " (%.1f,%.1f:%.1f)", g->tu[2*k], g->tu[2*k+1], g->ty[k]); fprintf(stderr, "\n"); }
+      if (nu == 2) { double dp[26], mu[13], sd[13]; for (int k = 0; k < 13; k++) { dp[2*k] = -6 + k; dp[2*k+1] = 0; } predict(g, dp, 13, mu, sd); { double q4[2] = {2.3, -2.3}, m4, s4; predict(g, q4, 1, &m4, &s4); fprintf(stderr, "   LR %.2f/%.2f\n", m4, s4); } fprintf(stderr, "   axis"); for (int k = 0; k < 13; k++) fprintf(stderr, " %.1f/%.2f", mu[k], sd[k]); fprintf(stderr, "\n"); fprintf(stderr, "   train"); for (size_t k = 0; k < g->nt; k++) fprintf(stderr, " (%.1f,%.1f:%.1f)", g->tu[2*k], g->tu[2*k+1], g->ty[k]); fprintf(stderr, "\n"); }
     }
     if ((rc = push_learning(g, last)))
       goto out;
@@ -1130,9 +1177,18 @@ static int learn(sg_t *g, sest_t *last) {
     }
     if (g->train_runs + q > cap || g->ctx.n + q + MIN_CORR > a->max_evaluations)
       break;
-    size_t np = 0;
-    if ((rc = pick_batch(g, q, pick, &np)))
+    /* Exploration: while the sphere holds a direction where the surrogate
+     * cannot exclude failure, one point of each batch (of every other
+     * iteration when the batch is one point) goes to the least certain
+     * of them. */
+    size_t np = 0, nx = 0;
+    if (umin < SPHERE_U && (q > 1 || it % 2 == 1)) {
+      pick[0] = imin;
+      nx = 1;
+    }
+    if (q > nx && (rc = pick_batch(g, q - nx, pick + nx, &np)))
       goto out;
+    np += nx;
     if (np == 0) {
       g->res->stop_reason = "no candidate left";
       break;
@@ -1427,7 +1483,11 @@ int bk__method_surrogate(const bk_study_t *s, bk_evaluator_t *ev,
   if (g.npop > 4000)
     g.npop = 4000;
   g.n0 = 10 * g.npop > N0_MAX ? N0_MAX : 10 * g.npop;
-  size_t nu = g.nu, ncand = g.n0 + (MAX_LEVELS + 1) * g.npop;
+  size_t nu = g.nu, ncand = g.n0 + (MAX_LEVELS + 2) * g.npop;
+  size_t nkeep = g.n0 > g.npop ? g.n0 : g.npop;
+  g.keep = bk_malloc(nkeep * nu * sizeof *g.keep);
+  g.kmu = bk_malloc(nkeep * sizeof *g.kmu);
+  g.ksd = bk_malloc(nkeep * sizeof *g.ksd);
   g.cand = bk_malloc(ncand * nu * sizeof *g.cand);
   g.cmu = bk_malloc(ncand * sizeof *g.cmu);
   g.csd = bk_malloc(ncand * sizeof *g.csd);
@@ -1436,7 +1496,7 @@ int bk__method_surrogate(const bk_study_t *s, bk_evaluator_t *ev,
   g.pu = bk_malloc(CHUNK * nu * sizeof *g.pu);
   g.pm = bk_malloc(CHUNK * sizeof *g.pm);
   g.pv = bk_malloc(CHUNK * sizeof *g.pv);
-  if (!g.cand || !g.cmu || !g.csd || !g.q.mean || !g.q.chol || !g.pu || !g.pm ||
+  if (!g.cand || !g.cmu || !g.csd || !g.keep || !g.kmu || !g.ksd || !g.q.mean || !g.q.chol || !g.pu || !g.pm ||
       !g.pv) {
     rc = oom(&g);
     goto out;
@@ -1472,6 +1532,9 @@ out:
   bk_free(g.cand);
   bk_free(g.cmu);
   bk_free(g.csd);
+  bk_free(g.keep);
+  bk_free(g.kmu);
+  bk_free(g.ksd);
   bk_free(g.q.mean);
   bk_free(g.q.chol);
   bk_free(g.pu);
