@@ -107,7 +107,7 @@
 #define PATIENCE_ITER 3         /* learning iterations without gain */
 #define CHUNK         1024      /* points per prediction call */
 #define MANY_VARS     20        /* beyond this, warn */
-#define SPHERE_U 3.0 /* learning goes on, and explores, while a sphere  \
+#define SPHERE_U 4.0 /* learning goes on, and explores, while a sphere  \
                         candidate has U below this */
 #define MARGIN_K 1.959963984540054 /* Phi^-1(0.975) */
 
@@ -1146,7 +1146,7 @@ static int learn(sg_t *g, sest_t *last) {
         fprintf(stderr, " %.3g", g->gp->lengths[j]);
       fprintf(stderr, " s2 %.3g trend %d\n", g->gp->sigma2, (int)g->gp->trend);
       for (int l = 0; l <= g->levels; l++) { size_t off = l == 0 ? 0 : g->n0 + (size_t)(l - 1) * g->npop, n = l == 0 ? g->n0 : g->npop; size_t np = 0, nn = 0; for (size_t i = off; i < off + n; i++) { if (g->cand[i*nu] > 0) np++; else nn++; } fprintf(stderr, "   level %d b %.3g p %.3g: a>0 %zu a<0 %zu\n", l, g->lb[l], g->lp[l], np, nn); }
-      if (nu == 2) { double dp[26], mu[13], sd[13]; for (int k = 0; k < 13; k++) { dp[2*k] = -6 + k; dp[2*k+1] = 0; } predict(g, dp, 13, mu, sd); { double q4[2] = {2.3, -2.3}, m4, s4; predict(g, q4, 1, &m4, &s4); fprintf(stderr, "   LR %.2f/%.2f\n", m4, s4); } fprintf(stderr, "   axis"); for (int k = 0; k < 13; k++) fprintf(stderr, " %.1f/%.2f", mu[k], sd[k]); fprintf(stderr, "\n"); fprintf(stderr, "   train"); for (size_t k = 0; k < g->nt; k++) fprintf(stderr, " (%.1f,%.1f:%.1f)", g->tu[2*k], g->tu[2*k+1], g->ty[k]); fprintf(stderr, "\n"); }
+      if (nu == 2) { double dp[26], mu[13], sd[13]; for (int k = 0; k < 13; k++) { dp[2*k] = -6 + k; dp[2*k+1] = 0; } predict(g, dp, 13, mu, sd); { double q4[8] = {2.3, -2.3, 2.3, 2.3, -2.3, -2.3, -2.3, 2.3}, m4[4], s4[4]; predict(g, q4, 4, m4, s4); fprintf(stderr, "   LR %.2f/%.2f UR %.2f/%.2f LL %.2f/%.2f UL %.2f/%.2f\n", m4[0], s4[0], m4[1], s4[1], m4[2], s4[2], m4[3], s4[3]); } fprintf(stderr, "   axis"); for (int k = 0; k < 13; k++) fprintf(stderr, " %.1f/%.2f", mu[k], sd[k]); fprintf(stderr, "\n"); fprintf(stderr, "   train"); for (size_t k = 0; k < g->nt; k++) fprintf(stderr, " (%.1f,%.1f:%.1f)", g->tu[2*k], g->tu[2*k+1], g->ty[k]); fprintf(stderr, "\n"); }
     }
     if ((rc = push_learning(g, last)))
       goto out;
