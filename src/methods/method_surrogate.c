@@ -1337,6 +1337,14 @@ static int correct(sg_t *g, const sest_t *se) {
     double vp = se->vpred / c.n;
     pf = se->pf + cm;
     double v = vc > vp ? vc : vp;
+    /* N runs that showed no misclassification still leave a share of
+     * about 1/(N + 2) of q where the surrogate may err unseen (Laplace's
+     * rule of succession), each such point off by about Pf (q near the
+     * optimal density): the correction's error is taken as at least
+     * that. */
+    double vf = pf > 0 ? pf / (c.n + 2) : 0;
+    if (vf * vf > v)
+      v = vf * vf;
     var = se->var + v;
     fill_estimate(g, pf, var);
     r->est.n = g->ctx.n;
