@@ -90,25 +90,26 @@
 #include "numerics/sampler.h"
 #include "numerics/special.h"
 
-#define P0         0.1 /* conditional probability per population level */
-#define MAX_LEVELS 12  /* so populations reach Pf 1e-12 */
-#define KAPPA      4.0 /* exploring population: mu - KAPPA s <= 0 */
-#define BAND_K     2.0 /* the learning curve's band: mu -+ BAND_K s */
-#define MAX_COMP      16        /* mixture components */
-#define DEFENSIVE     0.1       /* weight of phi in the proposal */
-#define MIN_CORR      20        /* correction runs before target_cov counts */
-#define N0_MAX        20000     /* points of phi in a population's level 0 */
-#define M_ADAPT       4000      /* points per refit of the proposal */
-#define M_LEARN       4000      /* points per learning estimate */
-#define M_FINAL       20000     /* first size of the final surrogate estimate */
-#define M_FINAL_MAX   320000    /* its largest size */
-#define SHARE_CORR    0.9       /* cov allotted to the correction / target */
-#define SHARE_SURR    0.4       /* cov allotted to the surrogate part */
-#define PATIENCE_ITER 3         /* learning iterations without gain */
-#define CHUNK         1024      /* points per prediction call */
-#define MANY_VARS     20        /* beyond this, warn */
-#define SPHERE_U 4.0 /* learning goes on, and explores, while a sphere  \
-                        candidate has U below this */
+#define P0            0.1    /* conditional probability per population level */
+#define MAX_LEVELS    12     /* so populations reach Pf 1e-12 */
+#define KAPPA         4.0    /* exploring population: mu - KAPPA s <= 0 */
+#define BAND_K        2.0    /* the learning curve's band: mu -+ BAND_K s */
+#define MAX_COMP      16     /* mixture components */
+#define DEFENSIVE     0.1    /* weight of phi in the proposal */
+#define MIN_CORR      20     /* correction runs before target_cov counts */
+#define N0_MAX        20000  /* points of phi in a population's level 0 */
+#define M_ADAPT       4000   /* points per refit of the proposal */
+#define M_LEARN       4000   /* points per learning estimate */
+#define M_FINAL       20000  /* first size of the final surrogate estimate */
+#define M_FINAL_MAX   320000 /* its largest size */
+#define SHARE_CORR    0.9    /* cov allotted to the correction / target */
+#define SHARE_SURR    0.4    /* cov allotted to the surrogate part */
+#define PATIENCE_ITER 3      /* learning iterations without gain */
+#define CHUNK         1024   /* points per prediction call */
+#define MANY_VARS     20     /* beyond this, warn */
+#define SPHERE_U                                                               \
+  4.0 /* learning goes on, and explores, while a sphere                        \
+         candidate has U below this */
 #define MARGIN_K 1.959963984540054 /* Phi^-1(0.975) */
 
 /* A Gaussian mixture mixed with phi: q = lambda phi + (1 - lambda)
@@ -534,7 +535,8 @@ static int two_populations(sg_t *g, int it) {
   if (rc)
     return rc;
   const double *x = last_level(g, &n);
-  const double *mu = g->cmu + (x - g->cand) / nu, *sd = g->csd + (x - g->cand) / nu;
+  const double *mu = g->cmu + (x - g->cand) / nu,
+               *sd = g->csd + (x - g->cand) / nu;
   memcpy(g->keep, x, n * nu * sizeof *x);
   memcpy(g->kmu, mu, n * sizeof *mu);
   memcpy(g->ksd, sd, n * sizeof *sd);
@@ -605,7 +607,6 @@ static const double *last_level(const sg_t *g, size_t *n) {
   *n = g->npop;
   return g->cand + (g->n0 + (size_t)(g->levels - 1) * g->npop) * g->nu;
 }
-
 
 /* Stratified estimates over the population (subset simulation's levels as
  * strata S_l = {b_{l+1} < G <= b_l}, the last one G <= b_L; Au & Beck
@@ -742,8 +743,7 @@ static int cholesky(double *a, size_t nu) {
  * shares. Many small clusters follow several failure regions and curved
  * ones, where one Gaussian per region fitted by EM can merge two regions
  * and leave a third uncovered. */
-static int fit_mixture(sg_t *g, const double *x, const double *wt,
-                       size_t n) {
+static int fit_mixture(sg_t *g, const double *x, const double *wt, size_t n) {
   size_t nu = g->nu;
   g->q.lambda = DEFENSIVE;
   double *w = bk_malloc(n * sizeof *w);
@@ -1134,20 +1134,6 @@ static int learn(sg_t *g, sest_t *last) {
     size_t imin = 0;
     if (last->pf > 0 && (rc = sphere(g, it, last->pf, &umin, &imin)))
       goto out;
-    if (getenv("BK_SG_DEBUG")) {
-      fprintf(stderr, "umin %.2f ", umin);
-      fprintf(stderr,
-              "it %d n %zu fail %llu levels %d reached %d pf %.4g [%.4g %.4g] "
-              "vpred %.3g np %.1f k %zu len",
-              it, g->nt, (unsigned long long)g->train_failures, g->levels,
-              g->reached, last->pf, last->lo, last->hi, last->vpred,
-              predicted_runs(g, last), g->q.k);
-      for (size_t j = 0; j < nu; j++)
-        fprintf(stderr, " %.3g", g->gp->lengths[j]);
-      fprintf(stderr, " s2 %.3g trend %d\n", g->gp->sigma2, (int)g->gp->trend);
-      for (int l = 0; l <= g->levels; l++) { size_t off = l == 0 ? 0 : g->n0 + (size_t)(l - 1) * g->npop, n = l == 0 ? g->n0 : g->npop; size_t np = 0, nn = 0; for (size_t i = off; i < off + n; i++) { if (g->cand[i*nu] > 0) np++; else nn++; } fprintf(stderr, "   level %d b %.3g p %.3g: a>0 %zu a<0 %zu\n", l, g->lb[l], g->lp[l], np, nn); }
-      if (nu == 2) { double dp[26], mu[13], sd[13]; for (int k = 0; k < 13; k++) { dp[2*k] = -6 + k; dp[2*k+1] = 0; } predict(g, dp, 13, mu, sd); { double q4[8] = {2.3, -2.3, 2.3, 2.3, -2.3, -2.3, -2.3, 2.3}, m4[4], s4[4]; predict(g, q4, 4, m4, s4); fprintf(stderr, "   LR %.2f/%.2f UR %.2f/%.2f LL %.2f/%.2f UL %.2f/%.2f\n", m4[0], s4[0], m4[1], s4[1], m4[2], s4[2], m4[3], s4[3]); } fprintf(stderr, "   axis"); for (int k = 0; k < 13; k++) fprintf(stderr, " %.1f/%.2f", mu[k], sd[k]); fprintf(stderr, "\n"); fprintf(stderr, "   train"); for (size_t k = 0; k < g->nt; k++) fprintf(stderr, " (%.1f,%.1f:%.1f)", g->tu[2*k], g->tu[2*k+1], g->ty[k]); fprintf(stderr, "\n"); }
-    }
     if ((rc = push_learning(g, last)))
       goto out;
     bk_mctx_progress(&g->ctx);
@@ -1504,8 +1490,8 @@ int bk__method_surrogate(const bk_study_t *s, bk_evaluator_t *ev,
   g.pu = bk_malloc(CHUNK * nu * sizeof *g.pu);
   g.pm = bk_malloc(CHUNK * sizeof *g.pm);
   g.pv = bk_malloc(CHUNK * sizeof *g.pv);
-  if (!g.cand || !g.cmu || !g.csd || !g.keep || !g.kmu || !g.ksd || !g.q.mean || !g.q.chol || !g.pu || !g.pm ||
-      !g.pv) {
+  if (!g.cand || !g.cmu || !g.csd || !g.keep || !g.kmu || !g.ksd || !g.q.mean ||
+      !g.q.chol || !g.pu || !g.pm || !g.pv) {
     rc = oom(&g);
     goto out;
   }
