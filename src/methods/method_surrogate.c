@@ -11,27 +11,32 @@
  *    radii of about 2.5 to 6 where small failure probabilities live.
  *    Keys "sg/t0/<j>".
  * 2. Learning iterations t = 1, 2, ...: the surrogate (anisotropic Matern
- *    5/2, linear or constant trend, maximum likelihood, a nugget when the
- *    model is noisy, warm-started from the previous fit) builds, with no
- *    model run, a population in u-space by subset simulation on
- *    G(u) = mu(u) - 2 s(u) (levels of conditional probability 0.1, down
- *    to 1e-12): the last level holds points of phi restricted to the
- *    region where failure is plausible (the failure probability there is
- *    at least Phi(-2)), the first level points of phi itself. The
- *    candidates are both levels; the batch of analysis.surrogate.batch
- *    points is chosen by the learning function U (Echard, Gayton & Lemaire
- *    2011) or EFF (Bichon et al. 2008), spread by weighted k-means over
- *    the margin probability (Dubourg, Sudret & Bourinet 2011) or by the
- *    Kriging believer (Ginsbourger et al. 2010). Keys "sg/t<t>/<j>"; one
- *    evaluator call per iteration. Learning on the surrogate's own
- *    populations follows the subset-simulation variants of active
- *    learning (Huang, Chen & Zhu 2016, Structural Safety 59:86-95, from
- *    memory).
- * 3. The proposal: a Gaussian mixture fitted by EM to the last population
- *    (1 to 4 components, chosen by BIC; covariances widened by
- *    1 + 1/sqrt(nu)), mixed with phi itself at weight 0.1 (a defensive
- *    mixture, Hesterberg 1995, Technometrics 37(2):185-194), so that the
- *    weights w = phi / q never exceed 10 and q > 0 everywhere.
+ *    5/2, maximum likelihood, a nugget when the model is noisy, warm-
+ *    started from the previous fit; with trend auto the constant and the
+ *    linear trend are both fitted and the one of smaller BIC kept) builds,
+ *    with no model run, two populations in u-space by subset simulation
+ *    (levels of conditional probability 0.1, down to 1e-12; level 0 is
+ *    10 npop points of phi): one on mu alone, down to mu <= 0, and an
+ *    exploring one on mu - 4 s, down to where failure is plausible. The
+ *    exploring population's levels are the candidates, with points on the
+ *    sphere of radius beta_s - 0.3 (beta_s the surrogate's reliability
+ *    index). The batch of analysis.surrogate.batch points is chosen by the
+ *    learning function U (Echard, Gayton & Lemaire 2011) or EFF (Bichon et
+ *    al. 2008), spread by weighted k-means over the margin probability
+ *    (Dubourg, Sudret & Bourinet 2011) or by the Kriging believer
+ *    (Ginsbourger et al. 2010); while a sphere point has U < 4, one point
+ *    of the batch goes to the sphere's least certain point (see sphere()).
+ *    Keys "sg/t<t>/<j>"; one evaluator call per iteration. Learning on
+ *    the surrogate's own populations follows the subset-simulation
+ *    variants of active learning (Huang, Chen & Zhu 2016, Structural
+ *    Safety 59:86-95, from memory).
+ * 3. The proposal q: Gaussians fitted to clusters of both populations'
+ *    last levels (see fit_mixture), refitted twice to points of q weighted
+ *    by pi phi / q (adaptive importance sampling on the surrogate alone,
+ *    which restores each failure region's share), mixed with phi itself
+ *    at weight 0.1 (a defensive mixture, Hesterberg 1995, Technometrics
+ *    37(2):185-194), so that w = phi / q never exceeds 10 and q > 0
+ *    everywhere.
  * 4. The estimate (a control variate whose mean is computed on the
  *    surrogate; Peherstorfer, Willcox & Gunzburger 2016, SIAM J. Sci.
  *    Comput. 38(5):A3163-A3194, and Peherstorfer, Cui, Marzouk & Willcox
@@ -50,17 +55,18 @@
  *    costs runs as importance sampling would, without losing honesty.
  *    The correction's variance is the largest of: the sample variance;
  *    the surrogate's prediction E_q[pi (1 - pi) w^2] / N (under the
- *    surrogate a point fails with probability pi); and (Pf / (N + 2))^2,
- *    since N points that show no misclassification bound the share of q
- *    where the surrogate errs at about 1/N (the rule of three, common
- *    practice). The interval is normal, cut at 0.
- * 5. Stopping. Learning stops when the correction is predicted to need no
- *    more than MIN_CORR runs at a cov of 0.9 target_cov, or when learning
- *    no longer lowers the predicted total of runs (training so far plus
- *    the correction's predicted runs) for PATIENCE_ITER iterations, or
- *    when it has spent training_share of max_evaluations. The correction
- *    stops at target_cov (checked after whole batches, from MIN_CORR runs
- *    on) or at max_evaluations.
+ *    surrogate a point fails with probability pi); and (Pf / (N + 2))^2
+ *    (see correct()). The interval is normal, cut at 0.
+ * 5. Stopping. The correction runs needed for a cov of 0.9 target_cov
+ *    are predicted from E_phi[pi (1 - pi) phi / q] (the larger of its
+ *    importance-sampling estimate and its estimate over the exploring
+ *    population's levels as strata, which see regions q hardly covers).
+ *    Learning stops when they are at most MIN_CORR, or when learning no
+ *    longer lowers the predicted total of runs for PATIENCE_ITER
+ *    iterations, or when it has spent training_share of max_evaluations;
+ *    never while a sphere point has U < 4. The correction stops at
+ *    target_cov (checked after whole batches, from MIN_CORR runs on) or
+ *    at max_evaluations.
  *
  * Determinism: every random number comes from the counter-based stream
  * addressed by (seed, a label of the iteration, index); the fits start
