@@ -1437,7 +1437,7 @@ static int diagnose(sg_t *g, const sest_t *se) {
                      "importance sampling may need fewer runs",
                      100 * g->gp->nugget / (1 + g->gp->nugget)))
     return oom(g);
-  if (isfinite(q2) && (q2 < 0.5 || rms > 3) &&
+  if (isfinite(q2) && (q2 < 0.5 || (rms > 3 && q2 < 0.99)) &&
       bk_result_warn(r,
                      "the surrogate fits poorly (leave-one-out Q2 %.2f, "
                      "rms of standardised residuals %.2f): the estimate "
