@@ -13,6 +13,7 @@
  *   linear N B   g = B sqrt(N) - sum u_i, Pf = Phi(-B), N = 2, 6, 10, 20
  *                and B = 2.33, 3.09, 4.27, 4.75 (1e-2 to 1e-6)
  *   series4      four-branch series system, Pf 4.457e-3
+ *   two points   g = 4.9 - |a|, Pf = 2 Phi(-4.9) = 9.584e-7 (ref_rare.txt)
  *   parabola     g = 5 - u2 - u1^2/2, two design points, Pf 2.891e-3
  *   lnratio      lognormal over lognormal, Pf 5.246e-7
  *   oscillator   six normals, F1 (1, 0.2): Pf 2.860e-2; (0.6, 0.1): 9.131e-6
@@ -74,6 +75,10 @@ static const problem_t problems[] = {
      "min(3 + 0.1*(u1-u2)^2 - (u1+u2)/sqrt(2), 3 + 0.1*(u1-u2)^2 + "
      "(u1+u2)/sqrt(2), (u1-u2) + 6/sqrt(2), (u2-u1) + 6/sqrt(2))",
      0.004457331490624721},
+    {"two points 4.9", 0, 0,
+     "  a: {type: normal, mean: 0, sd: 1}\n"
+     "  b: {type: normal, mean: 0, sd: 1}\n",
+     "4.9 - abs(a)", 9.58366553180637e-07},
     {"parabola 5", 0, 0,
      "  u1: {type: normal, mean: 0, sd: 1}\n"
      "  u2: {type: normal, mean: 0, sd: 1}\n",
