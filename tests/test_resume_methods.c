@@ -179,3 +179,16 @@ Test(resume_methods, surrogate_keeps_every_slot_busy) {
   cr_expect_geq(full, 2 * n / 3, "%d of %d starts with every slot busy", full,
                 n);
 }
+
+/* The surrogate method is adaptive: shards are refused with the reason,
+ * exit 2, nothing written. */
+Test(resume_methods, surrogate_refuses_shards) {
+  write_form_study("sh.yaml", "sh", "{method: surrogate}");
+  cr_assert_eq(brink("run sh.yaml --shard 1/2"), 2, "%s", read_file("err.txt"));
+  char *e = read_file("err.txt");
+  cr_expect(strstr(e, "--shard works with the sampling methods (random, lhs, "
+                      "sobol) only: surrogate chooses each batch from the "
+                      "responses"),
+            "%s", e);
+  cr_expect(!exists("sh/records.log"));
+}
