@@ -321,3 +321,60 @@ Test(coverage, importance_where_it_is_built_for_the_problem) {
   expect_honest(&c, "importance linear 1000");
   expect_few_warnings(&c, 0.05, "importance linear 1000");
 }
+
+/* Surrogate with correction (method_surrogate.c): the interval holds the
+ * reference 90-98% of the time (or the run warns), and the model runs stay
+ * far below the other methods' (bench/bench_surrogate has the table). The
+ * intervals are conservative where the surrogate is nearly exact (the
+ * linear cases), so coverage there reaches 100%, which 40 seeds cannot
+ * tell from 95% (binomial test of expect_honest). */
+#define SG "method: surrogate, surrogate: {batch: 4}, max_evaluations: 400"
+
+static void expect_runs(const cover_t *c, double mean, double max,
+                        const char *what) {
+  cr_expect(c->mean_evals <= mean, "%s: %.0f model runs on average, above %g",
+            what, c->mean_evals, mean);
+  cr_expect(c->max_evals <= max, "%s: up to %.0f model runs, above %g", what,
+            c->max_evals, max);
+}
+
+/* Pf 1e-3 to 1e-6 (Cornell 1969, scipy.stats.norm.sf). */
+Test(coverage, surrogate_on_linear_limit_states) {
+  const char *betas[] = {"3.09", "4.27", "4.75"};
+  for (int i = 0; i < 3; i++) {
+    cover_t c = coverage_of("linear", "2", betas[i], SG, 1, 40);
+    expect_honest(&c, "surrogate linear 2");
+    expect_few_warnings(&c, 0, "surrogate linear 2");
+    expect_runs(&c, 60, 100, "surrogate linear 2");
+  }
+}
+
+Test(coverage, surrogate_on_a_four_branch_series_system) {
+  cover_t c = coverage_of("series4", "6", "", SG, 1, 40);
+  expect_honest(&c, "surrogate series4 6");
+  expect_runs(&c, 150, 400, "surrogate series4 6");
+}
+
+Test(coverage, surrogate_on_a_parabola_with_two_design_points) {
+  cover_t c = coverage_of("parabola", "5.0", "", SG, 1, 40);
+  expect_honest(&c, "surrogate parabola 5");
+  expect_runs(&c, 80, 200, "surrogate parabola 5");
+}
+
+/* Rosenblueth & Esteva (1972) closed form, gen_problems.py. */
+Test(coverage, surrogate_on_a_lognormal_ratio) {
+  cover_t c = coverage_of("lnratio", "4.0", "", SG, 1, 40);
+  expect_honest(&c, "surrogate lnratio 4");
+  expect_runs(&c, 80, 200, "surrogate lnratio 4");
+}
+
+/* The oscillator at Pf 2.9e-2 and 9.1e-6 (Gauss-Hermite reference of
+ * gen_problems.py). */
+Test(coverage, surrogate_on_the_oscillator) {
+  cover_t c = coverage_of("oscillator", "1.0", "0.2", SG, 1, 30);
+  expect_honest(&c, "surrogate oscillator 1e-2");
+  expect_runs(&c, 120, 400, "surrogate oscillator 1e-2");
+  c = coverage_of("oscillator", "0.6", "0.1", SG, 1, 30);
+  expect_honest(&c, "surrogate oscillator 1e-5");
+  expect_runs(&c, 120, 400, "surrogate oscillator 1e-5");
+}

@@ -87,8 +87,8 @@ Test(plan, table_rows_and_wall_time) {
       .pf = 1e-6, .cov = 0.1, .seconds = 60, .slots = 16, .nu = 2};
   bk_plan_row_t rows[BK_PLAN_ROWS];
   bk_plan_compute(&o, rows);
-  const char *names[] = {"random",     "lhs",           "sobol", "form",
-                         "importance", "cross-entropy", "subset"};
+  const char *names[] = {"random",     "lhs",           "sobol",  "form",
+                         "importance", "cross-entropy", "subset", "surrogate"};
   for (int i = 0; i < BK_PLAN_ROWS; i++)
     cr_expect_str_eq(rows[i].method, names[i]);
   cr_expect_eq(rows[0].evaluations, 99999900);
@@ -102,6 +102,9 @@ Test(plan, table_rows_and_wall_time) {
   /* Cross-entropy: 6 steps of 500, then 1000 as importance sampling. */
   cr_expect_eq(rows[5].evaluations, 4000);
   cr_expect_eq(rows[6].evaluations, 97200);
+  /* Surrogate: 10 start points, 8 x 4 learning runs, 30 corrections. */
+  cr_expect_eq(rows[7].evaluations, 72);
+  cr_expect_eq(rows[7].seconds, ceil(72.0 / 16) * 60);
   /* Unknown seconds: no wall time. */
   o.seconds = NAN;
   bk_plan_compute(&o, rows);

@@ -325,7 +325,7 @@ Test(study, unknown_method) {
                     "analysis: {method: montecarlo, samples: 10}\n",
                5, 20,
                "unknown method 'montecarlo'; expected one of random, lhs, "
-               "sobol, form, importance, cross-entropy, subset");
+               "sobol, form, importance, cross-entropy, subset, surrogate");
 }
 
 Test(study, empty_file) {

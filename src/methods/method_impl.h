@@ -56,5 +56,8 @@ int bk__method_cross_entropy(const bk_study_t *s, bk_evaluator_t *ev,
 int bk__method_subset(const bk_study_t *s, bk_evaluator_t *ev,
                       const bk_method_opts_t *opts, bk_result_t *res,
                       bk_error_t *err);
+int bk__method_surrogate(const bk_study_t *s, bk_evaluator_t *ev,
+                         const bk_method_opts_t *opts, bk_result_t *res,
+                         bk_error_t *err);
 
 #endif

@@ -74,6 +74,12 @@ double bk_plan_scaled(double n, double cov_pilot, double cov) {
   return ceil(n * (cov_pilot / cov) * (cov_pilot / cov));
 }
 
+double bk_plan_surrogate(size_t nu, double cov) {
+  double n0 = 2.0 * (double)nu + 2 > 10 ? 2.0 * (double)nu + 2 : 10;
+  double corr = ceil(0.3 / (cov * cov));
+  return n0 + 8 * ((double)nu + 2) + (corr > 20 ? corr : 20);
+}
+
 /* Wall time of `n` evaluations run `slots` at a time. */
 static double wall(double n, const bk_plan_opts_t *o) {
   if (!isfinite(o->seconds) || !isfinite(n))
@@ -151,4 +157,9 @@ void bk_plan_compute(const bk_plan_opts_t *o, bk_plan_row_t *rows) {
   double n_ss = bk_plan_subset(o->pf, o->cov, p0, gamma, &levels);
   rows[6] = (bk_plan_row_t){"subset", n_ss, wall(n_ss, o),
                             "Au & Beck 2001, gamma = 2 assumed"};
+  /* Batches of run.slots points: every round keeps the slots busy. */
+  double n_sg = bk_plan_surrogate(o->nu, o->cov);
+  rows[7] =
+      (bk_plan_row_t){"surrogate", n_sg, wall(n_sg, o),
+                      "rough: measured, a good surrogate; poor costs more"};
 }

@@ -47,7 +47,7 @@ typedef struct {
   const char *note;   /* what the figure assumes */
 } bk_plan_row_t;
 
-#define BK_PLAN_ROWS 7
+#define BK_PLAN_ROWS 8
 
 /* Crude Monte Carlo, binomial variance: N = (1 - pf) / (pf cov^2). */
 double bk_plan_mc(double pf, double cov);
@@ -75,8 +75,14 @@ double bk_plan_form(size_t nu, int central, int iterations, int sorm);
  * method_form.c. */
 double bk_plan_explore(size_t nu, int probe, int sorm);
 
+/* The surrogate method (method_surrogate.c): a starting design of
+ * max(10, 2 nu + 2), about 8 (nu + 2) learning runs and 0.3 / cov^2
+ * correction runs (20 at least), as measured on the benchmark problems of
+ * docs/methods.md at Pf 1e-2 to 1e-6; a poor surrogate costs more. */
+double bk_plan_surrogate(size_t nu, double cov);
+
 /* Fills rows[BK_PLAN_ROWS]: random, lhs, sobol, form, importance,
- * cross-entropy, subset. */
+ * cross-entropy, subset, surrogate. */
 void bk_plan_compute(const bk_plan_opts_t *o, bk_plan_row_t *rows);
 
 #endif

@@ -1118,6 +1118,8 @@ static const char *method_words(const char *m) {
       {"importance", "importance sampling"},
       {"cross-entropy", "cross-entropy importance sampling"},
       {"subset", "subset simulation"},
+      {"surrogate", "Gaussian-process surrogate with a correction by model "
+                    "runs"},
   };
   for (size_t i = 0; i < sizeof t / sizeof t[0]; i++)
     if (strcmp(m, t[i][0]) == 0)
@@ -1193,6 +1195,17 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   esc(o, bk_report_caution);
   bk_buf_puts(o, "</div>\n<h2>Charts</h2>\n");
   chart_convergence(o, jget(&j, "history"), jnum(&j, "ci_level"));
+  const char *mth = jstr(&j, "method");
+  if (mth && strcmp(mth, "surrogate") == 0)
+    bk_buf_puts(o, "<p class=\"note\">The learning curve: while the "
+                   "surrogate learns, each point is its own estimate and the "
+                   "band runs from P(mu + 2 s &le; 0) to P(mu - 2 s &le; 0), "
+                   "the surrogate's uncertainty, not a confidence interval; "
+                   "then each point is the estimate corrected by model runs "
+                   "with its interval. The details above give the training "
+                   "and correction runs, the leave-one-out fit (Q2, "
+                   "standardised residuals) and the share of the variance "
+                   "from each part.</p>\n");
   char what[200];
   bk_method_kind_t mk = st->analysis.method;
   int sampling =

@@ -37,7 +37,8 @@ typedef struct {
 } loader_t;
 
 static const char *const method_names[BK_METHOD__COUNT] = {
-    "random", "lhs", "sobol", "form", "importance", "cross-entropy", "subset",
+    "random",     "lhs",           "sobol",  "form",
+    "importance", "cross-entropy", "subset", "surrogate",
 };
 
 const char *bk_method_name(bk_method_kind_t m) {
@@ -62,13 +63,16 @@ static const char *const keys_output[] = {"file", "stdout", "pattern", "match",
 static const char *const keys_analysis[] = {
     "method",          "samples",       "replicates", "target_cov",
     "max_evaluations", "target_beta",   "ci_level",   "form",
-    "importance",      "cross_entropy", "subset",     NULL};
+    "importance",      "cross_entropy", "subset",     "surrogate", NULL};
 static const char *const keys_form[] = {
     "step",    "differences", "max_iterations", "tolerance", "sorm",
     "explore", "searches",    "probe",          NULL};
 static const char *const keys_importance[] = {"center", "defensive", NULL};
 static const char *const keys_ce[] = {"components", "rho", "max_steps", NULL};
 static const char *const keys_subset[] = {"p0", "max_levels", NULL};
+static const char *const keys_surrogate[] = {
+    "batch",   "start_points", "trend",          "noisy",
+    "pick_by", "spread",       "training_share", NULL};
 static const char *const keys_run[] = {"folder", "slots", "scratch", NULL};
 
 static const struct {
@@ -84,6 +88,7 @@ static const struct {
     {"analysis.importance.", keys_importance},
     {"analysis.cross_entropy.", keys_ce},
     {"analysis.subset.", keys_subset},
+    {"analysis.surrogate.", keys_surrogate},
     {"run.", keys_run},
 };
 
@@ -1100,8 +1105,95 @@ static int want_int_range(loader_t *L, yaml_node_t *n, const char *what, int lo,
   return 0;
 }
 
-/* The method sections analysis.form, .importance, .cross_entropy and
- * .subset, each optional, with their defaults. */
+/* A boolean written true or false. */
+static int want_bool(loader_t *L, yaml_node_t *n, const char *what, int *out) {
+  const char *t;
+  int rc = want_text(L, n, what, &t);
+  if (rc)
+    return rc;
+  if (strcmp(t, "true") == 0)
+    *out = 1;
+  else if (strcmp(t, "false") == 0)
+    *out = 0;
+  else
+    return FAIL(L, n, "%s must be true or false; got '%s'", what, t);
+  return 0;
+}
+
+/* One of two words; *out is 0 for the first, 1 for the second. */
+static int want_choice(loader_t *L, yaml_node_t *n, const char *what,
+                       const char *w0, const char *w1, int *out) {
+  const char *t;
+  int rc = want_text(L, n, what, &t);
+  if (rc)
+    return rc;
+  if (strcmp(t, w0) == 0)
+    *out = 0;
+  else if (strcmp(t, w1) == 0)
+    *out = 1;
+  else
+    return FAIL(L, n, "%s must be %s or %s; got '%s'", what, w0, w1, t);
+  return 0;
+}
+
+/* analysis.surrogate (see bk_surrogate_opts_t). */
+static int load_surrogate_options(loader_t *L, yaml_node_t *m) {
+  bk_surrogate_opts_t *o = &L->s->analysis.surrogate;
+  int rc;
+  yaml_node_t *n;
+  if ((rc = want_mapping(L, m, "analysis.surrogate")) ||
+      (rc = check_keys(L, m, "analysis.surrogate", keys_surrogate)))
+    return rc;
+  if ((n = lookup(L, m, "batch")) &&
+      (rc = want_int_range(L, n, "analysis.surrogate.batch", 1, 4096,
+                           &o->batch)))
+    return rc;
+  if ((n = lookup(L, m, "start_points")) &&
+      (rc = want_int_range(L, n, "analysis.surrogate.start_points", 2, 100000,
+                           &o->start)))
+    return rc;
+  if ((n = lookup(L, m, "trend"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "analysis.surrogate.trend", &t)))
+      return rc;
+    if (strcmp(t, "constant") == 0)
+      o->trend = 0;
+    else if (strcmp(t, "linear") == 0)
+      o->trend = 1;
+    else if (strcmp(t, "auto") == 0)
+      o->trend = 2;
+    else
+      return FAIL(L, n,
+                  "analysis.surrogate.trend must be auto, constant or "
+                  "linear; got '%s'",
+                  t);
+  }
+  if ((n = lookup(L, m, "noisy")) &&
+      (rc = want_bool(L, n, "analysis.surrogate.noisy", &o->noisy)))
+    return rc;
+  if ((n = lookup(L, m, "pick_by")) &&
+      (rc = want_choice(L, n, "analysis.surrogate.pick_by", "u", "eff",
+                        &o->eff)))
+    return rc;
+  if ((n = lookup(L, m, "spread")) &&
+      (rc = want_choice(L, n, "analysis.surrogate.spread", "clusters",
+                        "believer", &o->believer)))
+    return rc;
+  if ((n = lookup(L, m, "training_share"))) {
+    if ((rc = want_number(L, n, "analysis.surrogate.training_share",
+                          &o->train_share)))
+      return rc;
+    if (!(o->train_share > 0 && o->train_share < 1))
+      return FAIL(L, n,
+                  "analysis.surrogate.training_share must lie between 0 "
+                  "and 1 (got %g), e.g. 0.6",
+                  o->train_share);
+  }
+  return 0;
+}
+
+/* The method sections analysis.form, .importance, .cross_entropy, .subset
+ * and .surrogate, each optional, with their defaults. */
 static int load_method_options(loader_t *L, yaml_node_t *an) {
   bk_analysis_t *a = &L->s->analysis;
   a->form.step = 1e-3;
@@ -1118,6 +1210,8 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
   a->cross_entropy.max_steps = 30;
   a->subset.p0 = 0.1;
   a->subset.max_levels = 20;
+  a->surrogate.trend = 2;
+  a->surrogate.train_share = 0.6;
   if (!an)
     return 0;
   int rc;
@@ -1263,6 +1357,8 @@ static int load_method_options(loader_t *L, yaml_node_t *an) {
                     a->subset.p0);
     }
   }
+  if ((m = lookup(L, an, "surrogate")) && (rc = load_surrogate_options(L, m)))
+    return rc;
   return 0;
 }
 
@@ -1288,7 +1384,8 @@ static int load_analysis(loader_t *L, yaml_node_t *an) {
     if (found < 0)
       return FAIL(L, n,
                   "unknown method '%s'; expected one of random, lhs, "
-                  "sobol, form, importance, cross-entropy, subset",
+                  "sobol, form, importance, cross-entropy, subset, "
+                  "surrogate",
                   t);
     a->method = (bk_method_kind_t)found;
   }
@@ -1382,6 +1479,20 @@ static int load_analysis(loader_t *L, yaml_node_t *an) {
   case BK_METHOD_FORM:
     if (!a->max_evaluations)
       a->max_evaluations = 1000000;
+    break;
+  case BK_METHOD_SURROGATE:
+    /* Learning batches and correction batches are sized by
+     * analysis.surrogate.batch; samples has no meaning here. */
+    if (sn)
+      return FAIL(L, sn,
+                  "analysis.samples does not apply to method surrogate "
+                  "(model runs per iteration are "
+                  "analysis.surrogate.batch; the total is "
+                  "analysis.max_evaluations)");
+    if (!(a->target_cov > 0))
+      a->target_cov = 0.1;
+    if (!a->max_evaluations)
+      a->max_evaluations = 500;
     break;
   default:
     if (!a->max_evaluations)
@@ -1656,6 +1767,15 @@ static int make_digests(bk_study_t *s) {
     for (size_t i = 0; an->importance.has_center && i < s->nvars; i++)
       bad |= bk_buf_printf(&b, "center %a\n", an->importance.center[i]);
   }
+  if (an->method == BK_METHOD_SURROGATE) {
+    /* Every decision of the method depends on these (the batch size too:
+     * it sets which points each iteration picks). */
+    const bk_surrogate_opts_t *o = &an->surrogate;
+    bk_buf_printf(&b, "surrogate %d %d %d %d %d %d %a\n", o->batch, o->start,
+                  o->trend, o->noisy, o->eff, o->believer, o->train_share);
+  }
+  if (!b.data)
+    return BK_ENOMEM;
   char hex[33];
   if (!bad) {
     bk_digest_hex(b.data, b.len, hex);
@@ -1774,6 +1894,9 @@ static int load_root(loader_t *L, yaml_node_t *root) {
     return rc;
   if ((rc = load_run(L, lookup(L, root, "run"))))
     return rc;
+  /* The surrogate method's batch follows run.slots unless given. */
+  if (s->analysis.method == BK_METHOD_SURROGATE && !s->analysis.surrogate.batch)
+    s->analysis.surrogate.batch = s->run.slots;
   if (make_digests(s))
     return nomem(L);
   return 0;

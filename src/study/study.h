@@ -83,6 +83,7 @@ typedef enum {
   BK_METHOD_IMPORTANCE,
   BK_METHOD_CROSS_ENTROPY,
   BK_METHOD_SUBSET,
+  BK_METHOD_SURROGATE,
   BK_METHOD__COUNT
 } bk_method_kind_t;
 
@@ -121,6 +122,20 @@ typedef struct {
   int max_levels; /* 20 */
 } bk_subset_opts_t;
 
+/* analysis.surrogate: Gaussian-process surrogate with active learning and
+ * a correction by model runs (method_surrogate.c). */
+typedef struct {
+  int batch;          /* model runs per learning iteration and per
+                         correction batch; run.slots when not given */
+  int start;          /* points of the starting design; 0: automatic */
+  int trend;          /* 0 constant, 1 linear, 2 auto (default) */
+  int noisy;          /* estimate a nugget (noisy model); 0 */
+  int eff;            /* learning function: 0 U (default), 1 EFF */
+  int believer;       /* batch rule: 0 weighted k-means (default), 1
+                         Kriging believer */
+  double train_share; /* the most of max_evaluations spent learning; 0.6 */
+} bk_surrogate_opts_t;
+
 typedef struct {
   bk_method_kind_t method;
   uint64_t samples;    /* 0 when not given; importance and cross-entropy:
@@ -135,6 +150,7 @@ typedef struct {
   bk_importance_opts_t importance;
   bk_ce_opts_t cross_entropy;
   bk_subset_opts_t subset;
+  bk_surrogate_opts_t surrogate;
 } bk_analysis_t;
 
 typedef struct {

@@ -117,6 +117,27 @@ static void problem_text(text_t *t, const char *name, const char *a,
              "correlations:\n  - [R, S, 0.3]\n"
              "limit_state: \"R - S\"\n",
              a);
+  } else if (strcmp(name, "oscillator") == 0) {
+    /* a: mean of F1, b: its standard deviation (tests/ref/gen_problems.py
+     * names the source). */
+    text_add(t,
+             "variables:\n"
+             "  m:  {type: normal, mean: 1, sd: 0.05}\n"
+             "  c1: {type: normal, mean: 1, sd: 0.1}\n"
+             "  c2: {type: normal, mean: 0.1, sd: 0.01}\n"
+             "  r:  {type: normal, mean: 0.5, sd: 0.05}\n"
+             "  F1: {type: normal, mean: %s, sd: %s}\n"
+             "  t1: {type: normal, mean: 1, sd: 0.2}\n"
+             "limit_state: \"3*r - abs(2*F1/(m*((c1+c2)/m)) * "
+             "sin(sqrt((c1+c2)/m)*t1/2))\"\n",
+             a, b);
+  } else if (strcmp(name, "lnratio") == 0) {
+    text_add(t,
+             "variables:\n"
+             "  R: {type: lognormal, mean: %s, cov: 0.15}\n"
+             "  S: {type: lognormal, mean: 1, cov: 0.25}\n"
+             "limit_state: \"R - S\"\n",
+             a);
   } else {
     cr_assert_fail("unknown problem %s", name);
   }

@@ -140,9 +140,9 @@ static bk_study_t *exp20_study(int seed, const char *t, const char *analysis) {
 
 /* Runs `reps` seeds of a problem and returns the fraction of intervals
  * holding `exact`, printing it. */
-static double coverage(const char *what, const char *fmt, const char *param,
-                       const char *analysis, double exact, int reps,
-                       int is_exp20) {
+__attribute__((unused)) static double
+coverage(const char *what, const char *fmt, const char *param,
+         const char *analysis, double exact, int reps, int is_exp20) {
   int covered = 0;
   double mean = 0;
   uint64_t evals = 0;
