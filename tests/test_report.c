@@ -294,3 +294,27 @@ Test(report, notes_are_printed_and_listed) {
   bk_result_close(&r);
   bk_study_free(s);
 }
+
+Test(report, an_unknown_spread_says_why) {
+  bk_study_t *s = load(study);
+  bk_result_t r;
+  run_study(s, &r);
+  bk_buf_t o;
+  /* A spread that cannot be estimated although failures were seen (e.g.
+   * one failing replicate) must not be called "no failure seen". */
+  r.est.cov = NAN;
+  r.est.ci_method = "replicates";
+  cr_assert(r.est.failures > 0);
+  bk_buf_init(&o);
+  cr_assert_eq(bk_report_text(s, &r, &o), 0);
+  cr_expect(strstr(o.data, "n/a (too few failures to estimate the spread)"),
+            "%s", o.data);
+  bk_buf_close(&o);
+  r.est.failures = 0;
+  bk_buf_init(&o);
+  cr_assert_eq(bk_report_text(s, &r, &o), 0);
+  cr_expect(strstr(o.data, "n/a (no failure seen)"), "%s", o.data);
+  bk_buf_close(&o);
+  bk_result_close(&r);
+  bk_study_free(s);
+}

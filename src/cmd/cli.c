@@ -20,6 +20,7 @@
 #include "base/buf.h"
 #include "cmd/cli.h"
 #include "base/error.h"
+#include "reports/report.h"
 #include "study/study.h"
 
 static const char usage_text[] =
@@ -193,4 +194,26 @@ int bk_cli_main(int argc, char **argv) {
     if (strcmp(cmd, commands[i].name) == 0)
       return commands[i].fn(argc - 2, argv + 2);
   return bk__cli_usage_error("unknown command '%s'", cmd);
+}
+
+int bk__cli_write_reports(const bk_study_t *s, const bk_result_t *res,
+                          int quiet, bk_error_t *err) {
+  bk_buf_t text, json;
+  bk_buf_init(&text);
+  bk_buf_init(&json);
+  int rc = bk_report_text(s, res, &text);
+  if (rc == 0)
+    rc = bk_report_json(s, res, &json);
+  if (rc)
+    bk_error_set(err, rc, s->run.folder, 0, 0, "cannot build the report: %s",
+                 bk_strerror(rc));
+  else if ((rc = bk__cli_write_atomic(s->run.folder, "report.json", &json,
+                                      err)) == 0 &&
+           (rc = bk__cli_write_atomic(s->run.folder, "report.txt", &text,
+                                      err)) == 0 &&
+           !quiet)
+    fputs(text.data, stdout);
+  bk_buf_close(&text);
+  bk_buf_close(&json);
+  return rc;
 }

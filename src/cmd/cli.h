@@ -12,6 +12,7 @@ int bk_cli_main(int argc, char **argv);
 /* Shared by the commands (cli.c). */
 #include "base/buf.h"
 #include "base/error.h"
+#include "methods/result.h"
 #include "study/study.h"
 
 /* Loads a study, printing its error; returns 0 or an exit code. */
@@ -27,6 +28,11 @@ int bk__cli_make_dirs(const char *path);
 /* Writes data to folder/name via a temporary file and a rename. */
 int bk__cli_write_atomic(const char *folder, const char *name,
                          const bk_buf_t *data, bk_error_t *err);
+
+/* Writes report.txt and report.json into the run folder and, unless
+ * `quiet`, prints the text; 0 or a negative code with `err` set. */
+int bk__cli_write_reports(const bk_study_t *s, const bk_result_t *res,
+                          int quiet, bk_error_t *err);
 
 /* The sub-commands, one file each (cmd_NAME.c): each takes the arguments
  * after its name and returns an exit code. */

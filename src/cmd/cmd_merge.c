@@ -20,7 +20,6 @@
 #include "base/error.h"
 #include "methods/method.h"
 #include "eval/records.h"
-#include "reports/report.h"
 #include "eval/shard.h"
 #include "base/stop.h"
 #include "study/study.h"
@@ -272,24 +271,13 @@ int bk__cmd_merge(int argc, char **argv) {
   } else if ((rc = write_merged(s, &ss, &err)) != 0) {
     bk__cli_print_error(&err);
     exit_code = BK_EXIT_RUNTIME;
-  } else {
-    bk_buf_t text, json;
-    bk_buf_init(&text);
-    bk_buf_init(&json);
-    bk_report_text(s, &res, &text);
-    bk_report_json(s, &res, &json);
-    if (bk__cli_write_atomic(s->run.folder, "report.json", &json, &err) ||
-        bk__cli_write_atomic(s->run.folder, "report.txt", &text, &err)) {
-      bk__cli_print_error(&err);
-      exit_code = BK_EXIT_RUNTIME;
-    } else if (!quiet) {
-      fputs(text.data, stdout);
-      printf("\nMerged %u shards into %s/records.log; report written to "
-             "%s/report.txt and report.json\n",
-             ss.count, s->run.folder, s->run.folder);
-    }
-    bk_buf_close(&text);
-    bk_buf_close(&json);
+  } else if ((rc = bk__cli_write_reports(s, &res, quiet, &err)) != 0) {
+    bk__cli_print_error(&err);
+    exit_code = bk_error_exit(rc);
+  } else if (!quiet) {
+    printf("\nMerged %u shards into %s/records.log; report written to "
+           "%s/report.txt and report.json\n",
+           ss.count, s->run.folder, s->run.folder);
   }
   bk_result_close(&res);
   bk_free(missing);

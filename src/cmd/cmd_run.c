@@ -26,7 +26,6 @@
 #include "eval/mpi_worker.h"
 #include "methods/method.h"
 #include "eval/records.h"
-#include "reports/report.h"
 #include "eval/shard.h"
 #include "base/stop.h"
 #include "study/study.h"
@@ -427,23 +426,12 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
              "report.\n",
              mode->shard.index, mode->shard.count, (unsigned long long)recorded,
              s->run.folder, logname, mode->shard.count, path);
-  } else {
-    bk_buf_t text, json;
-    bk_buf_init(&text);
-    bk_buf_init(&json);
-    bk_report_text(s, &res, &text);
-    bk_report_json(s, &res, &json);
-    if (bk__cli_write_atomic(s->run.folder, "report.json", &json, &err) ||
-        bk__cli_write_atomic(s->run.folder, "report.txt", &text, &err)) {
-      bk__cli_print_error(&err);
-      exit_code = BK_EXIT_STOPPED;
-    } else if (!quiet) {
-      fputs(text.data, stdout);
-      printf("\nReport written to %s/report.txt and report.json\n",
-             s->run.folder);
-    }
-    bk_buf_close(&text);
-    bk_buf_close(&json);
+  } else if ((rc = bk__cli_write_reports(s, &res, quiet, &err)) != 0) {
+    bk__cli_print_error(&err);
+    exit_code = bk_error_exit(rc);
+  } else if (!quiet) {
+    printf("\nReport written to %s/report.txt and report.json\n",
+           s->run.folder);
   }
   bk_result_close(&res);
   bk_study_free(s);

@@ -286,28 +286,25 @@ static void gamma_pq(double a, double x, double *p, double *q) {
   }
 }
 
-double bk_gamma_p(double a, double x) {
+/* P(a, x) (upper = 0) or Q(a, x) (upper = 1). */
+static double gamma_tail(double a, double x, int upper) {
   if (isnan(a) || isnan(x) || a <= 0.0 || x < 0.0)
     return NAN;
   if (x == 0.0)
-    return 0.0;
+    return upper ? 1.0 : 0.0;
   if (isinf(x))
-    return 1.0;
+    return upper ? 0.0 : 1.0;
   double p, q;
   gamma_pq(a, x, &p, &q);
-  return p;
+  return upper ? q : p;
+}
+
+double bk_gamma_p(double a, double x) {
+  return gamma_tail(a, x, 0);
 }
 
 double bk_gamma_q(double a, double x) {
-  if (isnan(a) || isnan(x) || a <= 0.0 || x < 0.0)
-    return NAN;
-  if (x == 0.0)
-    return 1.0;
-  if (isinf(x))
-    return 0.0;
-  double p, q;
-  gamma_pq(a, x, &p, &q);
-  return q;
+  return gamma_tail(a, x, 1);
 }
 
 /* Solves P(a, x) = p (tail = 0) or Q(a, x) = p (tail = 1) for x, with the
@@ -473,17 +470,22 @@ static void beta_inc_xy(double a, double b, double x, double y, double *i,
   }
 }
 
-double bk_beta_inc(double a, double b, double x) {
+/* I_x(a, b) (upper = 0) or 1 - I_x(a, b) (upper = 1). */
+static double beta_tail(double a, double b, double x, int upper) {
   if (isnan(a) || isnan(b) || isnan(x) || a <= 0.0 || b <= 0.0 || x < 0.0 ||
       x > 1.0)
     return NAN;
   if (x == 0.0)
-    return 0.0;
+    return upper ? 1.0 : 0.0;
   if (x == 1.0)
-    return 1.0;
+    return upper ? 0.0 : 1.0;
   double i, ic;
   beta_inc_xy(a, b, x, 1.0 - x, &i, &ic);
-  return i;
+  return upper ? ic : i;
+}
+
+double bk_beta_inc(double a, double b, double x) {
+  return beta_tail(a, b, x, 0);
 }
 
 /* Solves I_x(a, b) = p (when tail = 0) or 1 - I_x(a, b) = p (tail = 1) for
@@ -567,16 +569,7 @@ static double beta_inv(double a, double b, double p, int tail) {
 }
 
 double bk_beta_inc_c(double a, double b, double x) {
-  if (isnan(a) || isnan(b) || isnan(x) || a <= 0.0 || b <= 0.0 || x < 0.0 ||
-      x > 1.0)
-    return NAN;
-  if (x == 0.0)
-    return 1.0;
-  if (x == 1.0)
-    return 0.0;
-  double i, ic;
-  beta_inc_xy(a, b, x, 1.0 - x, &i, &ic);
-  return ic;
+  return beta_tail(a, b, x, 1);
 }
 
 double bk_beta_inc_inv(double a, double b, double p) {

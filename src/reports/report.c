@@ -258,8 +258,10 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     bk_buf_printf(o, "%.3f", e->cov);
   else if (e->ci_method && strncmp(e->ci_method, "none", 4) == 0)
     bk_buf_puts(o, "n/a (not a sampling estimate)");
-  else
+  else if (e->failures == 0)
     bk_buf_puts(o, "n/a (no failure seen)");
+  else
+    bk_buf_puts(o, "n/a (too few failures to estimate the spread)");
   bk_buf_printf(o, "\n  %g%% interval         ", 100 * e->ci_level);
   num(o, e->ci[0]);
   bk_buf_puts(o, " to ");
