@@ -1188,3 +1188,22 @@ Test(records, hundred_thousand_records_open_quickly_and_all_are_found) {
   fprintf(stderr, "records: open of 100000 records %.3f s, finds %.3f s\n",
           t1 - t0, t2 - t1);
 }
+
+Test(records, a_folder_opens_read_only_whatever_study_made_it) {
+  bk_records_opts_t o = opts_for(logpath);
+  bk_records_t *r = open_ok(&o);
+  cr_assert_eq(bk_records_close(r), 0);
+  char folder[600];
+  snprintf(folder, sizeof folder, "%s/runs/x", tmpdir);
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_records_open_folder(&r, folder, &err), 0, "%s", err.msg);
+  cr_assert_eq(bk_records_count(r), 0);
+  cr_assert_eq(bk_records_close(r), 0);
+  /* No log: BK_ENOTFOUND, nothing created. */
+  snprintf(folder, sizeof folder, "%s/runs/none", tmpdir);
+  cr_assert_eq(bk_records_open_folder(&r, folder, &err), BK_ENOTFOUND);
+  cr_assert_null(r);
+  struct stat st;
+  cr_assert_neq(stat(folder, &st), 0);
+}

@@ -46,12 +46,18 @@ static const char check_help[] =
     "          extraction fails. The first thing to do when wrapping a new\n"
     "          program.\n";
 
-static void print_tail(const char *dir, const char *name, int lines) {
+/* Opens dir/name for reading; NULL when absent. */
+static FILE *open_in(const char *dir, const char *name) {
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/%s", dir, name);
   FILE *f = p.data ? fopen(p.data, "r") : NULL;
   bk_buf_close(&p);
+  return f;
+}
+
+static void print_tail(const char *dir, const char *name, int lines) {
+  FILE *f = open_in(dir, name);
   if (!f)
     return;
   char *ring[64] = {0};
@@ -74,11 +80,7 @@ static void print_tail(const char *dir, const char *name, int lines) {
 }
 
 static void print_head(const char *dir, const char *name, int lines) {
-  bk_buf_t p;
-  bk_buf_init(&p);
-  bk_buf_printf(&p, "%s/%s", dir, name);
-  FILE *f = p.data ? fopen(p.data, "r") : NULL;
-  bk_buf_close(&p);
+  FILE *f = open_in(dir, name);
   if (!f)
     return;
   char line[512];

@@ -187,24 +187,19 @@ int bk__cmd_export(int argc, char **argv) {
   } else {
     folder = bk_strdup(target);
   }
-  bk_buf_t lp;
-  bk_buf_init(&lp);
-  bk_buf_printf(&lp, "%s/records.log", folder);
-  bk_records_opts_t ro = {.path = lp.data, .read_only = 1, .any_study = 1};
   bk_records_t *rec = NULL;
   bk_error_t err;
   bk_error_clear(&err);
-  int rc = bk_records_open(&rec, &ro, &err);
+  int rc = bk_records_open_folder(&rec, folder, &err);
   if (rc) {
     if (rc == BK_ENOTFOUND)
       fprintf(stderr,
-              "brink: no records in %s (%s is absent or empty). Studies "
-              "without a model section keep no records; for the others, "
-              "run `brink run STUDY.yaml` first\n",
-              folder, lp.data);
+              "brink: no records in %s (%s/records.log is absent or empty). "
+              "Studies without a model section keep no records; for the "
+              "others, run `brink run STUDY.yaml` first\n",
+              folder, folder);
     else
       bk__cli_print_error(&err);
-    bk_buf_close(&lp);
     bk_free(folder);
     return bk_error_exit(rc);
   }
@@ -241,7 +236,7 @@ int bk__cmd_export(int argc, char **argv) {
   }
   rc = bk_records_scan(rec, on_record, &e);
   if ((rc || fflush(e.f) != 0 || ferror(e.f)) && exit_code == BK_EXIT_DONE) {
-    fprintf(stderr, "brink: cannot export %s: %s\n", lp.data,
+    fprintf(stderr, "brink: cannot export %s/records.log: %s\n", folder,
             rc ? bk_strerror(rc) : strerror(errno));
     exit_code = BK_EXIT_RUNTIME;
   }
@@ -252,7 +247,6 @@ int bk__cmd_export(int argc, char **argv) {
   bk_buf_close(&e.line);
 done:
   bk_records_close(rec);
-  bk_buf_close(&lp);
   bk_free(folder);
   return exit_code;
 }

@@ -108,19 +108,14 @@ static int add_seconds(void *data, const bk_record_t *rec) {
 /* The mean seconds of the successful evaluations in folder/records.log;
  * NaN when there is no log. *n receives their count. */
 static double pilot_seconds(const char *folder, uint64_t *n) {
-  bk_buf_t p;
-  bk_buf_init(&p);
-  bk_buf_printf(&p, "%s/records.log", folder);
-  bk_records_opts_t ro = {.path = p.data, .read_only = 1, .any_study = 1};
   bk_records_t *rec;
   bk_error_t err;
   bk_error_clear(&err);
   seconds_t t = {0, 0};
-  if (bk_records_open(&rec, &ro, &err) == 0) {
+  if (bk_records_open_folder(&rec, folder, &err) == 0) {
     bk_records_scan(rec, add_seconds, &t);
     bk_records_close(rec);
   }
-  bk_buf_close(&p);
   *n = t.n;
   return t.n ? t.sum / (double)t.n : NAN;
 }

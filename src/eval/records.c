@@ -1611,3 +1611,17 @@ const char *bk_records_tool(const bk_records_t *r) {
 const char *bk_records_created(const bk_records_t *r) {
   return r->created ? r->created : "";
 }
+
+int bk_records_open_folder(bk_records_t **out, const char *folder,
+                           bk_error_t *err) {
+  bk_buf_t p;
+  bk_buf_init(&p);
+  if (bk_buf_printf(&p, "%s/records.log", folder) != 0) {
+    *out = NULL;
+    return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  }
+  bk_records_opts_t ro = {.path = p.data, .read_only = 1, .any_study = 1};
+  int rc = bk_records_open(out, &ro, err);
+  bk_buf_close(&p);
+  return rc;
+}

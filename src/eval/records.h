@@ -77,6 +77,10 @@ typedef struct bk_records bk_records_t;
  * disk and *out is NULL. */
 int bk_records_open(bk_records_t **out, const bk_records_opts_t *opts,
                     bk_error_t *err);
+/* Opens folder/records.log read-only, whatever study made it (any_study):
+ * what reports, export, plan and status read. Errors as bk_records_open. */
+int bk_records_open_folder(bk_records_t **out, const char *folder,
+                           bk_error_t *err);
 /* Fsyncs, releases the lock, frees. NULL is allowed. Returns 0 or the
  * negative errno of a failed fsync or close (the object is freed anyway). */
 int bk_records_close(bk_records_t *r);

@@ -385,15 +385,10 @@ static int load_samples(const char *folder, const bk_study_t *st,
   if (stats_init(s))
     return BK_ENOMEM;
   if (st->model.present) {
-    bk_buf_t lp;
-    bk_buf_init(&lp);
-    bk_buf_printf(&lp, "%s/records.log", folder);
-    bk_records_opts_t ro = {.path = lp.data, .read_only = 1, .any_study = 1};
     bk_records_t *rec = NULL;
     bk_error_t err;
     bk_error_clear(&err);
-    int rc = bk_records_open(&rec, &ro, &err);
-    bk_buf_close(&lp);
+    int rc = bk_records_open_folder(&rec, folder, &err);
     if (rc)
       return 0; /* no records: charts say so */
     s->from_records = 1;
