@@ -50,6 +50,7 @@
 #include "base/fault.h"
 #include "methods/mctx.h"
 #include "methods/method_impl.h"
+#include "numerics/linalg.h"
 #include "numerics/rng.h"
 #include "numerics/special.h"
 
@@ -300,113 +301,6 @@ static int gradient(form_t *f, const char *prefix, const double *u, int with0,
 
 /* ---- curvatures ------------------------------------------------------ */
 
-/* Eigenvalues of the symmetric n x n matrix a (row-major, destroyed) into
- * ev[n], with e[n] as work space: Householder reduction to tridiagonal
- * form, then the implicit QL iteration with Wilkinson shifts (Golub & Van
- * Loan, Matrix Computations, 3rd ed., sections 8.3.1 and 8.3.3; the loop
- * structure of the EISPACK routines tred1 and tql1). O(n^3) arithmetic
- * and no more memory than the matrix, for the 1000 variables of a large
- * study. Returns 0, or -1 when an eigenvalue did not converge in 60 QL
- * steps (never seen on symmetric input). */
-static int symmetric_eigenvalues(double *a, size_t n, double *ev, double *e) {
-  if (n == 0)
-    return 0;
-  for (size_t i = n - 1; i > 0; i--) {
-    size_t l = i - 1;
-    double h = 0, scale = 0;
-    double *ai = a + i * n;
-    if (l > 0) {
-      for (size_t k = 0; k <= l; k++)
-        scale += fabs(ai[k]);
-      if (scale == 0) {
-        e[i] = ai[l];
-      } else {
-        for (size_t k = 0; k <= l; k++) {
-          ai[k] /= scale;
-          h += ai[k] * ai[k];
-        }
-        double fv = ai[l];
-        double gv = fv >= 0 ? -sqrt(h) : sqrt(h);
-        e[i] = scale * gv;
-        h -= fv * gv;
-        ai[l] = fv - gv;
-        fv = 0;
-        for (size_t j = 0; j <= l; j++) {
-          double s = 0;
-          for (size_t k = 0; k <= j; k++)
-            s += a[j * n + k] * ai[k];
-          for (size_t k = j + 1; k <= l; k++)
-            s += a[k * n + j] * ai[k];
-          e[j] = s / h;
-          fv += e[j] * ai[j];
-        }
-        double hh = fv / (h + h);
-        for (size_t j = 0; j <= l; j++) {
-          double fj = ai[j];
-          double gj = e[j] - hh * fj;
-          e[j] = gj;
-          double *aj = a + j * n;
-          for (size_t k = 0; k <= j; k++)
-            aj[k] -= fj * e[k] + gj * ai[k];
-        }
-      }
-    } else {
-      e[i] = ai[l];
-    }
-  }
-  for (size_t i = 0; i < n; i++)
-    ev[i] = a[i * n + i];
-  /* Implicit QL on the tridiagonal (ev, e): e[i] couples i and i + 1. */
-  for (size_t i = 1; i < n; i++)
-    e[i - 1] = e[i];
-  e[n - 1] = 0;
-  for (size_t l = 0; l < n; l++) {
-    int iter = 0;
-    size_t mm;
-    do {
-      for (mm = l; mm + 1 < n; mm++) {
-        double dd = fabs(ev[mm]) + fabs(ev[mm + 1]);
-        if (fabs(e[mm]) <= 1e-15 * dd)
-          break;
-      }
-      if (mm != l) {
-        if (iter++ == 60)
-          return -1;
-        double gq = (ev[l + 1] - ev[l]) / (2 * e[l]);
-        double r = hypot(gq, 1.0);
-        gq = ev[mm] - ev[l] + e[l] / (gq + (gq >= 0 ? r : -r));
-        double s = 1, c = 1, p = 0;
-        ptrdiff_t i;
-        int underflow = 0;
-        for (i = (ptrdiff_t)mm - 1; i >= (ptrdiff_t)l; i--) {
-          double fq = s * e[i], b = c * e[i];
-          r = hypot(fq, gq);
-          e[i + 1] = r;
-          if (r == 0) {
-            ev[i + 1] -= p;
-            e[mm] = 0;
-            underflow = 1;
-            break;
-          }
-          s = fq / r;
-          c = gq / r;
-          gq = ev[i + 1] - p;
-          r = (ev[i] - gq) * s + 2 * c * b;
-          p = s * r;
-          ev[i + 1] = gq + p;
-          gq = c * r - b;
-        }
-        if (underflow)
-          continue;
-        ev[l] -= p;
-        e[l] = gq;
-        e[mm] = 0;
-      }
-    } while (mm != l);
-  }
-  return 0;
-}
-
 /* The tangent basis at a point with unit normal alpha, one vector at a
  * time: the Householder reflection H = I - 2 w w^T / (w^T w) with
  * w = alpha + sigma e_p (p the largest |alpha_p|, sigma its sign, so
@@ -584,9 +478,8 @@ static int sorm(form_t *f, spot_t *s) {
   }
   int rc = 0;
   double *kappa = bk_calloc(m, sizeof *kappa);
-  double *ework = bk_calloc(m, sizeof *ework);
   f->hm = bk_calloc(m * m, sizeof *f->hm);
-  if (!kappa || !ework || !f->hm) {
+  if (!kappa || !f->hm) {
     rc = bk_mctx_nomem(f->m);
     goto out;
   }
@@ -617,7 +510,12 @@ static int sorm(form_t *f, spot_t *s) {
       f->hm[j * m + i] = f->hm[i * m + j];
   for (size_t i = 0; i < m * m; i++)
     f->hm[i] /= s->gnorm;
-  if (symmetric_eigenvalues(f->hm, m, kappa, ework)) {
+  if ((rc = bk_linalg_sym_eigenvalues(f->hm, m, kappa)) != 0) {
+    if (rc == BK_ENOMEM) {
+      rc = bk_mctx_nomem(f->m);
+      goto out;
+    }
+    rc = 0;
     bk_result_warn(res, "SORM skipped: the curvatures did not converge");
     goto out;
   }
@@ -652,7 +550,6 @@ static int sorm(form_t *f, spot_t *s) {
   }
 out:
   bk_free(kappa);
-  bk_free(ework);
   bk_free(f->hm);
   f->hm = NULL;
   return rc;
