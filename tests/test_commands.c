@@ -184,6 +184,53 @@ Test(commands, json_csv_and_html_agree_with_the_records) {
                0, "%s", read_file("chk.txt"));
 }
 
+/* Export writes each number as the shortest text that reads back as the
+ * recorded double: 0.3 stays 0.3 (not 0.29999999999999999), and every
+ * cell reads back bit for bit (strtod against the records module). */
+Test(commands, export_writes_the_shortest_digits_that_read_back) {
+  write_file("s.yaml", "name: tenth\n"
+                       "variables:\n"
+                       "  a: {type: uniform, lower: 0, upper: 1}\n"
+                       "  c: 0.3\n"
+                       "model:\n"
+                       "  command: [sh, -c, 'echo y = 0.3']\n"
+                       "  outputs: {y: {stdout: true, pattern: 'y = (\\S+)'}}\n"
+                       "limit_state: y - a\n"
+                       "analysis: {method: random, samples: 20}\n"
+                       "run: {folder: out/tenth, slots: 2}\n");
+  cr_assert_eq(brink("run s.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("export out/tenth --csv -o e.csv"), 0, "%s",
+               read_file("err.txt"));
+  cr_assert_eq(brink("export out/tenth --json-lines -o e.jsonl"), 0);
+  char lp[600];
+  snprintf(lp, sizeof lp, "%s/out/tenth/records.log", dir);
+  bk_records_opts_t ro = {.path = lp, .read_only = 1, .any_study = 1};
+  bk_records_t *rec;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_records_open(&rec, &ro, &err), 0);
+  char *csv = read_file("e.csv");
+  cr_assert(strncmp(csv, "key,a,c,y,g,", 12) == 0, "header: %.40s", csv);
+  size_t rows = 0;
+  for (char *line = strchr(csv, '\n') + 1; *line; rows++) {
+    char key[64], ta[40], tc[40], ty[40], tg[40];
+    cr_assert_eq(sscanf(line, "%63[^,],%39[^,],%39[^,],%39[^,],%39[^,]", key,
+                        ta, tc, ty, tg),
+                 5, "%.80s", line);
+    cr_assert_str_eq(tc, "0.3");
+    cr_assert_str_eq(ty, "0.3");
+    bk_record_t r;
+    cr_assert(bk_records_find(rec, key, &r), "%s not recorded", key);
+    cr_assert_eq(strtod(ta, NULL), r.x[0], "%s", ta);
+    cr_assert_eq(strtod(tg, NULL), r.g, "%s", tg);
+    line = strchr(line, '\n') + 1;
+  }
+  cr_assert_eq(rows, 20);
+  bk_records_close(rec);
+  cr_assert(strstr(read_file("e.jsonl"), "\"c\": 0.3, \"y\": 0.3,"), "%s",
+            read_file("e.jsonl"));
+}
+
 Test(commands, html_of_an_in_process_study_uses_the_design_again) {
   write_file("s.yaml", "name: shelf\n"
                        "seed: 99\n"

@@ -50,7 +50,7 @@ int bk_json_string(bk_buf_t *out, const char *s) {
 int bk_json_number(bk_buf_t *out, double v) {
   if (!isfinite(v))
     return bk_buf_puts(out, "null");
-  return bk_buf_printf(out, "%.17g", v);
+  return bk_buf_put_double(out, v);
 }
 
 static void key(bk_buf_t *o, const char *k, int *first) {
