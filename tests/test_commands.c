@@ -231,6 +231,54 @@ Test(commands, export_writes_the_shortest_digits_that_read_back) {
             read_file("e.jsonl"));
 }
 
+/* Placeholders in model.command's arguments are rendered per evaluation
+ * like a deck's: the model gets the sampled value and the key's index as
+ * arguments, and echoes them back (%.17g reads back bit for bit, so
+ * g = y - a is exactly 0). */
+Test(commands, command_arguments_carry_the_sampled_values) {
+  write_file("s.yaml",
+             "name: args\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 3, sd: 1}\n"
+             "model:\n"
+             "  command: [sh, -c, 'echo \"y=$1 i=$2 k=$3\"', sh,\n"
+             "            '{{ a : %%.17g }}', '{{_index}}', 'key={{ _key }}']\n"
+             "  outputs:\n"
+             "    y: {stdout: true, pattern: 'y=(\\S+)'}\n"
+             "    i: {stdout: true, pattern: 'i=(\\S+)'}\n"
+             "  keep: all\n"
+             "limit_state: y - a\n"
+             "analysis: {method: random, samples: 12}\n"
+             "run: {folder: out/args, slots: 2}\n");
+  cr_assert_eq(brink("run s.yaml -q"), 0, "%s", read_file("err.txt"));
+  char lp[600];
+  snprintf(lp, sizeof lp, "%s/out/args/records.log", dir);
+  bk_records_opts_t ro = {.path = lp, .read_only = 1, .any_study = 1};
+  bk_records_t *rec;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_records_open(&rec, &ro, &err), 0);
+  cr_assert_eq(bk_records_count(rec), 12);
+  for (int i = 0; i < 12; i++) {
+    char key[32];
+    snprintf(key, sizeof key, "mc/%d", i);
+    bk_record_t r;
+    cr_assert(bk_records_find(rec, key, &r), "%s not recorded", key);
+    cr_assert_eq(r.fault, 0, "%s: %s", key, r.reason);
+    cr_assert_eq(r.y[0], r.x[0], "%s", key);
+    cr_assert_eq(r.g, 0.0, "%s", key);
+    cr_assert_eq(r.y[1], (double)i, "%s", key);
+  }
+  bk_records_close(rec);
+  char *o = read_file("out/args/work/mc-7/stdout");
+  cr_assert(o && strstr(o, "k=key=mc/7"), "%s", o ? o : "(no stdout)");
+  /* check --try shows the command as it was run. */
+  cr_assert_eq(brink("check s.yaml --try"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("out.txt"), "command     sh -c echo \"y=$1 i=$2 "
+                                         "k=$3\" sh 3 0 key=try/0"),
+            "%s", read_file("out.txt"));
+}
+
 Test(commands, html_of_an_in_process_study_uses_the_design_again) {
   write_file("s.yaml", "name: shelf\n"
                        "seed: 99\n"

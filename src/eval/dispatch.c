@@ -586,10 +586,17 @@ static int submit(job_t *j) {
   env[ne + 1] = kv[1];
   env[ne + 2] = kv[2];
   env[ne + 3] = NULL;
+  /* Arguments with placeholders are rendered like the decks. */
+  bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key, j->dir};
+  char **argv = s->model.argt ? bk_study_render_argv(s, &ctx) : NULL;
+  if (s->model.argt && !argv) {
+    bk_free(env);
+    return BK_ENOMEM;
+  }
   bk_job_t job = {
       .key = j->key,
       .dir = j->dir,
-      .argv = s->model.argv,
+      .argv = argv ? argv : s->model.argv,
       .env = env,
       .timeout = s->model.timeout,
       .grace = 5,
@@ -599,6 +606,7 @@ static int submit(job_t *j) {
   j->attempts++;
   rc = bk_exec_submit(d->o.exec, &job, on_done, j);
   bk_free(env);
+  bk_free(argv);
   return rc;
 }
 
