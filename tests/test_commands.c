@@ -381,6 +381,99 @@ Test(commands, status_while_a_run_is_in_progress) {
   cr_assert(strstr(out, "model errors   0"), "%s", out);
 }
 
+/* The data lines of sessions.log: their outcomes joined by ',' into
+ * `outcomes`, and the sum of their seconds. */
+static int session_lines(char *outcomes, size_t cap, double *sum) {
+  char *t = read_file("out/linear/sessions.log");
+  cr_assert(t, "no sessions.log");
+  cr_assert(strncmp(t, "# brink-sessions 1\nstart\tseconds\toutcome\t", 41) ==
+                0,
+            "%s", t);
+  int n = 0;
+  *sum = 0;
+  outcomes[0] = '\0';
+  for (char *l = strchr(t, '\n') + 1; (l = strchr(l, '\n')) && l[1]; n++) {
+    l++;
+    char when[32], outcome[16];
+    double sec;
+    cr_assert_eq(sscanf(l, "%31s\t%lf\t%15s", when, &sec, outcome), 3, "%s", l);
+    *sum += sec;
+    snprintf(outcomes + strlen(outcomes), cap - strlen(outcomes), "%s%s",
+             n ? "," : "", outcome);
+  }
+  return n;
+}
+
+/* A JSON number of report.json. */
+static double json_number(const char *name) {
+  char *j = read_file("out/linear/report.json");
+  char k[64];
+  snprintf(k, sizeof k, "\"%s\": ", name);
+  char *at = j ? strstr(j, k) : NULL;
+  cr_assert(at, "no %s in report.json", name);
+  return strtod(at + strlen(k), NULL);
+}
+
+/* Every session goes into sessions.log, a stopped one too, and the report
+ * gives the run time over all of them as well as this session's. */
+Test(commands, run_time_covers_every_session) {
+  write_model_study("slow 0.05", "method: random, samples: 80", "");
+  pid_t pid = fork();
+  cr_assert_geq(pid, 0);
+  if (pid == 0) {
+    char cmd[2048];
+    snprintf(cmd, sizeof cmd,
+             "cd '%s' && exec '%s' run study.yaml -q >bg.txt 2>&1 </dev/null",
+             dir, env("BRINK_EXE"));
+    execl("/bin/sh", "sh", "-c", cmd, (char *)NULL);
+    _exit(127);
+  }
+  int seen = 0;
+  for (int i = 0; i < 2000 && !seen; i++) {
+    char *l = read_file("out/linear/records.log");
+    int lines = 0;
+    for (char *c = l ? strstr(l, "\nmc/") : NULL; c; c = strstr(c + 1, "\nmc/"))
+      lines++;
+    if (!(seen = lines >= 4))
+      usleep(20000);
+  }
+  cr_assert(seen, "the run wrote no records");
+  kill(pid, SIGINT);
+  int st;
+  waitpid(pid, &st, 0);
+  cr_assert(WIFEXITED(st) && WEXITSTATUS(st) == 3, "%s", read_file("bg.txt"));
+  char outcomes[128];
+  double sum;
+  cr_assert_eq(session_lines(outcomes, sizeof outcomes, &sum), 1);
+  cr_assert_str_eq(outcomes, "stopped");
+  /* Resumed to the end, then run again once finished. */
+  for (int k = 2; k <= 3; k++) {
+    cr_assert_eq(brink("run study.yaml"), 0, "%s", read_file("err.txt"));
+    cr_assert_eq(session_lines(outcomes, sizeof outcomes, &sum), k);
+    cr_assert_str_eq(outcomes, k == 2 ? "stopped,done" : "stopped,done,done");
+    cr_assert_eq(json_number("sessions"), k);
+    cr_assert_eq(json_number("seconds_total"), sum);
+    cr_assert_lt(json_number("seconds"), sum);
+    char want[64];
+    snprintf(want, sizeof want, "s in %d sessions (this one ", k);
+    cr_assert(strstr(read_file("out/linear/report.txt"), want), "%s",
+              read_file("out/linear/report.txt"));
+  }
+}
+
+/* A sessions file that cannot be written costs a warning, not the run. */
+Test(commands, an_unwritable_sessions_file_is_a_warning) {
+  write_model_study("ok", "method: random, samples: 6", "");
+  cr_assert_eq(sh("mkdir -p out/linear/sessions.log"), 0);
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("err.txt"),
+                   "brink: warning: cannot add this session to "
+                   "out/linear/sessions.log: "),
+            "%s", read_file("err.txt"));
+  cr_assert_eq(json_number("sessions"), 1);
+  cr_assert(strstr(read_file("out/linear/report.txt"), "  run time  "));
+}
+
 /* A run folder whose study cannot be found: status says so plainly and
  * how to point it to the study, and shows no estimate (the method, and so
  * what failures / runs means, is unknown). */

@@ -21,6 +21,7 @@
 #include "methods/method.h"
 #include "eval/records.h"
 #include "reports/report.h"
+#include "eval/sessions.h"
 #include "eval/shard.h"
 #include "base/stop.h"
 #include "study/study.h"
@@ -276,6 +277,8 @@ int bk__cmd_merge(int argc, char **argv) {
     bk_buf_t text, json;
     bk_buf_init(&text);
     bk_buf_init(&json);
+    /* The shards' sessions, from the sessions file of the run folder. */
+    bk_sessions_total(s->run.folder, &res.seconds_total, &res.sessions);
     bk_report_text(s, &res, &text);
     bk_report_json(s, &res, &json);
     if (bk__cli_write_atomic(s->run.folder, "report.json", &json, &err) ||

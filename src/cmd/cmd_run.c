@@ -27,6 +27,7 @@
 #include "methods/method.h"
 #include "eval/records.h"
 #include "reports/report.h"
+#include "eval/sessions.h"
 #include "eval/shard.h"
 #include "base/stop.h"
 #include "study/study.h"
@@ -36,8 +37,10 @@ static const char run_help[] =
     "\n"
     "Runs the study's method and writes report.txt and report.json into the\n"
     "run folder (run.folder, default runs/NAME beside the study file), then\n"
-    "prints the text report. Progress goes to stderr: a live line on a\n"
-    "terminal, a plain line every 10 seconds otherwise.\n"
+    "prints the text report. Every run, stopped ones too, adds a line to\n"
+    "sessions.log there; the report's run time is their sum. Progress goes\n"
+    "to stderr: a live line on a terminal, a plain line every 10 seconds\n"
+    "otherwise.\n"
     "Ctrl-C (or SIGTERM, SIGUSR1) stops cleanly with exit code 3; running the\n"
     "same command again resumes and ends with the same numbers.\n"
     "\n"
@@ -344,6 +347,7 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
     bk_study_free(s);
     return BK_EXIT_USAGE;
   }
+  time_t wall_start = time(NULL);
   progress_t pr;
   memset(&pr, 0, sizeof pr);
   pr.tty = isatty(2);
@@ -394,9 +398,45 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
     fputc('\n', stderr);
   int exit_code = BK_EXIT_DONE;
   uint64_t recorded = mr.records ? bk_records_count(mr.records) : 0;
+  /* Evaluations made here, not replayed from the records. */
+  uint64_t made = pr.dst ? pr.dst->completed : res.evaluations;
   int crc = model_run_close(&mr, &err);
+  pr.dst = NULL; /* it was the dispatcher's */
   if (rc == 0 && crc)
     rc = crc;
+  /* This session goes into the sessions file, whatever its outcome, and
+   * the report shows the time over all sessions. */
+  char part[64] = "local";
+  if (mode->shard.count)
+    snprintf(part, sizeof part, "shard %u/%u", mode->shard.index,
+             mode->shard.count);
+  else if (mode->mpi)
+    snprintf(part, sizeof part, "mpi");
+  char host[256];
+  if (gethostname(host, sizeof host) != 0)
+    snprintf(host, sizeof host, "localhost");
+  host[sizeof host - 1] = '\0';
+  bk_session_t ss = {.start = wall_start,
+                     .seconds = now_seconds() - pr.start,
+                     .outcome = rc == 0             ? "done"
+                                : rc == BK_ESTOPPED ? "stopped"
+                                                    : "error",
+                     .evaluations = made,
+                     .host = host,
+                     .pid = (long)getpid(),
+                     .part = part};
+  int src = bk_sessions_append(s->run.folder, &ss);
+  if (src)
+    fprintf(stderr,
+            "brink: warning: cannot add this session to %s/%s: %s (the "
+            "report's total run time leaves it out)\n",
+            s->run.folder, BK_SESSIONS_FILE, bk_strerror(src));
+  res.seconds = ss.seconds;
+  bk_sessions_total(s->run.folder, &res.seconds_total, &res.sessions);
+  if (src) {
+    res.seconds_total += ss.seconds;
+    res.sessions++;
+  }
   char logname[96] = "records.log";
   if (mode->shard.count)
     bk_shard_log_name(&mode->shard, logname, sizeof logname);
