@@ -51,9 +51,7 @@ int bk_sessions_append(const char *folder, const bk_session_t *ss) {
   struct tm tm;
   gmtime_r(&ss->start, &tm);
   strftime(when, sizeof when, "%Y-%m-%dT%H:%M:%SZ", &tm);
-  bk_buf_printf(&line, "%s\t", when);
-  bk_buf_put_double(&line, ss->seconds);
-  bk_buf_putc(&line, '\t');
+  bk_buf_printf(&line, "%s\t%.3f\t", when, ss->seconds);
   put_field(&line, ss->outcome);
   bk_buf_printf(&line, "\t%llu\t", (unsigned long long)ss->evaluations);
   put_field(&line, ss->host);
