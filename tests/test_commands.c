@@ -461,6 +461,22 @@ Test(commands, run_time_covers_every_session) {
   }
 }
 
+/* For a method that stops on its own evidence, status shows no plan, no
+ * share of it and no time to go from max_evaluations (FORM's default is a
+ * million), and the runs so far from sessions.log. */
+Test(commands, status_of_an_adaptive_method_shows_no_cap_as_plan) {
+  write_model_study("ok", "method: form", "");
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("status study.yaml"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, " recorded (form stops on its own evidence; "
+                        "max_evaluations 1000000)\n"),
+            "%s", out);
+  cr_assert(!strstr(out, "planned"), "%s", out);
+  cr_assert(!strstr(out, "time to go"), "%s", out);
+  cr_assert(strstr(out, "  earlier runs   1, "), "%s", out);
+}
+
 /* A sessions file that cannot be written costs a warning, not the run. */
 Test(commands, an_unwritable_sessions_file_is_a_warning) {
   write_model_study("ok", "method: random, samples: 6", "");
