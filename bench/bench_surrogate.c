@@ -54,8 +54,8 @@ static bk_study_t *load(const char *text) {
 
 typedef struct {
   const char *name;
-  int n;      /* variables of a linear problem, else 0 */
-  double b;   /* its beta */
+  int n;    /* variables of a linear problem, else 0 */
+  double b; /* its beta */
   const char *vars, *g;
   double exact;
 } problem_t;
@@ -138,10 +138,12 @@ static double cpu_now(void) {
   return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
-static void on_progress(void *data, const bk_result_t *r, uint64_t planned) {
-  (void)planned;
+/* Logs the CPU time at each decision point (not at the start of a
+ * batch). */
+static void on_progress(void *data, const bk_method_progress_t *p) {
   cpu_log_t *c = data;
-  if (c->k < 4096) {
+  const bk_result_t *r = p->sofar;
+  if (p->batch_size == 0 && r && c->k < 4096) {
     c->cpu[c->k] = cpu_now();
     c->n[c->k] = r->evaluations;
     c->k++;
@@ -156,8 +158,8 @@ static double detail(const bk_result_t *r, const char *label) {
 }
 
 static void bench(const problem_t *p, int seeds, const char *analysis) {
-  double sum = 0, sum2 = 0, scov = 0, evals = 0, emax = 0, cover = 0,
-         reach = 0, cpu = 0;
+  double sum = 0, sum2 = 0, scov = 0, evals = 0, emax = 0, cover = 0, reach = 0,
+         cpu = 0;
   static char text[65536];
   for (int seed = 1; seed <= seeds; seed++) {
     study_text(text, sizeof text, p, seed, analysis);
@@ -213,8 +215,8 @@ static void bench_cpu(void) {
                           "  u%d: {type: normal, mean: 0, sd: 1}\n", i);
   l += (size_t)snprintf(text + l, sizeof text - l, "limit_state: \"40");
   for (int i = 1; i <= 20; i++)
-    l += (size_t)snprintf(text + l, sizeof text - l,
-                          " - u%d^2 - 2*sin(3*u%d)", i, i);
+    l += (size_t)snprintf(text + l, sizeof text - l, " - u%d^2 - 2*sin(3*u%d)",
+                          i, i);
   snprintf(text + l, sizeof text - l,
            "\"\nanalysis: {method: surrogate, max_evaluations: 560, "
            "target_cov: 0.001, surrogate: {batch: 16, training_share: "

@@ -626,3 +626,23 @@ Test(badinput, shard_refusals_write_nothing) {
                         "records to merge)\n");
   cr_assert(!exists("out"));
 }
+
+/* Placeholders in the arguments are checked like those of a deck, at
+ * their place in the study file; the program itself cannot hold one. */
+Test(badinput, placeholders_in_the_command_are_checked_at_load) {
+  write_study("in.txt]", "in.txt, '--load={{ 2*aa : %.6e }}']");
+  refused_by_both(located(8, "aa",
+                          "model.command argument 2: unknown name 'aa' (did "
+                          "you mean 'a'?); known names: a, b, _index"));
+  write_study("in.txt]", "in.txt, '{{ a : %d }}']");
+  refused_by_both(located(8, "%d",
+                          "model.command argument 2: format '%d' converts "
+                          "with 'd'; a number needs one of e E f F g G (for "
+                          "a whole number write %.0f)"));
+  write_study("command: ['", "command: ['{{ _folder }}/solve', '");
+  refused_by_both(located(8, "'{{",
+                          "the program '{{ _folder }}/solve' cannot hold a "
+                          "placeholder: it is checked when the study is "
+                          "loaded; put values in the arguments, e.g. "
+                          "command: [solver, --load, '{{ q }}']"));
+}

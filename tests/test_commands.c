@@ -184,6 +184,101 @@ Test(commands, json_csv_and_html_agree_with_the_records) {
                0, "%s", read_file("chk.txt"));
 }
 
+/* Export writes each number as the shortest text that reads back as the
+ * recorded double: 0.3 stays 0.3 (not 0.29999999999999999), and every
+ * cell reads back bit for bit (strtod against the records module). */
+Test(commands, export_writes_the_shortest_digits_that_read_back) {
+  write_file("s.yaml", "name: tenth\n"
+                       "variables:\n"
+                       "  a: {type: uniform, lower: 0, upper: 1}\n"
+                       "  c: 0.3\n"
+                       "model:\n"
+                       "  command: [sh, -c, 'echo y = 0.3']\n"
+                       "  outputs: {y: {stdout: true, pattern: 'y = (\\S+)'}}\n"
+                       "limit_state: y - a\n"
+                       "analysis: {method: random, samples: 20}\n"
+                       "run: {folder: out/tenth, slots: 2}\n");
+  cr_assert_eq(brink("run s.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("export out/tenth --csv -o e.csv"), 0, "%s",
+               read_file("err.txt"));
+  cr_assert_eq(brink("export out/tenth --json-lines -o e.jsonl"), 0);
+  char lp[600];
+  snprintf(lp, sizeof lp, "%s/out/tenth/records.log", dir);
+  bk_records_opts_t ro = {.path = lp, .read_only = 1, .any_study = 1};
+  bk_records_t *rec;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_records_open(&rec, &ro, &err), 0);
+  char *csv = read_file("e.csv");
+  cr_assert(strncmp(csv, "key,a,c,y,g,", 12) == 0, "header: %.40s", csv);
+  size_t rows = 0;
+  for (char *line = strchr(csv, '\n') + 1; *line; rows++) {
+    char key[64], ta[40], tc[40], ty[40], tg[40];
+    cr_assert_eq(sscanf(line, "%63[^,],%39[^,],%39[^,],%39[^,],%39[^,]", key,
+                        ta, tc, ty, tg),
+                 5, "%.80s", line);
+    cr_assert_str_eq(tc, "0.3");
+    cr_assert_str_eq(ty, "0.3");
+    bk_record_t r;
+    cr_assert(bk_records_find(rec, key, &r), "%s not recorded", key);
+    cr_assert_eq(strtod(ta, NULL), r.x[0], "%s", ta);
+    cr_assert_eq(strtod(tg, NULL), r.g, "%s", tg);
+    line = strchr(line, '\n') + 1;
+  }
+  cr_assert_eq(rows, 20);
+  bk_records_close(rec);
+  cr_assert(strstr(read_file("e.jsonl"), "\"c\": 0.3, \"y\": 0.3,"), "%s",
+            read_file("e.jsonl"));
+}
+
+/* Placeholders in model.command's arguments are rendered per evaluation
+ * like a deck's: the model gets the sampled value and the key's index as
+ * arguments, and echoes them back (%.17g reads back bit for bit, so
+ * g = y - a is exactly 0). */
+Test(commands, command_arguments_carry_the_sampled_values) {
+  write_file("s.yaml",
+             "name: args\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 3, sd: 1}\n"
+             "model:\n"
+             "  command: [sh, -c, 'echo \"y=$1 i=$2 k=$3\"', sh,\n"
+             "            '{{ a : %%.17g }}', '{{_index}}', 'key={{ _key }}']\n"
+             "  outputs:\n"
+             "    y: {stdout: true, pattern: 'y=(\\S+)'}\n"
+             "    i: {stdout: true, pattern: 'i=(\\S+)'}\n"
+             "  keep: all\n"
+             "limit_state: y - a\n"
+             "analysis: {method: random, samples: 12}\n"
+             "run: {folder: out/args, slots: 2}\n");
+  cr_assert_eq(brink("run s.yaml -q"), 0, "%s", read_file("err.txt"));
+  char lp[600];
+  snprintf(lp, sizeof lp, "%s/out/args/records.log", dir);
+  bk_records_opts_t ro = {.path = lp, .read_only = 1, .any_study = 1};
+  bk_records_t *rec;
+  bk_error_t err;
+  bk_error_clear(&err);
+  cr_assert_eq(bk_records_open(&rec, &ro, &err), 0);
+  cr_assert_eq(bk_records_count(rec), 12);
+  for (int i = 0; i < 12; i++) {
+    char key[32];
+    snprintf(key, sizeof key, "mc/%d", i);
+    bk_record_t r;
+    cr_assert(bk_records_find(rec, key, &r), "%s not recorded", key);
+    cr_assert_eq(r.fault, 0, "%s: %s", key, r.reason);
+    cr_assert_eq(r.y[0], r.x[0], "%s", key);
+    cr_assert_eq(r.g, 0.0, "%s", key);
+    cr_assert_eq(r.y[1], (double)i, "%s", key);
+  }
+  bk_records_close(rec);
+  char *o = read_file("out/args/work/mc-7/stdout");
+  cr_assert(o && strstr(o, "k=key=mc/7"), "%s", o ? o : "(no stdout)");
+  /* check --try shows the command as it was run. */
+  cr_assert_eq(brink("check s.yaml --try"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("out.txt"), "command     sh -c echo \"y=$1 i=$2 "
+                                         "k=$3\" sh 3 0 key=try/0"),
+            "%s", read_file("out.txt"));
+}
+
 Test(commands, html_of_an_in_process_study_uses_the_design_again) {
   write_file("s.yaml", "name: shelf\n"
                        "seed: 99\n"
@@ -284,6 +379,115 @@ Test(commands, status_while_a_run_is_in_progress) {
   cr_assert(strstr(out, "finished"), "%s", out);
   cr_assert(strstr(out, "24 of 24 planned"), "%s", out);
   cr_assert(strstr(out, "model errors   0"), "%s", out);
+}
+
+/* The data lines of sessions.log: their outcomes joined by ',' into
+ * `outcomes`, and the sum of their seconds. */
+static int session_lines(char *outcomes, size_t cap, double *sum) {
+  char *t = read_file("out/linear/sessions.log");
+  cr_assert(t, "no sessions.log");
+  cr_assert(strncmp(t, "# brink-sessions 1\nstart\tseconds\toutcome\t", 41) ==
+                0,
+            "%s", t);
+  int n = 0;
+  *sum = 0;
+  outcomes[0] = '\0';
+  for (char *l = strchr(t, '\n') + 1; (l = strchr(l, '\n')) && l[1]; n++) {
+    l++;
+    char when[32], outcome[16];
+    double sec;
+    cr_assert_eq(sscanf(l, "%31s\t%lf\t%15s", when, &sec, outcome), 3, "%s", l);
+    *sum += sec;
+    snprintf(outcomes + strlen(outcomes), cap - strlen(outcomes), "%s%s",
+             n ? "," : "", outcome);
+  }
+  return n;
+}
+
+/* A JSON number of report.json. */
+static double json_number(const char *name) {
+  char *j = read_file("out/linear/report.json");
+  char k[64];
+  snprintf(k, sizeof k, "\"%s\": ", name);
+  char *at = j ? strstr(j, k) : NULL;
+  cr_assert(at, "no %s in report.json", name);
+  return strtod(at + strlen(k), NULL);
+}
+
+/* Every session goes into sessions.log, a stopped one too, and the report
+ * gives the run time over all of them as well as this session's. */
+Test(commands, run_time_covers_every_session) {
+  write_model_study("slow 0.05", "method: random, samples: 80", "");
+  pid_t pid = fork();
+  cr_assert_geq(pid, 0);
+  if (pid == 0) {
+    char cmd[2048];
+    snprintf(cmd, sizeof cmd,
+             "cd '%s' && exec '%s' run study.yaml -q >bg.txt 2>&1 </dev/null",
+             dir, env("BRINK_EXE"));
+    execl("/bin/sh", "sh", "-c", cmd, (char *)NULL);
+    _exit(127);
+  }
+  int seen = 0;
+  for (int i = 0; i < 2000 && !seen; i++) {
+    char *l = read_file("out/linear/records.log");
+    int lines = 0;
+    for (char *c = l ? strstr(l, "\nmc/") : NULL; c; c = strstr(c + 1, "\nmc/"))
+      lines++;
+    if (!(seen = lines >= 4))
+      usleep(20000);
+  }
+  cr_assert(seen, "the run wrote no records");
+  kill(pid, SIGINT);
+  int st;
+  waitpid(pid, &st, 0);
+  cr_assert(WIFEXITED(st) && WEXITSTATUS(st) == 3, "%s", read_file("bg.txt"));
+  char outcomes[128];
+  double sum;
+  cr_assert_eq(session_lines(outcomes, sizeof outcomes, &sum), 1);
+  cr_assert_str_eq(outcomes, "stopped");
+  /* Resumed to the end, then run again once finished. */
+  for (int k = 2; k <= 3; k++) {
+    cr_assert_eq(brink("run study.yaml"), 0, "%s", read_file("err.txt"));
+    cr_assert_eq(session_lines(outcomes, sizeof outcomes, &sum), k);
+    cr_assert_str_eq(outcomes, k == 2 ? "stopped,done" : "stopped,done,done");
+    cr_assert_eq(json_number("sessions"), k);
+    cr_assert_eq(json_number("seconds_total"), sum);
+    cr_assert_lt(json_number("seconds"), sum);
+    char want[64];
+    snprintf(want, sizeof want, "s in %d sessions (this one ", k);
+    cr_assert(strstr(read_file("out/linear/report.txt"), want), "%s",
+              read_file("out/linear/report.txt"));
+  }
+}
+
+/* For a method that stops on its own evidence, status shows no plan, no
+ * share of it and no time to go from max_evaluations (FORM's default is a
+ * million), and the runs so far from sessions.log. */
+Test(commands, status_of_an_adaptive_method_shows_no_cap_as_plan) {
+  write_model_study("ok", "method: form", "");
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("status study.yaml"), 0, "%s", read_file("err.txt"));
+  char *out = read_file("out.txt");
+  cr_assert(strstr(out, " recorded (form stops on its own evidence; "
+                        "max_evaluations 1000000)\n"),
+            "%s", out);
+  cr_assert(!strstr(out, "planned"), "%s", out);
+  cr_assert(!strstr(out, "time to go"), "%s", out);
+  cr_assert(strstr(out, "  earlier runs   1, "), "%s", out);
+}
+
+/* A sessions file that cannot be written costs a warning, not the run. */
+Test(commands, an_unwritable_sessions_file_is_a_warning) {
+  write_model_study("ok", "method: random, samples: 6", "");
+  cr_assert_eq(sh("mkdir -p out/linear/sessions.log"), 0);
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert(strstr(read_file("err.txt"),
+                   "brink: warning: cannot add this session to "
+                   "out/linear/sessions.log: "),
+            "%s", read_file("err.txt"));
+  cr_assert_eq(json_number("sessions"), 1);
+  cr_assert(strstr(read_file("out/linear/report.txt"), "  run time  "));
 }
 
 /* A run folder whose study cannot be found: status says so plainly and

@@ -5,6 +5,7 @@
  */
 #include "base/buf.h"
 
+#include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -87,4 +88,33 @@ int bk_buf_printf(bk_buf_t *b, const char *fmt, ...) {
   int rc = bk_buf_vprintf(b, fmt, ap);
   va_end(ap);
   return rc;
+}
+
+/* Does %.<prec>g of v read back as v? Leaves the text in tmp. */
+static int round_trips(char *tmp, size_t cap, int prec, double v) {
+  snprintf(tmp, cap, "%.*g", prec, v);
+  return strtod(tmp, NULL) == v;
+}
+
+/* Seventeen significant digits always read back (IEEE 754-2008, 5.12.2).
+ * Most sampled values need 16 or 17, so those are tried first: when 15 do
+ * not suffice, 16 or 17 do. Otherwise the precision climbs from 1 and
+ * stops at the first that reads back, so "0.3" costs two conversions.
+ * brink never calls setlocale(), so the decimal point is '.'. */
+int bk_buf_put_double(bk_buf_t *b, double v) {
+  char tmp[40];
+  if (!isfinite(v)) {
+    snprintf(tmp, sizeof tmp, "%g", v);
+    return bk_buf_puts(b, tmp);
+  }
+  if (!round_trips(tmp, sizeof tmp, 15, v)) {
+    if (!round_trips(tmp, sizeof tmp, 16, v))
+      snprintf(tmp, sizeof tmp, "%.17g", v);
+    return bk_buf_puts(b, tmp);
+  }
+  for (int prec = 1; prec < 15; prec++)
+    if (round_trips(tmp, sizeof tmp, prec, v))
+      return bk_buf_puts(b, tmp);
+  snprintf(tmp, sizeof tmp, "%.15g", v);
+  return bk_buf_puts(b, tmp);
 }

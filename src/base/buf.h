@@ -27,5 +27,10 @@ int bk_buf_putc(bk_buf_t *b, char c);
 int bk_buf_printf(bk_buf_t *b, const char *fmt, ...)
     __attribute__((format(printf, 2, 3)));
 int bk_buf_vprintf(bk_buf_t *b, const char *fmt, va_list ap);
+/* Appends a finite v as the shortest %g text (at most 17 significant
+ * digits) that strtod reads back as exactly v: 0.3 is "0.3", not
+ * "0.29999999999999999". Not-finite values print as printf prints them.
+ * Returns 0 or BK_ENOMEM. */
+int bk_buf_put_double(bk_buf_t *b, double v);
 
 #endif

@@ -187,10 +187,14 @@ static int try_model(const bk_study_t *s, const double *med) {
   for (size_t i = 0; i < s->model.ndecks; i++)
     printf("  deck        %s/%s (from %s)\n", rd.data, s->model.decks[i].to,
            s->model.decks[i].template_name);
+  /* As run: the placeholders of the arguments rendered. */
+  bk_template_ctx_t tctx = {x, 0, "try/0", rd.data};
+  char **args = bk_study_render_argv(s, &tctx);
   printf("  command     ");
   for (size_t i = 0; i < s->model.argc; i++)
-    printf("%s%s", i ? " " : "", s->model.argv[i]);
+    printf("%s%s", i ? " " : "", args ? args[i] : s->model.argv[i]);
   printf("\n");
+  bk_free(args);
   int ran = pt.fault == BK_FAULT_NONE || pt.fault >= BK_FAULT_NO_OUTPUT;
   if (ran)
     printf("  exit status 0 (%.3g s)\n", found ? r.seconds : NAN);

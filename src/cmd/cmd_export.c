@@ -60,9 +60,11 @@ static void csv_text(bk_buf_t *b, const char *s) {
   bk_buf_putc(b, '"');
 }
 
+/* The shortest text that reads back as the same double (as in the
+ * records), so a value recorded as 0.3 is exported as 0.3. */
 static void csv_num(bk_buf_t *b, double v) {
   if (isfinite(v))
-    bk_buf_printf(b, "%.17g", v);
+    bk_buf_put_double(b, v);
 }
 
 static int on_record(void *data, const bk_record_t *r) {

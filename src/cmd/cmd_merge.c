@@ -20,6 +20,7 @@
 #include "base/error.h"
 #include "methods/method.h"
 #include "eval/records.h"
+#include "eval/sessions.h"
 #include "eval/shard.h"
 #include "base/stop.h"
 #include "study/study.h"
@@ -271,13 +272,17 @@ int bk__cmd_merge(int argc, char **argv) {
   } else if ((rc = write_merged(s, &ss, &err)) != 0) {
     bk__cli_print_error(&err);
     exit_code = BK_EXIT_RUNTIME;
-  } else if ((rc = bk__cli_write_reports(s, &res, quiet, &err)) != 0) {
-    bk__cli_print_error(&err);
-    exit_code = bk_error_exit(rc);
-  } else if (!quiet) {
-    printf("\nMerged %u shards into %s/records.log; report written to "
-           "%s/report.txt and report.json\n",
-           ss.count, s->run.folder, s->run.folder);
+  } else {
+    /* The shards' sessions, from the sessions file of the run folder. */
+    bk_sessions_total(s->run.folder, &res.seconds_total, &res.sessions);
+    if ((rc = bk__cli_write_reports(s, &res, quiet, &err)) != 0) {
+      bk__cli_print_error(&err);
+      exit_code = bk_error_exit(rc);
+    } else if (!quiet) {
+      printf("\nMerged %u shards into %s/records.log; report written to "
+             "%s/report.txt and report.json\n",
+             ss.count, s->run.folder, s->run.folder);
+    }
   }
   bk_result_close(&res);
   bk_free(missing);

@@ -26,8 +26,10 @@
 #include "eval/mpi_worker.h"
 #include "methods/method.h"
 #include "eval/records.h"
+#include "eval/sessions.h"
 #include "eval/shard.h"
 #include "base/stop.h"
+#include "cmd/progress.h"
 #include "study/study.h"
 
 static const char run_help[] =
@@ -35,8 +37,11 @@ static const char run_help[] =
     "\n"
     "Runs the study's method and writes report.txt and report.json into the\n"
     "run folder (run.folder, default runs/NAME beside the study file), then\n"
-    "prints the text report. Progress goes to stderr: a live line on a\n"
-    "terminal, a plain line every 10 seconds otherwise.\n"
+    "prints the text report. Every run, stopped ones too, adds a line to\n"
+    "sessions.log there; the report's run time is their sum. Progress goes\n"
+    "to stderr: a live line on a terminal, a plain line every 10 seconds\n"
+    "otherwise: counts as runs end, the batch under way, and for random,\n"
+    "lhs and sobol done of planned with the time to go (docs/reports.md).\n"
     "Ctrl-C (or SIGTERM, SIGUSR1) stops cleanly with exit code 3; running the\n"
     "same command again resumes and ends with the same numbers.\n"
     "\n"
@@ -50,117 +55,35 @@ static const char run_help[] =
 
 /* ---- progress ------------------------------------------------------- */
 
-typedef struct {
-  int tty;
-  int quiet;
-  double start;
-  double last;
-  int shown;
-  /* The latest estimate, from the method's decision points. */
-  double pf;
-  double cov;
-  uint64_t failures;
-  uint64_t planned;
-  uint64_t evaluations;
-  uint64_t errors;
-  /* From the dispatcher, for studies with a model. */
-  const bk_dispatch_stats_t *dst;
-} progress_t;
-
 static double now_seconds(void) {
   struct timespec ts;
   clock_gettime(CLOCK_MONOTONIC, &ts);
   return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
-static void format_rate(char *b, size_t n, double rate) {
-  if (rate >= 1e6)
-    snprintf(b, n, "%.1f M/s", rate / 1e6);
-  else if (rate >= 1e3)
-    snprintf(b, n, "%.1f k/s", rate / 1e3);
-  else
-    snprintf(b, n, "%.1f /s", rate);
-}
+typedef bk_progress_t progress_t;
 
-static void format_eta(char *b, size_t n, double s) {
-  if (!isfinite(s) || s < 0)
-    snprintf(b, n, "-");
-  else if (s < 60)
-    snprintf(b, n, "%.0fs", s);
-  else if (s < 3600)
-    snprintf(b, n, "%.0fm%02.0fs", floor(s / 60), fmod(s, 60));
-  else
-    snprintf(b, n, "%.0fh%02.0fm", floor(s / 3600), fmod(s / 60, 60));
-}
-
-static void show_progress(progress_t *p, int final) {
-  if (p->quiet)
-    return;
-  double t = now_seconds();
-  if (!final && t - p->last < (p->tty ? 0.1 : 10.0))
-    return;
-  p->last = t;
-  double el = t - p->start;
-  uint64_t done = p->evaluations;
-  uint64_t fresh = done;
-  int running = 0;
-  if (p->dst) {
-    uint64_t d2 = p->dst->replayed + p->dst->completed;
-    if (d2 > done)
-      done = d2;
-    fresh = p->dst->completed;
-    running = p->dst->running;
-  }
-  double rate = el > 0 ? (double)fresh / el : 0;
-  char rb[32], eb[32], cov[32], pf[32], run[32] = "";
-  if (isfinite(p->pf))
-    snprintf(pf, sizeof pf, "%.3e", p->pf);
-  else
-    snprintf(pf, sizeof pf, "-");
-  format_rate(rb, sizeof rb, rate);
-  format_eta(eb, sizeof eb,
-             rate > 0 && p->planned > done ? (double)(p->planned - done) / rate
-                                           : (p->planned <= done ? 0 : NAN));
-  if (isfinite(p->cov))
-    snprintf(cov, sizeof cov, "%.3f", p->cov);
-  else
-    snprintf(cov, sizeof cov, "-");
-  if (p->dst)
-    snprintf(run, sizeof run, "  %d running", running);
-  uint64_t errors = p->dst ? p->dst->errors : p->errors;
-  fprintf(stderr,
-          "%s%llu/%llu done%s  %llu failures  %llu errors  Pf %s  cov %s  "
-          "%s  ETA %s%s",
-          p->tty ? "\r\033[K" : "", (unsigned long long)done,
-          (unsigned long long)p->planned, run, (unsigned long long)p->failures,
-          (unsigned long long)errors, pf, cov, rb, eb, p->tty ? "" : "\n");
-  fflush(stderr);
-  p->shown = 1;
-}
-
-static void on_progress(void *data, const bk_result_t *r, uint64_t planned) {
+static void on_progress(void *data, const bk_method_progress_t *mp) {
   progress_t *p = data;
-  p->pf = r->est.pf;
-  p->cov = r->est.cov;
-  p->failures = r->est.failures;
-  p->planned = planned;
-  p->evaluations = r->evaluations;
-  p->errors = r->model_errors;
-  show_progress(p, r->evaluations >= planned);
+  bk_progress_method(p, mp);
+  bk_progress_show(p, now_seconds(), 0);
 }
 
 static void on_tick(void *data, const bk_dispatch_stats_t *st) {
   progress_t *p = data;
-  p->dst = st;
-  show_progress(p, 0);
+  p->st = st;
+  bk_progress_show(p, now_seconds(), 0);
 }
 
+/* Evaluations in all when known in advance (as the methods report it);
+ * 0 when the responses decide. */
 static uint64_t planned_evaluations(const bk_study_t *s) {
   const bk_analysis_t *a = &s->analysis;
   if (a->method == BK_METHOD_LHS || a->method == BK_METHOD_SOBOL)
     return (a->samples / a->replicates) * a->replicates;
-  uint64_t n = a->samples ? a->samples : a->max_evaluations;
-  return n < a->max_evaluations ? n : a->max_evaluations;
+  if (a->method != BK_METHOD_RANDOM || !a->samples)
+    return 0;
+  return a->samples < a->max_evaluations ? a->samples : a->max_evaluations;
 }
 
 /* What a run with an external model holds open. */
@@ -343,19 +266,23 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
     bk_study_free(s);
     return BK_EXIT_USAGE;
   }
+  time_t wall_start = time(NULL);
   progress_t pr;
-  memset(&pr, 0, sizeof pr);
+  bk_progress_init(&pr, now_seconds());
   pr.tty = isatty(2);
   pr.quiet = quiet;
-  pr.start = now_seconds();
   pr.planned = planned_evaluations(s);
   if (mode->shard.count)
     pr.planned = (pr.planned + mode->shard.count - 1 - mode->shard.index) /
                  mode->shard.count;
-  pr.pf = NAN;
-  pr.cov = NAN;
+  pr.running_share = s->analysis.method == BK_METHOD_RANDOM ||
+                     s->analysis.method == BK_METHOD_LHS ||
+                     s->analysis.method == BK_METHOD_SOBOL;
+  pr.on_error_fail = s->model.on_error == BK_ON_ERROR_FAIL;
+  pr.processes = s->model.present;
   bk_method_opts_t opts = {on_progress, &pr};
   bk_evaluator_t ev;
+  bk_inprocess_t inproc = {s, on_tick, &pr, {0}};
   model_run_t mr;
   memset(&mr, 0, sizeof mr);
   if (s->model.present) {
@@ -369,7 +296,7 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
     else
       bk_dispatch_evaluator(mr.dispatch, &ev);
   } else {
-    bk_evaluator_inprocess(&ev, s);
+    bk_evaluator_inprocess_counted(&ev, &inproc);
   }
   /* A shard evaluates every planned sample of its keys: the stopping rule
    * needs all shards' responses, so merge applies it. Its own estimate
@@ -389,13 +316,55 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
   rc =
       bk_method_run(ms, mode->shard.count ? &shard_ev : &ev, &opts, &res, &err);
   res.seconds = now_seconds() - t0;
+  if (rc == 0 && !mode->shard.count) {
+    /* The last state, with the method's final estimate. */
+    bk_method_progress_t fin = {&res, pr.planned, pr.stage, 0, 0};
+    bk_progress_method(&pr, &fin);
+    bk_progress_show(&pr, now_seconds(), 1);
+  }
   if (pr.shown && pr.tty)
     fputc('\n', stderr);
   int exit_code = BK_EXIT_DONE;
   uint64_t recorded = mr.records ? bk_records_count(mr.records) : 0;
+  /* Evaluations made here, not replayed from the records. */
+  uint64_t made = pr.st ? pr.st->completed : res.evaluations;
   int crc = model_run_close(&mr, &err);
+  pr.st = NULL; /* it may have been the dispatcher's */
   if (rc == 0 && crc)
     rc = crc;
+  /* This session goes into the sessions file, whatever its outcome, and
+   * the report shows the time over all sessions. */
+  char part[64] = "local";
+  if (mode->shard.count)
+    snprintf(part, sizeof part, "shard %u/%u", mode->shard.index,
+             mode->shard.count);
+  else if (mode->mpi)
+    snprintf(part, sizeof part, "mpi");
+  char host[256];
+  if (gethostname(host, sizeof host) != 0)
+    snprintf(host, sizeof host, "localhost");
+  host[sizeof host - 1] = '\0';
+  bk_session_t ss = {.start = wall_start,
+                     .seconds = now_seconds() - pr.start,
+                     .outcome = rc == 0             ? "done"
+                                : rc == BK_ESTOPPED ? "stopped"
+                                                    : "error",
+                     .evaluations = made,
+                     .host = host,
+                     .pid = (long)getpid(),
+                     .part = part};
+  int src = bk_sessions_append(s->run.folder, &ss);
+  if (src)
+    fprintf(stderr,
+            "brink: warning: cannot add this session to %s/%s: %s (the "
+            "report's total run time leaves it out)\n",
+            s->run.folder, BK_SESSIONS_FILE, bk_strerror(src));
+  res.seconds = ss.seconds;
+  bk_sessions_total(s->run.folder, &res.seconds_total, &res.sessions);
+  if (src) {
+    res.seconds_total += ss.seconds;
+    res.sessions++;
+  }
   char logname[96] = "records.log";
   if (mode->shard.count)
     bk_shard_log_name(&mode->shard, logname, sizeof logname);

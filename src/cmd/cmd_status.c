@@ -24,6 +24,7 @@
 #include "base/error.h"
 #include "base/fault.h"
 #include "eval/records.h"
+#include "eval/sessions.h"
 #include "reports/report.h"
 #include "study/study.h"
 
@@ -31,9 +32,11 @@ static const char status_help[] =
     "usage: brink status FOLDER|STUDY.yaml\n"
     "\n"
     "Shows where a running or stopped study stands: evaluations recorded\n"
-    "against those planned, failures and the running estimate of the\n"
-    "failure probability, model errors by kind, throughput, the estimated\n"
-    "time to go, and whether a brink is running on the folder now.\n"
+    "(against those planned and with the time to go for random, lhs and\n"
+    "sobol, whose total is known in advance), failures and the running\n"
+    "estimate of the failure probability, model errors by kind, throughput,\n"
+    "the earlier runs and their time (sessions.log), and whether a brink is\n"
+    "running on the folder now.\n"
     "Read-only: safe while `brink run` works on the same folder.\n"
     "Given a folder, the study is found through report.json or as a *.yaml\n"
     "up to three folders above whose run folder it is; when none is found,\n"
@@ -311,10 +314,17 @@ int bk__cmd_status(int argc, char **argv) {
   } else {
     int exact = 1;
     uint64_t plan = s ? planned(s, &exact) : 0;
-    if (plan)
-      printf("  evaluations    %llu of %s%llu planned (%.1f%%)\n",
-             (unsigned long long)t->n, exact ? "" : "at most ",
-             (unsigned long long)plan, 100.0 * (double)t->n / (double)plan);
+    /* A cap is not a plan: the adaptive methods stop on their own
+     * evidence, mostly far below max_evaluations. */
+    if (plan && exact)
+      printf("  evaluations    %llu of %llu planned (%.1f%%)\n",
+             (unsigned long long)t->n, (unsigned long long)plan,
+             100.0 * (double)t->n / (double)plan);
+    else if (plan)
+      printf("  evaluations    %llu recorded (%s stops on its own evidence; "
+             "max_evaluations %llu)\n",
+             (unsigned long long)t->n, bk_method_name(s->analysis.method),
+             (unsigned long long)plan);
     else
       printf("  evaluations    %llu recorded\n", (unsigned long long)t->n);
     /* failures / runs estimates Pf only for crude and stratified
@@ -355,6 +365,11 @@ int bk__cmd_status(int argc, char **argv) {
       duration(ago, sizeof ago, difftime(time(NULL), st.st_mtime));
       printf("  last record    %s ago\n", ago);
     }
+    double total;
+    uint32_t nsessions;
+    if (bk_sessions_total(folder, &total, &nsessions) == 0 && nsessions)
+      printf("  earlier runs   %u, %.3g s in all (sessions.log)\n", nsessions,
+             total);
     if (m && sum > 0) {
       double mean = sum / (double)m;
       int slots = s ? s->run.slots : 1;
@@ -372,11 +387,10 @@ int bk__cmd_status(int argc, char **argv) {
         printf("  rate           about %s with %d slot%s\n", rb, slots,
                slots == 1 ? "" : "s");
       }
-      if (plan > t->n && held == 1) {
+      if (exact && plan > t->n && held == 1) {
         char eta[32];
         duration(eta, sizeof eta, (double)(plan - t->n) / rate);
-        printf("  time to go     about %s%s\n", eta,
-               exact ? "" : " at most (the method may stop earlier)");
+        printf("  time to go     about %s\n", eta);
       }
     }
   }

@@ -586,10 +586,17 @@ static int submit(job_t *j) {
   env[ne + 1] = kv[1];
   env[ne + 2] = kv[2];
   env[ne + 3] = NULL;
+  /* Arguments with placeholders are rendered like the decks. */
+  bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key, j->dir};
+  char **argv = s->model.argt ? bk_study_render_argv(s, &ctx) : NULL;
+  if (s->model.argt && !argv) {
+    bk_free(env);
+    return BK_ENOMEM;
+  }
   bk_job_t job = {
       .key = j->key,
       .dir = j->dir,
-      .argv = s->model.argv,
+      .argv = argv ? argv : s->model.argv,
       .env = env,
       .timeout = s->model.timeout,
       .grace = 5,
@@ -599,6 +606,7 @@ static int submit(job_t *j) {
   j->attempts++;
   rc = bk_exec_submit(d->o.exec, &job, on_done, j);
   bk_free(env);
+  bk_free(argv);
   return rc;
 }
 
@@ -718,6 +726,8 @@ static void run_done(job_t *j, const bk_job_result_t *res) {
   d->st.completed++;
   if (pt->fault != BK_FAULT_NONE)
     d->st.errors++;
+  else if (pt->g <= 0)
+    d->st.failures++;
   int keep = keep_folder(s, pt);
   bk_record_t rec = {
       .key = j->key,
@@ -810,6 +820,7 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
   d->fatal = 0;
   bk_error_clear(&d->fatal_err);
   bk_records_t *logs[1] = {d->o.records};
+  size_t replayed = 0;
   for (size_t i = 0; i < n; i++) {
     job_t *j = &jobs[i];
     j->d = d;
@@ -828,6 +839,11 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
       rc = 0;
       j->done = 1;
       d->st.replayed++;
+      if (pts[i].fault != BK_FAULT_NONE)
+        d->st.replayed_errors++;
+      else if (pts[i].g <= 0)
+        d->st.failures++;
+      replayed++;
       continue;
     }
     char name[BK_REPLAY_KEY_MAX];
@@ -842,6 +858,8 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
     }
     j->need = 1;
   }
+  if (replayed && d->o.tick)
+    d->o.tick(d->o.tick_data, &d->st);
   d->batch = jobs;
   d->nbatch = n;
   d->next = 0;

@@ -36,14 +36,11 @@ struct bk_sink {
 /* A sink appending to an open record log. */
 void bk_sink_records(bk_sink_t *sk, bk_records_t *r);
 
-typedef struct {
-  uint64_t replayed;  /* keys found in the records */
-  uint64_t completed; /* model runs finished in this process */
-  uint64_t errors;    /* of those, ending in a fault */
-  int running;        /* processes running now */
-} bk_dispatch_stats_t;
-
-typedef void (*bk_dispatch_tick_cb)(void *data, const bk_dispatch_stats_t *st);
+/* The dispatcher's counts (evaluator.h): completed are model runs
+ * finished in this process; the tick comes after each of them, and once
+ * after the keys of a batch found in the records. */
+typedef bk_evaluator_stats_t bk_dispatch_stats_t;
+typedef bk_evaluator_tick_cb bk_dispatch_tick_cb;
 
 typedef struct {
   const bk_study_t *study;
@@ -53,7 +50,8 @@ typedef struct {
   bk_exec_t *exec;          /* borrowed */
   const char *work_dir;     /* run folders are made below it */
   const char *host;         /* recorded with each evaluation */
-  bk_dispatch_tick_cb tick; /* after each finished run; may be NULL */
+  bk_dispatch_tick_cb tick; /* after each finished run and after the
+                               replayed keys of a batch; may be NULL */
   void *tick_data;
 } bk_dispatch_opts_t;
 

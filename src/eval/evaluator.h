@@ -39,8 +39,35 @@ struct bk_evaluator {
   void *data;
 };
 
+/* What an evaluator counts as evaluations finish, for progress displays
+ * (live, between the methods' decision points; nothing here feeds a
+ * decision). */
+typedef struct {
+  uint64_t replayed;        /* keys found in the records */
+  uint64_t completed;       /* evaluations made in this process */
+  uint64_t errors;          /* of the completed, ending in a fault */
+  uint64_t replayed_errors; /* of the replayed, ending in a fault */
+  uint64_t failures;        /* of both, without a fault and g <= 0 */
+  int running;              /* processes running now */
+} bk_evaluator_stats_t;
+
+typedef void (*bk_evaluator_tick_cb)(void *data,
+                                     const bk_evaluator_stats_t *st);
+
 /* An evaluator computing the limit state in process, on the variables
  * alone (studies without a model section). */
 void bk_evaluator_inprocess(bk_evaluator_t *ev, const bk_study_t *s);
+
+/* The same, counting into `ip->st` and calling ip->tick (when not NULL)
+ * every BK_INPROCESS_TICK evaluations and at the end of each batch. ip is
+ * borrowed for as long as ev is used. */
+#define BK_INPROCESS_TICK 4096
+typedef struct {
+  const bk_study_t *study;
+  bk_evaluator_tick_cb tick;
+  void *tick_data;
+  bk_evaluator_stats_t st;
+} bk_inprocess_t;
+void bk_evaluator_inprocess_counted(bk_evaluator_t *ev, bk_inprocess_t *ip);
 
 #endif

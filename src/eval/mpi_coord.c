@@ -243,6 +243,8 @@ static int take_result(bk_mpi_coord_t *c, const char *prefix, bk_point_t *pts,
     c->st.completed++;
     if (rec.fault != BK_FAULT_NONE)
       c->st.errors++;
+    else if (rec.g <= 0)
+      c->st.failures++;
     if (c->o.tick)
       c->o.tick(c->o.tick_data, &c->st);
   }
@@ -293,6 +295,10 @@ static int coord_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
     if (found) {
       done[i] = 1;
       c->st.replayed++;
+      if (pts[i].fault != BK_FAULT_NONE)
+        c->st.replayed_errors++;
+      else if (pts[i].g <= 0)
+        c->st.failures++;
     } else {
       pending[npending++] = i;
     }

@@ -97,7 +97,12 @@ static int error_limit(bk_mctx_t *m, int final) {
 }
 
 int bk_mctx_evaluate(bk_mctx_t *m, const char *prefix, size_t n) {
+  bk_method_stage(prefix, m->stage, sizeof m->stage);
+  m->batch_first = m->n;
+  m->batch_size = n;
+  bk_mctx_progress(m);
   int rc = m->ev->batch(m->ev, prefix, m->pts, n, m->err);
+  m->batch_size = 0;
   if (rc)
     return rc;
   const bk_study_t *s = m->s;
@@ -136,8 +141,11 @@ double bk_mctx_g(const bk_mctx_t *m, size_t i) {
 }
 
 void bk_mctx_progress(bk_mctx_t *m) {
-  if (m->opts && m->opts->progress)
-    m->opts->progress(m->opts->progress_data, m->res, m->planned);
+  if (!m->opts || !m->opts->progress)
+    return;
+  bk_method_progress_t p = {m->res, m->planned, m->stage, m->batch_first,
+                            m->batch_size};
+  m->opts->progress(m->opts->progress_data, &p);
 }
 
 int bk_mctx_nomem(bk_mctx_t *m) {

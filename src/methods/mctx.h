@@ -42,8 +42,12 @@ typedef struct {
   uint64_t n;        /* evaluations over the run */
   uint64_t failures; /* of those, without a fault and g <= 0 */
   uint64_t errors;   /* of those, ending in a model error */
-  uint64_t planned;  /* evaluations the method plans, for progress */
+  uint64_t planned;  /* evaluations in all when known in advance, else 0
+                        (bk_method_progress_t) */
   /* Private. */
+  char stage[96];       /* the batch under way in words */
+  uint64_t batch_first; /* evaluations before it */
+  uint64_t batch_size;  /* its size; 0 between batches */
   double *xs, *ys;
   uint64_t nfault[BK_FAULT__COUNT];
   char first_fault[BK_FAULT__COUNT][96]; /* the first key of each kind */
@@ -68,7 +72,8 @@ void bk_mctx_set_u(bk_mctx_t *m, size_t i, uint64_t index, const double *u);
  * of the evaluator. Then counts, applies on_error abort (BK_EMODEL naming
  * the key), checks for a stop (BK_ESTOPPED) and the error limit
  * (BK_EMODEL). Returns 0 with each point's g and fault filled, or a
- * negative code with err set (the batch must not be used). */
+ * negative code with err set (the batch must not be used). The batch is
+ * announced to the progress callback (its stage) before it runs. */
 int bk_mctx_evaluate(bk_mctx_t *m, const char *prefix, size_t n);
 
 /* The limit-state value of point i for an estimate, after the on_error

@@ -5,6 +5,7 @@
  */
 #include "methods/method.h"
 
+#include <stdio.h>
 #include <string.h>
 
 #include "methods/method_impl.h"
@@ -34,4 +35,47 @@ int bk_method_run(const bk_study_t *s, bk_evaluator_t *ev,
                         "method %s is not available in this version",
                         bk_method_name(s->analysis.method));
   }
+}
+
+/* The key layouts of the methods, documented at the top of each
+ * method_<name>.c. Numbers in the keys count from 0 except FORM's
+ * iterations, shown as written; searches, replicates and steps are shown
+ * counting from 1. */
+void bk_method_stage(const char *prefix, char *out, size_t cap) {
+  unsigned a, b;
+  int n = 0;
+  if (strcmp(prefix, "mc") == 0)
+    snprintf(out, cap, "random sampling");
+  else if (sscanf(prefix, "lhs/r%u%n", &a, &n) == 1 && !prefix[n])
+    snprintf(out, cap, "Latin hypercube, replicate %u", a + 1);
+  else if (sscanf(prefix, "sobol/r%u%n", &a, &n) == 1 && !prefix[n])
+    snprintf(out, cap, "Sobol, replicate %u", a + 1);
+  else if (sscanf(prefix, "form/i%u%n", &a, &n) == 1 && !prefix[n])
+    snprintf(out, cap, "FORM search 1, iteration %u", a);
+  else if (sscanf(prefix, "form/d%u/i%u%n", &a, &b, &n) == 2 && !prefix[n])
+    snprintf(out, cap, "FORM search %u, iteration %u", a + 1, b);
+  else if (strcmp(prefix, "form/h") == 0)
+    snprintf(out, cap, "FORM curvature check, search 1");
+  else if (sscanf(prefix, "form/d%u/h%n", &a, &n) == 1 && !prefix[n])
+    snprintf(out, cap, "FORM curvature check, search %u", a + 1);
+  else if (strcmp(prefix, "form/p") == 0)
+    snprintf(out, cap, "FORM probe for further design points");
+  else if (strcmp(prefix, "is") == 0)
+    snprintf(out, cap, "importance sampling");
+  else if (sscanf(prefix, "ce/s%u%n", &a, &n) == 1 && !prefix[n])
+    snprintf(out, cap, "cross-entropy adaptation step %u", a + 1);
+  else if (strcmp(prefix, "ce/final") == 0)
+    snprintf(out, cap, "cross-entropy final sampling");
+  else if (strcmp(prefix, "ss/l0") == 0)
+    snprintf(out, cap, "subset level 0 (Monte Carlo)");
+  else if (sscanf(prefix, "ss/l%u/s%u%n", &a, &b, &n) == 2 && !prefix[n])
+    snprintf(out, cap, "subset level %u, chain step %u", a, b + 1);
+  else if (strcmp(prefix, "sg/t0") == 0)
+    snprintf(out, cap, "surrogate starting design");
+  else if (sscanf(prefix, "sg/t%u%n", &a, &n) == 1 && !prefix[n])
+    snprintf(out, cap, "surrogate learning iteration %u", a);
+  else if (strcmp(prefix, "sg/c") == 0)
+    snprintf(out, cap, "surrogate correction runs");
+  else
+    snprintf(out, cap, "batch %s", prefix);
 }

@@ -19,14 +19,32 @@
 #include "methods/result.h"
 #include "study/study.h"
 
-/* Called at each decision point (may be NULL). */
-typedef void (*bk_progress_cb)(void *data, const bk_result_t *sofar,
-                               uint64_t planned);
+/* Where a method stands, for a progress display. Nothing here feeds a
+ * decision. */
+typedef struct {
+  const bk_result_t *sofar; /* as of the last decision point */
+  /* Evaluations the method makes in all, when known in advance (random
+   * with samples, lhs, sobol); 0 when the responses decide (the other
+   * methods stop on convergence or target_cov well below their cap). */
+  uint64_t planned;
+  const char *stage;    /* the batch under way in words ("FORM search 1,
+                           iteration 3"); "" between batches */
+  uint64_t batch_first; /* evaluations of the run before that batch */
+  uint64_t batch_size;  /* evaluations in it; 0 between batches */
+} bk_method_progress_t;
+
+/* Called when a batch starts and at each decision point (may be NULL). */
+typedef void (*bk_progress_cb)(void *data, const bk_method_progress_t *p);
 
 typedef struct {
   bk_progress_cb progress;
   void *progress_data;
 } bk_method_opts_t;
+
+/* The words for a batch of keys PREFIX/i ("form/d1/i3" is "FORM search 2,
+ * iteration 3"), for progress displays; the prefix itself when it is not
+ * one of the methods' layouts. */
+void bk_method_stage(const char *prefix, char *out, size_t cap);
 
 /* Runs the study's method. Returns 0 with *res filled, BK_ESTOPPED when a
  * stop was requested (res holds the partial state), or another negative

@@ -721,7 +721,6 @@ static int adapt_step(ce_t *ce, int t) {
     return bk_mctx_nomem(m);
   m->res->est.pf = NAN;
   m->res->est.cov = NAN;
-  m->planned = m->n + ce->N;
   bk_mctx_progress(m);
   return 0;
 }

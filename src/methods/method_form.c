@@ -1381,7 +1381,6 @@ int bk__form_search(bk_mctx_t *m, bk__design_points_t *out) {
                    : f.fo->searches > 0 ? f.fo->searches
                    : f.full             ? 8
                                         : 2;
-  m->planned = (uint64_t)f.fo->max_iterations * (f.nd + 1);
   if (out)
     memset(out, 0, sizeof *out);
   int rc = bk_result_design_point(m->res, nu, s->nvars);

@@ -138,6 +138,8 @@ static int run_random(mc_t *m) {
   uint64_t batch = m->s->model.present ? BATCH_MODEL : BATCH_INPROCESS;
   bk_result_t *r = m->res;
   r->stop_reason = "samples done";
+  /* Without samples, target_cov decides and the total is unknown. */
+  m->ctx.planned = a->samples ? total : 0;
   uint64_t done = 0;
   while (done < total) {
     uint64_t to = done + batch < total ? done + batch : total;
@@ -150,7 +152,6 @@ static int run_random(mc_t *m) {
     fill_common(m);
     if ((rc = bk_result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
-    m->ctx.planned = total;
     bk_mctx_progress(&m->ctx);
     if (a->target_cov > 0 && k >= MIN_FAILURES && r->est.cov <= a->target_cov) {
       r->stop_reason = "target_cov reached";
@@ -172,7 +173,7 @@ static int run_replicated(mc_t *m) {
   if (!r->replicate_pf)
     return bk_error_set(m->err, BK_ENOMEM, NULL, 0, 0, "out of memory");
   r->stop_reason = "samples done";
-  uint64_t planned = per * a->replicates;
+  m->ctx.planned = per * a->replicates;
   uint32_t failing_reps = 0;
   int rc;
   for (uint32_t j = 0; j < a->replicates; j++) {
@@ -206,7 +207,6 @@ static int run_replicated(mc_t *m) {
     fill_common(m);
     if ((rc = bk_result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
-    m->ctx.planned = planned;
     bk_mctx_progress(&m->ctx);
     /* The spread of fewer than four replicates says too little about the
      * error to stop on; nor does one of too few failures (see

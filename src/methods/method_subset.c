@@ -485,7 +485,6 @@ static int run_levels(ss_t *m) {
     swap_levels(m, ns);
     c->res->est.pf = NAN;
     c->res->est.cov = NAN;
-    c->planned = c->n + N - (N / 10 < nc ? nc : N / 10);
     bk_mctx_progress(c);
   }
 }

@@ -1478,7 +1478,6 @@ int bk__method_surrogate(const bk_study_t *s, bk_evaluator_t *ev,
                       BK_GP_MAXDIM, g.nu);
     goto out;
   }
-  g.ctx.planned = s->analysis.max_evaluations;
   g.npop = 1000 + 100 * g.nu;
   if (g.npop > 4000)
     g.npop = 4000;

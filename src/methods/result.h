@@ -57,7 +57,10 @@ typedef struct {
   bk_history_t *history;
   size_t nhistory;
   size_t caphistory;
-  double seconds;
+  double seconds;       /* wall time of this session (brink run) */
+  double seconds_total; /* over every session of the study, this one too
+                           (the run folder's sessions.log); 0: unknown */
+  uint32_t sessions;    /* how many sessions that total covers */
   bk_design_point_t dp;
   char **warnings; /* evidence against the method's result */
   size_t nwarnings;

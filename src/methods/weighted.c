@@ -99,7 +99,6 @@ int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
     }
     int reached = res->est.cov <= a->target_cov &&
                   (!w->may_stop || w->may_stop(w->data, w));
-    m->planned = m->n + (reached ? 0 : batch);
     bk_mctx_progress(m);
     if (reached) {
       res->stop_reason = "target_cov reached";

@@ -50,7 +50,7 @@ int bk_json_string(bk_buf_t *out, const char *s) {
 int bk_json_number(bk_buf_t *out, double v) {
   if (!isfinite(v))
     return bk_buf_puts(out, "null");
-  return bk_buf_printf(out, "%.17g", v);
+  return bk_buf_put_double(out, v);
 }
 
 static void key(bk_buf_t *o, const char *k, int *first) {
@@ -198,6 +198,12 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   bk_json_string(o, r->stop_reason ? r->stop_reason : "");
   key(o, "seconds", &first);
   bk_json_number(o, r->seconds);
+  if (r->sessions) {
+    key(o, "seconds_total", &first);
+    bk_json_number(o, r->seconds_total);
+    key(o, "sessions", &first);
+    bk_buf_printf(o, "%u", r->sessions);
+  }
   key(o, "fingerprint", &first);
   bk_buf_printf(o, "\"%s-%s\"", s->digest_study, s->digest_model);
   key(o, "history", &first);
@@ -322,6 +328,14 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   bk_buf_printf(o, "  stopped because      %s", r->stop_reason);
   if (s->analysis.target_cov > 0 && !(e->cov <= s->analysis.target_cov))
     bk_buf_printf(o, " (target_cov %g not reached)", s->analysis.target_cov);
-  bk_buf_puts(o, "\n\n");
+  bk_buf_puts(o, "\n");
+  if (r->sessions > 1)
+    bk_buf_printf(o,
+                  "  run time             %.3g s in %u sessions (this one "
+                  "%.3g s)\n",
+                  r->seconds_total, r->sessions, r->seconds);
+  else
+    bk_buf_printf(o, "  run time             %.3g s\n", r->seconds);
+  bk_buf_puts(o, "\n");
   return bk_buf_puts(o, bk_report_caution);
 }

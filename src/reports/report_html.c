@@ -1016,7 +1016,12 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
   }
   row(o, "stopped because", jstr(j, "stop_reason"));
   bk_buf_reset(&v);
-  bk_buf_printf(&v, "%.3g s", jnum(j, "seconds"));
+  if (jnum(j, "sessions") > 1)
+    bk_buf_printf(&v, "%.3g s in %.0f sessions (the last %.3g s)",
+                  jnum(j, "seconds_total"), jnum(j, "sessions"),
+                  jnum(j, "seconds"));
+  else
+    bk_buf_printf(&v, "%.3g s", jnum(j, "seconds"));
   row(o, "run time", v.data);
   const jv_t *det = jget(j, "details");
   for (size_t i = 0; det && det->t == J_OBJ && i < det->n; i++) {

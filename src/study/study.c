@@ -61,9 +61,9 @@ static const char *const keys_deck[] = {"template", "to", NULL};
 static const char *const keys_output[] = {"file", "stdout", "pattern", "match",
                                           NULL};
 static const char *const keys_analysis[] = {
-    "method",          "samples",       "replicates", "target_cov",
-    "max_evaluations", "target_beta",   "ci_level",   "form",
-    "importance",      "cross_entropy", "subset",     "surrogate", NULL};
+    "method",      "samples",   "replicates", "target_cov", "max_evaluations",
+    "target_beta", "ci_level",  "form",       "importance", "cross_entropy",
+    "subset",      "surrogate", NULL};
 static const char *const keys_form[] = {
     "step",    "differences", "max_iterations", "tolerance", "sorm",
     "explore", "searches",    "probe",          NULL};
@@ -938,6 +938,64 @@ static int check_program(loader_t *L, yaml_node_t *n, const char *prog) {
               prog);
 }
 
+/* Parses each argument of model.command that holds "{{" or "}}" as a
+ * template over the variables (and _index, _key, _folder), so that values
+ * can be passed as arguments. A mistake is reported at its place in the
+ * study file. */
+static int load_argument_templates(loader_t *L, yaml_node_t *cn) {
+  bk_model_t *m = &L->s->model;
+  bk_names_t names = {(const char *const *)L->s->var_names, L->s->nvars};
+  for (size_t i = 1; i < m->argc; i++) {
+    const char *a = m->argv[i];
+    if (!strstr(a, "{{") && !strstr(a, "}}"))
+      continue;
+    if (!m->argt && !(m->argt = bk_calloc(m->argc, sizeof *m->argt)))
+      return nomem(L);
+    bk_error_t terr;
+    bk_error_clear(&terr);
+    int prc = bk_template_parse("model.command", a, strlen(a), &names,
+                                &m->argt[i], &terr);
+    if (prc == BK_ENOMEM)
+      return nomem(L);
+    if (prc) {
+      /* An argument is one line: the column is the offset in it. */
+      yaml_node_t *it = node_at(L, cn->data.sequence.items.start[i]);
+      yaml_mark_t mk;
+      scalar_offset_mark(L, it, terr.col > 0 ? (size_t)terr.col - 1 : 0, &mk);
+      return fail_at(L, &mk, "model.command argument %zu: %s", i, terr.msg);
+    }
+  }
+  return 0;
+}
+
+char **bk_study_render_argv(const bk_study_t *s, const bk_template_ctx_t *ctx) {
+  const bk_model_t *m = &s->model;
+  bk_buf_t b;
+  bk_buf_init(&b);
+  int rc = 0;
+  for (size_t i = 0; rc == 0 && i < m->argc; i++) {
+    if (m->argt && m->argt[i])
+      rc = bk_template_render(m->argt[i], ctx, &b);
+    else
+      rc = bk_buf_puts(&b, m->argv[i]);
+    if (rc == 0)
+      rc = bk_buf_append(&b, "", 1); /* the argument's NUL */
+  }
+  size_t ptrs = (m->argc + 1) * sizeof(char *);
+  char **argv = rc ? NULL : bk_malloc(ptrs + b.len);
+  if (argv) {
+    char *text = (char *)argv + ptrs;
+    memcpy(text, b.data, b.len);
+    for (size_t i = 0; i < m->argc; i++) {
+      argv[i] = text;
+      text += strlen(text) + 1;
+    }
+    argv[m->argc] = NULL;
+  }
+  bk_buf_close(&b);
+  return argv;
+}
+
 static int load_model(loader_t *L, yaml_node_t *mn) {
   bk_model_t *m = &L->s->model;
   int rc = want_mapping(L, mn, "model");
@@ -994,8 +1052,16 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
     return rc;
   if (m->argc == 0)
     return FAIL(L, cn, "model.command must name a program");
+  if (strstr(m->argv[0], "{{"))
+    return FAIL(L, node_at(L, cn->data.sequence.items.start[0]),
+                "the program '%s' cannot hold a placeholder: it is checked "
+                "when the study is loaded; put values in the arguments, e.g. "
+                "command: [solver, --load, '{{ q }}']",
+                m->argv[0]);
   if ((rc = check_program(L, node_at(L, cn->data.sequence.items.start[0]),
                           m->argv[0])))
+    return rc;
+  if ((rc = load_argument_templates(L, cn)))
     return rc;
   if ((n = lookup(L, mn, "env"))) {
     if ((rc = want_mapping(L, n, "model.env")) ||
@@ -1983,9 +2049,13 @@ void bk_study_free(bk_study_t *s) {
   }
   bk_free(m->copy);
   bk_free(m->copy_names);
-  for (size_t i = 0; m->argv && m->argv[i]; i++)
+  for (size_t i = 0; m->argv && m->argv[i]; i++) {
     bk_free(m->argv[i]);
+    if (m->argt)
+      bk_template_free(m->argt[i]);
+  }
   bk_free(m->argv);
+  bk_free(m->argt);
   for (size_t i = 0; i < m->nenv; i++)
     bk_free(m->env[i]);
   bk_free(m->env);

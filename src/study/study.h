@@ -62,8 +62,12 @@ typedef struct {
   char **copy;       /* paths (resolved) of static files */
   char **copy_names; /* as written */
   size_t ncopy;
-  char **argv; /* NULL-terminated */
+  char **argv; /* NULL-terminated, as written */
   size_t argc;
+  /* argc entries: argument i parsed as a template when it holds `{{` or
+   * `}}` (docs/templates.md), NULL when it is used as written; NULL when
+   * no argument has one. argv[0], the program, never has one. */
+  bk_template_t **argt;
   char **env; /* "NAME=VALUE", NULL-terminated */
   size_t nenv;
   double timeout; /* 0 = none */
@@ -183,6 +187,12 @@ typedef struct {
  * BK_EIO, BK_ENOMEM) with err naming file:line:col, and *out is NULL. */
 int bk_study_load(const char *path, bk_study_t **out, bk_error_t *err);
 void bk_study_free(bk_study_t *s);
+
+/* The command line of one evaluation: model.command with the placeholders
+ * of its arguments rendered for ctx, as decks are (docs/templates.md).
+ * Returns a NULL-terminated array in one allocation (free it with
+ * bk_free), or NULL when out of memory. */
+char **bk_study_render_argv(const bk_study_t *s, const bk_template_ctx_t *ctx);
 
 const char *bk_method_name(bk_method_kind_t m);
 
