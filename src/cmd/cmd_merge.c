@@ -125,10 +125,16 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
   bk_buf_close(&miss);
   ss->logs = bk_calloc(ss->count, sizeof *ss->logs);
   bk_study_ident_t id;
-  if (!ss->logs || bk_study_ident_init(&id, s)) {
-    fprintf(stderr, "brink: out of memory\n");
+  bk_error_t ierr;
+  bk_error_clear(&ierr);
+  int irc = ss->logs ? bk_study_ident_init(&id, s, &ierr) : BK_ENOMEM;
+  if (irc) {
+    if (ss->logs)
+      bk__cli_print_error(&ierr);
+    else
+      fprintf(stderr, "brink: out of memory\n");
     shard_set_close(ss);
-    return BK_EXIT_RUNTIME;
+    return irc == BK_ENOMEM ? BK_EXIT_RUNTIME : bk_error_exit(irc);
   }
   for (uint32_t i = 0; i < ss->count && rc == 0; i++) {
     bk_shard_t sh = {i, ss->count};
@@ -178,8 +184,9 @@ static int copy_record(void *data, const bk_record_t *rec) {
 /* Writes the union of the shard logs into records.log. */
 static int write_merged(const bk_study_t *s, shard_set_t *ss, bk_error_t *err) {
   bk_study_ident_t id;
-  if (bk_study_ident_init(&id, s))
-    return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  int irc = bk_study_ident_init(&id, s, err);
+  if (irc)
+    return irc;
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/records.log", s->run.folder);

@@ -201,9 +201,10 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
   bk_error_t err;
   bk_error_clear(&err);
   bk_study_ident_t id;
-  if (bk_study_ident_init(&id, s)) {
-    fprintf(stderr, "brink: out of memory\n");
-    return BK_EXIT_RUNTIME;
+  int irc = bk_study_ident_init(&id, s, &err);
+  if (irc) {
+    bk__cli_print_error(&err);
+    return bk_error_exit(irc);
   }
   char logname[96] = "records.log";
   if (mode->shard.count)
