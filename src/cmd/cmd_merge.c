@@ -247,7 +247,7 @@ int bk__cmd_merge(int argc, char **argv) {
   bk_serve_t sv = {s, ss.logs, ss.nlogs, ss.count, missing, first, 0};
   bk_evaluator_t ev;
   bk_serve_evaluator(&sv, &ev);
-  bk_method_opts_t opts = {NULL, NULL};
+  bk_method_opts_t opts = {NULL, NULL, NULL, NULL};
   bk_result_t res;
   memset(&res, 0, sizeof res);
   bk_error_t err;

@@ -193,6 +193,15 @@ typedef struct {
   bk_shard_t shard; /* count 0 = not sharded */
 } run_mode_t;
 
+/* The reason recorded for a faulted run (bk_note_cb). */
+static int recorded_reason(void *data, const char *key, char *buf, size_t cap) {
+  bk_record_t rec;
+  if (bk_records_find(data, key, &rec) != 1 || !rec.reason || !rec.reason[0])
+    return 0;
+  snprintf(buf, cap, "%s", rec.reason);
+  return 1;
+}
+
 /* Opens the records (resuming), then the executor and the dispatcher, or
  * in the MPI mode the coordinator. Returns 0 or an exit code, having
  * printed why. */
@@ -356,7 +365,7 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
                  mode->shard.count;
   pr.pf = NAN;
   pr.cov = NAN;
-  bk_method_opts_t opts = {on_progress, &pr};
+  bk_method_opts_t opts = {on_progress, &pr, NULL, NULL};
   bk_evaluator_t ev;
   model_run_t mr;
   memset(&mr, 0, sizeof mr);
@@ -370,6 +379,10 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
       bk_mpi_coord_evaluator(mr.coord, &ev);
     else
       bk_dispatch_evaluator(mr.dispatch, &ev);
+    if (mr.records) {
+      opts.note = recorded_reason;
+      opts.note_data = mr.records;
+    }
   } else {
     bk_evaluator_inprocess(&ev, s);
   }

@@ -23,9 +23,15 @@
 typedef void (*bk_progress_cb)(void *data, const bk_result_t *sofar,
                                uint64_t planned);
 
+/* Writes into buf (cap bytes) the recorded reason why the run under `key`
+ * faulted ("exit status 1"), for messages; returns 1 when there is one. */
+typedef int (*bk_note_cb)(void *data, const char *key, char *buf, size_t cap);
+
 typedef struct {
   bk_progress_cb progress;
   void *progress_data;
+  bk_note_cb note; /* may be NULL */
+  void *note_data;
 } bk_method_opts_t;
 
 /* Runs the study's method. Returns 0 with *res filled, BK_ESTOPPED when a
