@@ -194,11 +194,13 @@ typedef struct {
 } run_mode_t;
 
 /* The reason recorded for a faulted run (bk_note_cb). */
-static int recorded_reason(void *data, const char *key, char *buf, size_t cap) {
+static int recorded_reason(void *data, const char *key, char *reason,
+                           size_t rcap, char *folder, size_t fcap) {
   bk_record_t rec;
-  if (bk_records_find(data, key, &rec) != 1 || !rec.reason || !rec.reason[0])
+  if (bk_records_find(data, key, &rec) != 1)
     return 0;
-  snprintf(buf, cap, "%s", rec.reason);
+  snprintf(reason, rcap, "%s", rec.reason ? rec.reason : "");
+  snprintf(folder, fcap, "%s", rec.folder ? rec.folder : "");
   return 1;
 }
 

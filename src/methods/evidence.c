@@ -6,6 +6,7 @@
 #include "methods/evidence.h"
 
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -210,6 +211,31 @@ static void pool_add(bk_evidence_pool_t *p, uint64_t *state, size_t nu,
   }
 }
 
+/* Keeps the first errored runs of the batch for the reports' list. */
+static void keep_runs(bk_evidence_t *e, const char *prefix,
+                      const bk_point_t *pts, size_t n) {
+  size_t nv = e->s->nvars;
+  for (size_t i = 0; i < n && e->nruns < BK_RESULT_ERROR_RUNS; i++) {
+    if (pts[i].fault == BK_FAULT_NONE)
+      continue;
+    if (!e->runs) {
+      e->runs = bk_calloc(BK_RESULT_ERROR_RUNS, sizeof *e->runs);
+      if (!e->runs)
+        return;
+    }
+    bk_error_run_t *r = &e->runs[e->nruns];
+    r->x = bk_calloc(nv ? nv : 1, sizeof *r->x);
+    if (!r->x)
+      return;
+    if (nv)
+      memcpy(r->x, pts[i].x, nv * sizeof *r->x);
+    snprintf(r->key, sizeof r->key, "%s/%llu", prefix,
+             (unsigned long long)pts[i].index);
+    r->fault = pts[i].fault;
+    e->nruns++;
+  }
+}
+
 static int watch_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
                        size_t n, bk_error_t *err) {
   bk_evidence_t *e = ev->data;
@@ -229,6 +255,7 @@ static int watch_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
     }
     snprintf(e->first_prefix, sizeof e->first_prefix, "%s", prefix);
   }
+  keep_runs(e, prefix, pts, n);
   int in_first = strcmp(prefix, e->first_prefix) == 0;
   for (size_t i = 0; i < n; i++) {
     const bk_point_t *p = &pts[i];
@@ -254,10 +281,27 @@ void bk_evidence_init(bk_evidence_t *e, const bk_study_t *s,
   e->ev.data = e;
 }
 
+void bk_evidence_list(bk_evidence_t *e, bk_result_t *res, bk_note_cb note,
+                      void *note_data) {
+  for (size_t i = 0; note && i < e->nruns; i++) {
+    bk_error_run_t *r = &e->runs[i];
+    if (!note(note_data, r->key, r->reason, sizeof r->reason, r->folder,
+              sizeof r->folder))
+      r->reason[0] = r->folder[0] = '\0';
+  }
+  res->error_runs = e->runs;
+  res->nerror_runs = e->nruns;
+  e->runs = NULL;
+  e->nruns = 0;
+}
+
 void bk_evidence_close(bk_evidence_t *e) {
   pool_close(&e->all);
   pool_close(&e->first);
   bk_free(e->u);
+  for (size_t i = 0; i < e->nruns; i++)
+    bk_free(e->runs[i].x);
+  bk_free(e->runs);
   memset(e, 0, sizeof *e);
 }
 
@@ -292,17 +336,23 @@ int bk_evidence_check(bk_evidence_t *e, bk_result_t *res) {
       return 0;
     t = t1;
   }
+  char shares[160];
+  if (t.share_all > 0)
+    snprintf(shares, sizeof shares,
+             "%.0f%% of their nearest completed runs failed, against %.0f%% "
+             "of all completed runs",
+             100 * t.share_near, 100 * t.share_all);
+  else
+    snprintf(shares, sizeof shares,
+             "no completed run failed: the failures may all be among them");
   return bk_result_warn(
       res,
       "model errors cluster near the failure region: the %llu runs that "
       "ended in a model error (left out: model.on_error skip) lie where "
       "the completed runs have low g (nearest-neighbour rank-sum test, "
-      "z = %.1f; %.0f%% of their nearest completed runs failed, against "
-      "%.0f%% of all completed runs). Pf is likely biased low: with the "
-      "left-out runs all safe it is %.3e, all failed %.3e%s. Fix the "
-      "model where it fails, or set model.on_error: fail for a "
-      "conservative Pf",
-      (unsigned long long)e->all.seen_err, t.z, 100 * t.share_near,
-      100 * t.share_all, res->pf_bounds[0], res->pf_bounds[1],
-      bounds_scope(e->s->analysis.method));
+      "z = %.1f; %s). Pf is likely biased low: with the left-out runs all "
+      "safe it is %.3e, all failed %.3e%s. Fix the model where it fails, "
+      "or set model.on_error: fail for a conservative Pf",
+      (unsigned long long)e->all.seen_err, t.z, shares, res->pf_bounds[0],
+      res->pf_bounds[1], bounds_scope(e->s->analysis.method));
 }

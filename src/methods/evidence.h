@@ -40,6 +40,7 @@
 #include <stdint.h>
 
 #include "eval/evaluator.h"
+#include "methods/method.h"
 #include "methods/result.h"
 #include "study/study.h"
 
@@ -84,12 +85,19 @@ typedef struct {
   uint64_t state; /* the reservoirs' random stream, fixed seed */
   double *u;      /* scratch */
   int nomem;
+  bk_error_run_t *runs; /* the first BK_RESULT_ERROR_RUNS model errors */
+  size_t nruns;
 } bk_evidence_t;
 
 /* Wraps `inner` for study s; e->ev is the evaluator to use. */
 void bk_evidence_init(bk_evidence_t *e, const bk_study_t *s,
                       bk_evaluator_t *inner);
 void bk_evidence_close(bk_evidence_t *e);
+
+/* Moves the first errored runs the watcher saw (key, fault, inputs) into
+ * res->error_runs, with their reason and folder from `note` when given. */
+void bk_evidence_list(bk_evidence_t *e, bk_result_t *res, bk_note_cb note,
+                      void *note_data);
 
 /* Runs the test on what the watcher saw and, when it fires, adds a
  * warning to res naming the bias and the bounds on Pf. Only with

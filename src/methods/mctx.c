@@ -83,9 +83,11 @@ static int error_limit(bk_mctx_t *m, int final) {
     return 0;
   int f = dominant_fault(m);
   /* The first such run's recorded reason, cut to fit the message. */
-  char note[160] = "", why[120];
+  char note[160] = "", why[120], folder[8];
   if (m->opts && m->opts->note &&
-      m->opts->note(m->opts->note_data, m->first_fault[f], why, sizeof why)) {
+      m->opts->note(m->opts->note_data, m->first_fault[f], why, sizeof why,
+                    folder, sizeof folder) &&
+      why[0]) {
     size_t len = strlen(why);
     snprintf(note, sizeof note, " (\"%s%s\")", why,
              len + 1 >= sizeof why ? "..." : "");

@@ -45,6 +45,8 @@ int bk_method_run(const bk_study_t *s, bk_evaluator_t *ev,
   bk_evidence_t watch;
   bk_evidence_init(&watch, s, ev);
   int rc = run_method(s, &watch.ev, opts, res, err);
+  bk_evidence_list(&watch, res, opts ? opts->note : NULL,
+                   opts ? opts->note_data : NULL);
   if (rc == 0 && bk_evidence_check(&watch, res))
     rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
   bk_evidence_close(&watch);

@@ -23,9 +23,12 @@
 typedef void (*bk_progress_cb)(void *data, const bk_result_t *sofar,
                                uint64_t planned);
 
-/* Writes into buf (cap bytes) the recorded reason why the run under `key`
- * faulted ("exit status 1"), for messages; returns 1 when there is one. */
-typedef int (*bk_note_cb)(void *data, const char *key, char *buf, size_t cap);
+/* Writes what the records say of the faulted run under `key`: the reason
+ * ("exit status 1") into reason[rcap] and the run folder kept into
+ * folder[fcap] ("" when none), for messages and reports; returns 1 when
+ * the key is recorded. */
+typedef int (*bk_note_cb)(void *data, const char *key, char *reason,
+                          size_t rcap, char *folder, size_t fcap);
 
 typedef struct {
   bk_progress_cb progress;

@@ -775,11 +775,13 @@ static void scatter_legend(bk_svg_t *p, int with_errors) {
 }
 
 static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
-                          const rank_t *rk, size_t n) {
+                          const rank_t *rk, size_t n, int ranked) {
   if (n < 2 || s->nok < 2)
     return;
   size_t a = rk[0].var, b = rk[1].var;
-  bk_buf_puts(o, "<h3>The two most influential inputs</h3>\n");
+  bk_buf_puts(o, ranked ? "<h3>The two most influential inputs</h3>\n"
+                        : "<h3>The first two inputs, with the model "
+                          "errors</h3>\n");
   double x0 = INFINITY, x1 = -INFINITY, y0 = INFINITY, y1 = -INFINITY;
   for (size_t k = 0; k < s->n + s->nfx; k++) {
     const double *row =
@@ -1288,7 +1290,15 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   if (s.n > 0 || a2)
     chart_influence(o, st, rk, nr, a2 != NULL, &s);
   if (s.n > 0 && nr >= 2 && !isnan(rk[1].value))
-    chart_scatter(o, st, &s, rk, nr);
+    chart_scatter(o, st, &s, rk, nr, 1);
+  else if (s.n > 0 && nr >= 2 && error_rows(&s) > 0) {
+    /* No failure to rank the inputs by, but model errors to show: the
+     * first two random inputs, in the order of the study. */
+    for (size_t i = 0, k = 0; i < st->nvars && k < 2; i++)
+      if (st->vars[i].dist.kind != BK_DIST_CONSTANT)
+        rk[k++].var = i;
+    chart_scatter(o, st, &s, rk, nr, 0);
+  }
   chart_times(o, &s);
   bk_free(rk);
   errors_section(o, st, &s);
