@@ -43,6 +43,21 @@ typedef struct {
   uint32_t count;
 } shard_set_t;
 
+/* The reason recorded for a faulted run, from the shard that holds it
+ * (bk_note_cb). */
+static int shard_reason(void *data, const char *key, char *reason, size_t rcap,
+                        char *folder, size_t fcap) {
+  const shard_set_t *ss = data;
+  bk_record_t rec;
+  for (size_t i = 0; i < ss->nlogs; i++)
+    if (ss->logs[i] && bk_records_find(ss->logs[i], key, &rec) == 1) {
+      snprintf(reason, rcap, "%s", rec.reason ? rec.reason : "");
+      snprintf(folder, fcap, "%s", rec.folder ? rec.folder : "");
+      return 1;
+    }
+  return 0;
+}
+
 static void shard_set_close(shard_set_t *ss) {
   for (size_t i = 0; i < ss->nlogs; i++)
     bk_records_close(ss->logs[i]);
@@ -247,7 +262,7 @@ int bk__cmd_merge(int argc, char **argv) {
   bk_serve_t sv = {s, ss.logs, ss.nlogs, ss.count, missing, first, 0};
   bk_evaluator_t ev;
   bk_serve_evaluator(&sv, &ev);
-  bk_method_opts_t opts = {NULL, NULL, NULL, NULL};
+  bk_method_opts_t opts = {NULL, NULL, shard_reason, &ss};
   bk_result_t res;
   memset(&res, 0, sizeof res);
   bk_error_t err;

@@ -173,37 +173,38 @@ static size_t reservoir_slot(uint64_t *state, uint64_t seen, size_t cap) {
   return j < cap ? (size_t)j : cap;
 }
 
-static int pool_alloc(bk_evidence_pool_t *p, size_t nu, size_t capok,
+static int pool_alloc(bk_evidence_pool_t *p, size_t nx, size_t capok,
                       size_t caperr) {
   p->capok = capok;
   p->caperr = caperr;
-  p->ok_u = bk_calloc(capok * nu, sizeof *p->ok_u);
+  p->ok_x = bk_calloc(capok * nx + 1, sizeof *p->ok_x);
   p->ok_g = bk_calloc(capok, sizeof *p->ok_g);
-  p->err_u = bk_calloc(caperr * nu, sizeof *p->err_u);
-  return p->ok_u && p->ok_g && p->err_u ? 0 : BK_ENOMEM;
+  p->err_x = bk_calloc(caperr * nx + 1, sizeof *p->err_x);
+  return p->ok_x && p->ok_g && p->err_x ? 0 : BK_ENOMEM;
 }
 
 static void pool_close(bk_evidence_pool_t *p) {
-  bk_free(p->ok_u);
+  bk_free(p->ok_x);
   bk_free(p->ok_g);
-  bk_free(p->err_u);
+  bk_free(p->err_x);
   memset(p, 0, sizeof *p);
 }
 
-/* Offers one run (u, and g or an error) to the pool's reservoirs. */
-static void pool_add(bk_evidence_pool_t *p, uint64_t *state, size_t nu,
-                     const double *u, int is_error, double g) {
+/* Offers one run (its nx inputs x, and g or an error) to the pool's
+ * reservoirs. */
+static void pool_add(bk_evidence_pool_t *p, uint64_t *state, size_t nx,
+                     const double *x, int is_error, double g) {
   if (is_error) {
     size_t at = reservoir_slot(state, p->seen_err++, p->caperr);
     if (at < p->caperr) {
-      memcpy(p->err_u + at * nu, u, nu * sizeof *u);
+      memcpy(p->err_x + at * nx, x, nx * sizeof *x);
       if (at == p->nerr)
         p->nerr++;
     }
   } else {
     size_t at = reservoir_slot(state, p->seen_ok++, p->capok);
     if (at < p->capok) {
-      memcpy(p->ok_u + at * nu, u, nu * sizeof *u);
+      memcpy(p->ok_x + at * nx, x, nx * sizeof *x);
       p->ok_g[at] = g;
       if (at == p->nok)
         p->nok++;
@@ -240,16 +241,17 @@ static int watch_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
                        size_t n, bk_error_t *err) {
   bk_evidence_t *e = ev->data;
   int rc = e->inner->batch(e->inner, prefix, pts, n, err);
+  size_t nx = e->s->nvars;
   if (rc || e->nomem || e->nu == 0)
     return rc;
-  if (!e->u) {
+  if (!e->started) {
     size_t capok = CAP_OK;
-    if (capok * e->nu > MAX_DOUBLES)
-      capok = MAX_DOUBLES / e->nu > 4 * BK_EVIDENCE_K ? MAX_DOUBLES / e->nu
-                                                      : 4 * BK_EVIDENCE_K;
-    e->u = bk_calloc(e->nu, sizeof *e->u);
-    if (!e->u || pool_alloc(&e->all, e->nu, capok, CAP_ERR) ||
-        pool_alloc(&e->first, e->nu, capok / 4 + 1, CAP_ERR / 4 + 1)) {
+    if (capok * nx > MAX_DOUBLES)
+      capok = MAX_DOUBLES / nx > 4 * BK_EVIDENCE_K ? MAX_DOUBLES / nx
+                                                   : 4 * BK_EVIDENCE_K;
+    e->started = 1;
+    if (pool_alloc(&e->all, nx, capok, CAP_ERR) ||
+        pool_alloc(&e->first, nx, capok / 4 + 1, CAP_ERR / 4 + 1)) {
       e->nomem = 1; /* the check is then skipped, the run goes on */
       return 0;
     }
@@ -262,10 +264,11 @@ static int watch_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
     int is_error = p->fault != BK_FAULT_NONE;
     if (!is_error && isnan(p->g))
       continue;
-    bk_transform_x_to_u(e->s->transform, p->x, e->u);
-    pool_add(&e->all, &e->state, e->nu, e->u, is_error, p->g);
+    /* Inputs are kept as x and mapped to u only when the test runs: most
+     * points never stay in a full reservoir. */
+    pool_add(&e->all, &e->state, nx, p->x, is_error, p->g);
     if (in_first)
-      pool_add(&e->first, &e->state, e->nu, e->u, is_error, p->g);
+      pool_add(&e->first, &e->state, nx, p->x, is_error, p->g);
   }
   return 0;
 }
@@ -298,11 +301,31 @@ void bk_evidence_list(bk_evidence_t *e, bk_result_t *res, bk_note_cb note,
 void bk_evidence_close(bk_evidence_t *e) {
   pool_close(&e->all);
   pool_close(&e->first);
-  bk_free(e->u);
   for (size_t i = 0; i < e->nruns; i++)
     bk_free(e->runs[i].x);
   bk_free(e->runs);
   memset(e, 0, sizeof *e);
+}
+
+/* The inputs of n points (x, nvars each) in u-space (nu each), into a new
+ * array; NULL when out of memory. */
+static double *to_u(const bk_evidence_t *e, const double *x, size_t n) {
+  double *u = bk_calloc(n * e->nu + 1, sizeof *u);
+  for (size_t i = 0; u && i < n; i++)
+    bk_transform_x_to_u(e->s->transform, x + i * e->s->nvars, u + i * e->nu);
+  return u;
+}
+
+/* The test on one pool. */
+static int pool_test(const bk_evidence_t *e, const bk_evidence_pool_t *p,
+                     bk_evidence_test_t *t) {
+  double *ok_u = to_u(e, p->ok_x, p->nok), *err_u = to_u(e, p->err_x, p->nerr);
+  int rc = ok_u && err_u ? bk_evidence_test(e->nu, ok_u, p->ok_g, p->nok, err_u,
+                                            p->nerr, t)
+                         : BK_ENOMEM;
+  bk_free(ok_u);
+  bk_free(err_u);
+  return rc;
 }
 
 /* What the method's pf_bounds cover, for the warning. */
@@ -323,14 +346,11 @@ int bk_evidence_check(bk_evidence_t *e, bk_result_t *res) {
   if (e->nomem || e->s->model.on_error != BK_ON_ERROR_SKIP || !e->all.seen_err)
     return 0;
   bk_evidence_test_t t, t1;
-  const bk_evidence_pool_t *a = &e->all, *f = &e->first;
-  int rc =
-      bk_evidence_test(e->nu, a->ok_u, a->ok_g, a->nok, a->err_u, a->nerr, &t);
+  int rc = pool_test(e, &e->all, &t);
   if (rc)
     return rc;
   if (!t.fires) {
-    if ((rc = bk_evidence_test(e->nu, f->ok_u, f->ok_g, f->nok, f->err_u,
-                               f->nerr, &t1)))
+    if ((rc = pool_test(e, &e->first, &t1)))
       return rc;
     if (!t1.fires)
       return 0;

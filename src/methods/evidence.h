@@ -5,10 +5,11 @@
  * cluster where the model is loaded hardest, near the failure region.
  *
  * bk_method_run wraps every method's evaluator in this watcher: it keeps
- * the standard-normal inputs u of the errored runs and of the completed
- * ones (with their g), each in a fixed-size reservoir sample (Vitter 1985,
+ * the inputs of the errored runs and of the completed ones (with their
+ * g), each in a fixed-size reservoir sample (Vitter 1985,
  * algorithm R, with a fixed seed, so a resumed run keeps the same sample).
- * After the method, bk_evidence_check compares the neighbourhoods:
+ * After the method, bk_evidence_check maps them to the standard-normal
+ * space u and compares the neighbourhoods:
  *
  *   for each errored run, the k = 5 nearest completed runs in u-space
  *   (Euclidean), and the mean rank of their g among all completed runs;
@@ -63,13 +64,13 @@ int bk_evidence_test(size_t nu, const double *ok_u, const double *ok_g,
                      size_t nok, const double *err_u, size_t nerr,
                      bk_evidence_test_t *out);
 
-/* A reservoir sample of the runs seen: completed ones with their g,
- * errored ones. */
+/* A reservoir sample of the runs seen, by their physical inputs x:
+ * completed ones with their g, errored ones. */
 typedef struct {
-  double *ok_u, *ok_g;
+  double *ok_x, *ok_g;
   size_t nok, capok;
   uint64_t seen_ok;
-  double *err_u;
+  double *err_x;
   size_t nerr, caperr;
   uint64_t seen_err;
 } bk_evidence_pool_t;
@@ -83,7 +84,7 @@ typedef struct {
   bk_evidence_pool_t first; /* the runs under the first key prefix */
   char first_prefix[64];
   uint64_t state; /* the reservoirs' random stream, fixed seed */
-  double *u;      /* scratch */
+  int started;    /* the reservoirs are allocated */
   int nomem;
   bk_error_run_t *runs; /* the first BK_RESULT_ERROR_RUNS model errors */
   size_t nruns;
