@@ -182,3 +182,54 @@ Test(fingerprint, streaming_digest_equals_one_shot) {
   cr_assert_str_eq(a, b);
   free(data);
 }
+
+/* Loads s.yaml; returns the code and the message in msg. */
+static int load_study(char *msg, size_t cap) {
+  char p[600];
+  snprintf(p, sizeof p, "%s/s.yaml", dir);
+  bk_study_t *s = NULL;
+  bk_error_t err;
+  bk_error_clear(&err);
+  int rc = bk_study_load(p, &s, &err);
+  snprintf(msg, cap, "%d:%d: %s", err.line, err.col, err.msg);
+  bk_study_free(s);
+  return rc;
+}
+
+/* model.watch and model.version_command refuse what cannot be
+ * fingerprinted, at load time, naming the entry. */
+Test(fingerprint, bad_watch_and_version_entries) {
+  static const struct {
+    const char *from, *to, *want;
+  } cases[] = {
+      {"watch: [material.txt]", "watch: [nothere.txt]",
+       "9:11: cannot find 'nothere.txt' (model.watch names files"},
+      {"watch: [material.txt]", "watch: [sub]",
+       "9:11: 'sub' is a folder; model.watch takes files"},
+      {"watch: [material.txt]", "watch: material.txt", "model.watch"},
+      {"version_command: [sh, -c, 'cat version.txt']", "version_command: []",
+       "model.version_command must name a program"},
+      {"version_command: [sh, -c, 'cat version.txt']",
+       "version_command: [no-such-solver-xyz, -v]",
+       "program 'no-such-solver-xyz' is not on PATH"},
+  };
+  setup_all();
+  char p[600];
+  snprintf(p, sizeof p, "%s/sub", dir);
+  cr_assert_eq(mkdir(p, 0755), 0);
+  char *text = strdup(read_file("s.yaml"));
+  for (size_t i = 0; i < sizeof cases / sizeof *cases; i++) {
+    char *at = strstr(text, cases[i].from);
+    cr_assert(at, "%s", cases[i].from);
+    write_file("s.yaml", "%.*s%s%s", (int)(at - text), text, cases[i].to,
+               at + strlen(cases[i].from));
+    char msg[1024];
+    int rc = load_study(msg, sizeof msg);
+    cr_expect_neq(rc, 0, "%s loaded", cases[i].to);
+    cr_expect(strstr(msg, cases[i].want), "%s: %s", cases[i].to, msg);
+  }
+  write_file("s.yaml", "%s", text);
+  char msg[1024];
+  cr_expect_eq(load_study(msg, sizeof msg), 0, "%s", msg);
+  free(text);
+}
