@@ -233,3 +233,32 @@ Test(fingerprint, bad_watch_and_version_entries) {
   cr_expect_eq(load_study(msg, sizeof msg), 0, "%s", msg);
   free(text);
 }
+
+/* Shards and merge: the version command runs once per session (each
+ * shard, then merge once), and a copied file changed before the merge is
+ * named and nothing is merged. */
+Test(fingerprint, shards_and_merge) {
+  setup_all();
+  char *text = strdup(read_file("s.yaml"));
+  char *at = strstr(text, "'cat version.txt'");
+  cr_assert(at);
+  write_file("s.yaml", "%.*s'echo run >> calls.txt; cat version.txt'%s",
+             (int)(at - text), text, at + strlen("'cat version.txt'"));
+  free(text);
+  cr_assert_eq(brink("run s.yaml --quiet --shard 0/2"), 0, "%s",
+               read_file("err.txt"));
+  cr_assert_eq(brink("run s.yaml --quiet --shard 1/2"), 0, "%s",
+               read_file("err.txt"));
+  write_model("version 2");
+  int rc = brink("merge s.yaml --quiet");
+  char *err = read_file("err.txt");
+  cr_assert_eq(rc, 2, "exit %d: %s", rc, err);
+  cr_assert(strstr(err, "copy model.sh changed"), "%s", err);
+  cr_assert(!exists("out/records.log"), "nothing merged");
+  write_model("version 1");
+  cr_assert_eq(brink("merge s.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(count_lines(read_file("calls.txt")), 4, "%s",
+               read_file("calls.txt"));
+  char *log = read_file("out/records.log");
+  cr_assert(strstr(log, "# part copy model.sh "), "%s", log);
+}

@@ -41,6 +41,8 @@ typedef struct {
   bk_records_t **logs;
   size_t nlogs;
   uint32_t count;
+  bk_study_ident_t id; /* made once: it runs model.version_command */
+  int has_id;
 } shard_set_t;
 
 /* The reason recorded for a faulted run, from the shard that holds it
@@ -62,6 +64,8 @@ static void shard_set_close(shard_set_t *ss) {
   for (size_t i = 0; i < ss->nlogs; i++)
     bk_records_close(ss->logs[i]);
   bk_free(ss->logs);
+  if (ss->has_id)
+    bk_study_ident_close(&ss->id);
   memset(ss, 0, sizeof *ss);
 }
 
@@ -139,10 +143,10 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
   }
   bk_buf_close(&miss);
   ss->logs = bk_calloc(ss->count, sizeof *ss->logs);
-  bk_study_ident_t id;
   bk_error_t ierr;
   bk_error_clear(&ierr);
-  int irc = ss->logs ? bk_study_ident_init(&id, s, &ierr) : BK_ENOMEM;
+  int irc = ss->logs ? bk_study_ident_init(&ss->id, s, &ierr) : BK_ENOMEM;
+  ss->has_id = irc == 0;
   if (irc) {
     if (ss->logs)
       bk__cli_print_error(&ierr);
@@ -159,7 +163,7 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
     bk_buf_init(&p);
     bk_buf_printf(&p, "%s/%s", s->run.folder, name);
     bk_records_opts_t ro;
-    bk_study_ident_opts(&id, s, p.data, &ro);
+    bk_study_ident_opts(&ss->id, s, p.data, &ro);
     ro.read_only = 1;
     bk_error_t err;
     bk_error_clear(&err);
@@ -177,7 +181,6 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
     }
     bk_buf_close(&p);
   }
-  bk_study_ident_close(&id);
   if (rc)
     shard_set_close(ss);
   return rc;
@@ -198,18 +201,13 @@ static int copy_record(void *data, const bk_record_t *rec) {
 
 /* Writes the union of the shard logs into records.log. */
 static int write_merged(const bk_study_t *s, shard_set_t *ss, bk_error_t *err) {
-  bk_study_ident_t id;
-  int irc = bk_study_ident_init(&id, s, err);
-  if (irc)
-    return irc;
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/records.log", s->run.folder);
   bk_records_opts_t ro;
-  bk_study_ident_opts(&id, s, p.data, &ro);
+  bk_study_ident_opts(&ss->id, s, p.data, &ro);
   bk_records_t *out = NULL;
   int rc = bk_records_open(&out, &ro, err);
-  bk_study_ident_close(&id);
   bk_buf_close(&p);
   copy_ctx_t c = {out, err};
   for (size_t i = 0; rc == 0 && i < ss->nlogs; i++)
