@@ -168,7 +168,7 @@ static void bench(const problem_t *p, int seeds, const char *analysis) {
     bk_evaluator_inprocess(&ev, s);
     static cpu_log_t cl;
     cl.k = 0;
-    bk_method_opts_t o = {on_progress, &cl};
+    bk_method_opts_t o = {on_progress, &cl, NULL, NULL};
     bk_error_t err;
     bk_error_clear(&err);
     bk_result_t r;
@@ -226,7 +226,7 @@ static void bench_cpu(void) {
   bk_evaluator_inprocess(&ev, s);
   static cpu_log_t cl;
   cl.k = 0;
-  bk_method_opts_t o = {on_progress, &cl};
+  bk_method_opts_t o = {on_progress, &cl, NULL, NULL};
   bk_error_t err;
   bk_error_clear(&err);
   bk_result_t r;

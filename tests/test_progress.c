@@ -179,7 +179,7 @@ Test(progress, methods_report_totals_and_stages_in_process) {
   bk_inprocess_t ip = {s, on_tick, &seen, {0}};
   bk_evaluator_t ev;
   bk_evaluator_inprocess_counted(&ev, &ip);
-  bk_method_opts_t opts = {on_progress, &seen};
+  bk_method_opts_t opts = {on_progress, &seen, NULL, NULL};
   bk_result_t res;
   bk_error_t err;
   bk_error_clear(&err);
@@ -216,7 +216,9 @@ Test(progress, methods_report_totals_and_stages_in_process) {
  * the result's failures and fills the last tick's counts. */
 static uint64_t run_dispatched(bk_study_t *s, seen_t *seen) {
   bk_study_ident_t id;
-  cr_assert_eq(bk_study_ident_init(&id, s), 0);
+  bk_error_t ierr;
+  bk_error_clear(&ierr);
+  cr_assert_eq(bk_study_ident_init(&id, s, &ierr), 0, "%s", ierr.msg);
   char lp[600], wd[600];
   snprintf(lp, sizeof lp, "%s/records.log", dir);
   snprintf(wd, sizeof wd, "%s/work", dir);
@@ -241,7 +243,7 @@ static uint64_t run_dispatched(bk_study_t *s, seen_t *seen) {
   cr_assert_eq(bk_dispatch_new(&d, &dop), 0);
   bk_evaluator_t ev;
   bk_dispatch_evaluator(d, &ev);
-  bk_method_opts_t opts = {on_progress, seen};
+  bk_method_opts_t opts = {on_progress, seen, NULL, NULL};
   bk_result_t res;
   cr_assert_eq(bk_method_run(s, &ev, &opts, &res, &err), 0, "%s", err.msg);
   uint64_t k = res.est.failures;

@@ -41,12 +41,31 @@ typedef struct {
   bk_records_t **logs;
   size_t nlogs;
   uint32_t count;
+  bk_study_ident_t id; /* made once: it runs model.version_command */
+  int has_id;
 } shard_set_t;
+
+/* The reason recorded for a faulted run, from the shard that holds it
+ * (bk_note_cb). */
+static int shard_reason(void *data, const char *key, char *reason, size_t rcap,
+                        char *folder, size_t fcap) {
+  const shard_set_t *ss = data;
+  bk_record_t rec;
+  for (size_t i = 0; i < ss->nlogs; i++)
+    if (ss->logs[i] && bk_records_find(ss->logs[i], key, &rec) == 1) {
+      snprintf(reason, rcap, "%s", rec.reason ? rec.reason : "");
+      snprintf(folder, fcap, "%s", rec.folder ? rec.folder : "");
+      return 1;
+    }
+  return 0;
+}
 
 static void shard_set_close(shard_set_t *ss) {
   for (size_t i = 0; i < ss->nlogs; i++)
     bk_records_close(ss->logs[i]);
   bk_free(ss->logs);
+  if (ss->has_id)
+    bk_study_ident_close(&ss->id);
   memset(ss, 0, sizeof *ss);
 }
 
@@ -124,11 +143,17 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
   }
   bk_buf_close(&miss);
   ss->logs = bk_calloc(ss->count, sizeof *ss->logs);
-  bk_study_ident_t id;
-  if (!ss->logs || bk_study_ident_init(&id, s)) {
-    fprintf(stderr, "brink: out of memory\n");
+  bk_error_t ierr;
+  bk_error_clear(&ierr);
+  int irc = ss->logs ? bk_study_ident_init(&ss->id, s, &ierr) : BK_ENOMEM;
+  ss->has_id = irc == 0;
+  if (irc) {
+    if (ss->logs)
+      bk__cli_print_error(&ierr);
+    else
+      fprintf(stderr, "brink: out of memory\n");
     shard_set_close(ss);
-    return BK_EXIT_RUNTIME;
+    return irc == BK_ENOMEM ? BK_EXIT_RUNTIME : bk_error_exit(irc);
   }
   for (uint32_t i = 0; i < ss->count && rc == 0; i++) {
     bk_shard_t sh = {i, ss->count};
@@ -138,7 +163,7 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
     bk_buf_init(&p);
     bk_buf_printf(&p, "%s/%s", s->run.folder, name);
     bk_records_opts_t ro;
-    bk_study_ident_opts(&id, s, p.data, &ro);
+    bk_study_ident_opts(&ss->id, s, p.data, &ro);
     ro.read_only = 1;
     bk_error_t err;
     bk_error_clear(&err);
@@ -156,7 +181,6 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
     }
     bk_buf_close(&p);
   }
-  bk_study_ident_close(&id);
   if (rc)
     shard_set_close(ss);
   return rc;
@@ -177,17 +201,13 @@ static int copy_record(void *data, const bk_record_t *rec) {
 
 /* Writes the union of the shard logs into records.log. */
 static int write_merged(const bk_study_t *s, shard_set_t *ss, bk_error_t *err) {
-  bk_study_ident_t id;
-  if (bk_study_ident_init(&id, s))
-    return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
   bk_buf_t p;
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/records.log", s->run.folder);
   bk_records_opts_t ro;
-  bk_study_ident_opts(&id, s, p.data, &ro);
+  bk_study_ident_opts(&ss->id, s, p.data, &ro);
   bk_records_t *out = NULL;
   int rc = bk_records_open(&out, &ro, err);
-  bk_study_ident_close(&id);
   bk_buf_close(&p);
   copy_ctx_t c = {out, err};
   for (size_t i = 0; rc == 0 && i < ss->nlogs; i++)
@@ -240,7 +260,7 @@ int bk__cmd_merge(int argc, char **argv) {
   bk_serve_t sv = {s, ss.logs, ss.nlogs, ss.count, missing, first, 0};
   bk_evaluator_t ev;
   bk_serve_evaluator(&sv, &ev);
-  bk_method_opts_t opts = {NULL, NULL};
+  bk_method_opts_t opts = {NULL, NULL, shard_reason, &ss};
   bk_result_t res;
   memset(&res, 0, sizeof res);
   bk_error_t err;

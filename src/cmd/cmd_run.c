@@ -43,7 +43,10 @@ static const char run_help[] =
     "otherwise: counts as runs end, the batch under way, and for random,\n"
     "lhs and sobol done of planned with the time to go (docs/reports.md).\n"
     "Ctrl-C (or SIGTERM, SIGUSR1) stops cleanly with exit code 3; running the\n"
-    "same command again resumes and ends with the same numbers.\n"
+    "same command again resumes and ends with the same numbers. A resume is\n"
+    "refused (exit code 2, nothing written) when the study, a template, a\n"
+    "model.copy or model.watch file, or the output of model.version_command\n"
+    "changed since the records were made; the message names which.\n"
     "\n"
     "  -q, --quiet    no progress display and no report on stdout\n"
     "  --mpi          under mpirun or srun: rank 0 coordinates and keeps the\n"
@@ -115,6 +118,17 @@ typedef struct {
   bk_shard_t shard; /* count 0 = not sharded */
 } run_mode_t;
 
+/* The reason recorded for a faulted run (bk_note_cb). */
+static int recorded_reason(void *data, const char *key, char *reason,
+                           size_t rcap, char *folder, size_t fcap) {
+  bk_record_t rec;
+  if (bk_records_find(data, key, &rec) != 1)
+    return 0;
+  snprintf(reason, rcap, "%s", rec.reason ? rec.reason : "");
+  snprintf(folder, fcap, "%s", rec.folder ? rec.folder : "");
+  return 1;
+}
+
 /* Opens the records (resuming), then the executor and the dispatcher, or
  * in the MPI mode the coordinator. Returns 0 or an exit code, having
  * printed why. */
@@ -123,9 +137,10 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
   bk_error_t err;
   bk_error_clear(&err);
   bk_study_ident_t id;
-  if (bk_study_ident_init(&id, s)) {
-    fprintf(stderr, "brink: out of memory\n");
-    return BK_EXIT_RUNTIME;
+  int irc = bk_study_ident_init(&id, s, &err);
+  if (irc) {
+    bk__cli_print_error(&err);
+    return bk_error_exit(irc);
   }
   char logname[96] = "records.log";
   if (mode->shard.count)
@@ -280,7 +295,7 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
                      s->analysis.method == BK_METHOD_SOBOL;
   pr.on_error_fail = s->model.on_error == BK_ON_ERROR_FAIL;
   pr.processes = s->model.present;
-  bk_method_opts_t opts = {on_progress, &pr};
+  bk_method_opts_t opts = {on_progress, &pr, NULL, NULL};
   bk_evaluator_t ev;
   bk_inprocess_t inproc = {s, on_tick, &pr, {0}};
   model_run_t mr;
@@ -295,6 +310,10 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
       bk_mpi_coord_evaluator(mr.coord, &ev);
     else
       bk_dispatch_evaluator(mr.dispatch, &ev);
+    if (mr.records) {
+      opts.note = recorded_reason;
+      opts.note_data = mr.records;
+    }
   } else {
     bk_evaluator_inprocess_counted(&ev, &inproc);
   }

@@ -14,6 +14,7 @@
 #include "base/alloc.h"
 #include "base/buf.h"
 #include "base/fault.h"
+#include "eval/fingerprint.h"
 #include "eval/replay.h"
 
 #define MAX_SHARDS 1000000u
@@ -120,45 +121,84 @@ void bk_shard_evaluator(bk_shard_eval_t *se, bk_evaluator_t *ev) {
 
 /* ---- records identity -------------------------------------------------- */
 
-int bk_study_ident_init(bk_study_ident_t *id, const bk_study_t *s) {
+/* Seconds a version command may take. */
+#define VERSION_COMMAND_LIMIT 120
+
+/* Adds part `i` named by the printf text, with digest `digest` copied. */
+static int ident_part(bk_study_ident_t *id, size_t i, const char *digest,
+                      const char *fmt, const char *arg) {
+  bk_buf_t b;
+  bk_buf_init(&b);
+  bk_buf_printf(&b, fmt, arg);
+  id->names[i] = b.data;
+  id->digests[i] = bk_strdup(digest);
+  if (!id->names[i] || !id->digests[i])
+    return BK_ENOMEM;
+  id->parts[i] = (bk_fingerprint_part_t){id->names[i], id->digests[i]};
+  return 0;
+}
+
+int bk_study_ident_init(bk_study_ident_t *id, const bk_study_t *s,
+                        bk_error_t *err) {
+  const bk_model_t *m = &s->model;
   memset(id, 0, sizeof *id);
-  id->nparts = 3 + s->model.ndecks;
+  id->nparts = 3 + m->ndecks + m->ncopy + m->nwatch + (m->version_argv ? 1 : 0);
   id->parts = bk_calloc(id->nparts, sizeof *id->parts);
   id->names = bk_calloc(id->nparts, sizeof *id->names);
-  id->ynames = bk_calloc(s->model.noutputs + 1, sizeof *id->ynames);
-  if (!id->parts || !id->names || !id->ynames) {
-    bk_study_ident_close(id);
-    return BK_ENOMEM;
+  id->digests = bk_calloc(id->nparts, sizeof *id->digests);
+  id->ynames = bk_calloc(m->noutputs + 1, sizeof *id->ynames);
+  int rc = 0;
+  if (!id->parts || !id->names || !id->digests || !id->ynames) {
+    rc = BK_ENOMEM;
+    goto fail;
   }
   id->parts[0] = (bk_fingerprint_part_t){"study", s->digest_study};
   id->parts[1] = (bk_fingerprint_part_t){"model", s->digest_model};
   id->parts[2] = (bk_fingerprint_part_t){"tool", "brink-" BK_VERSION};
-  for (size_t i = 0; i < s->model.ndecks; i++) {
-    bk_buf_t b;
-    bk_buf_init(&b);
-    bk_buf_printf(&b, "template %s", s->model.decks[i].template_name);
-    if (!b.data) {
-      bk_study_ident_close(id);
-      return BK_ENOMEM;
-    }
-    id->names[3 + i] = b.data;
-    id->parts[3 + i] =
-        (bk_fingerprint_part_t){b.data, s->model.decks[i].digest};
+  size_t k = 3;
+  for (size_t i = 0; i < m->ndecks; i++)
+    if ((rc = ident_part(id, k++, m->decks[i].digest, "template %s",
+                         m->decks[i].template_name)))
+      goto fail;
+  char hex[33], what[600];
+  for (size_t i = 0; i < m->ncopy; i++) {
+    snprintf(what, sizeof what, "model.copy file %s", m->copy_names[i]);
+    if ((rc = bk_fingerprint_file(m->copy[i], what, hex, err)) ||
+        (rc = ident_part(id, k++, hex, "copy %s", m->copy_names[i])))
+      goto fail;
   }
-  for (size_t i = 0; i < s->model.noutputs; i++)
-    id->ynames[i] = s->model.outputs[i].name;
+  for (size_t i = 0; i < m->nwatch; i++) {
+    snprintf(what, sizeof what, "model.watch file %s", m->watch_names[i]);
+    if ((rc = bk_fingerprint_file(m->watch[i], what, hex, err)) ||
+        (rc = ident_part(id, k++, hex, "watch %s", m->watch_names[i])))
+      goto fail;
+  }
+  if (m->version_argv &&
+      ((rc = bk_fingerprint_command(m->version_argv, s->dir,
+                                    VERSION_COMMAND_LIMIT, hex, err)) ||
+       (rc = ident_part(id, k++, hex, "%s", "version_command output"))))
+    goto fail;
+  for (size_t i = 0; i < m->noutputs; i++)
+    id->ynames[i] = m->outputs[i].name;
   return 0;
+fail:
+  if (rc == BK_ENOMEM)
+    bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  bk_study_ident_close(id);
+  return rc;
 }
 
 void bk_study_ident_close(bk_study_ident_t *id) {
   for (size_t i = 0; id->names && i < id->nparts; i++)
     bk_free(id->names[i]);
+  for (size_t i = 0; id->digests && i < id->nparts; i++)
+    bk_free(id->digests[i]);
   bk_free(id->names);
+  bk_free(id->digests);
   bk_free(id->parts);
   bk_free(id->ynames);
   memset(id, 0, sizeof *id);
 }
-
 void bk_study_ident_opts(const bk_study_ident_t *id, const bk_study_t *s,
                          const char *path, bk_records_opts_t *ro) {
   memset(ro, 0, sizeof *ro);

@@ -60,10 +60,16 @@ typedef struct {
   bk_fingerprint_part_t *parts;
   size_t nparts;
   char **names;        /* owned part names */
+  char **digests;      /* owned digests (NULL for those of the study) */
   const char **ynames; /* output names */
 } bk_study_ident_t;
 
-int bk_study_ident_init(bk_study_ident_t *id, const bk_study_t *s);
+/* The fingerprint parts of study s: the study and model sections, each
+ * template, each model.copy and model.watch file (hashed now) and the
+ * output of model.version_command (run now, in the study's folder).
+ * Returns 0, or a negative code with err set naming the file or command. */
+int bk_study_ident_init(bk_study_ident_t *id, const bk_study_t *s,
+                        bk_error_t *err);
 void bk_study_ident_close(bk_study_ident_t *id);
 /* Fills ro for the log at `path` of this study. */
 void bk_study_ident_opts(const bk_study_ident_t *id, const bk_study_t *s,

@@ -82,18 +82,29 @@ static int error_limit(bk_mctx_t *m, int final) {
   if (frac <= md->max_error_fraction)
     return 0;
   int f = dominant_fault(m);
+  /* The first such run's recorded reason, cut to fit the message. */
+  char note[160] = "", why[120], folder[8];
+  if (m->opts && m->opts->note &&
+      m->opts->note(m->opts->note_data, m->first_fault[f], why, sizeof why,
+                    folder, sizeof folder) &&
+      why[0]) {
+    size_t len = strlen(why);
+    snprintf(note, sizeof note, " (\"%s%s\")", why,
+             len + 1 >= sizeof why ? "..." : "");
+  }
   return bk_error_set(
       m->err, BK_EMODEL, NULL, 0, 0,
       "%llu of %llu model runs failed (%.1f%%, above "
       "model.max_error_fraction %g); most ended in %s (%llu), the first at "
-      "%s. `brink status` and the records say why, and the run folders "
-      "of failed runs are kept. Failed runs are recorded as such, so "
-      "running again replays them: after fixing the model (or a template, "
-      "a copied file, a pattern: that changes the study), give run.folder "
-      "a new name, or move this folder away, and run again",
+      "%s%s. `brink status` and the records say why; the run folders of "
+      "failed runs are kept. Failed runs are recorded as such, and this "
+      "run folder replays them: once the model is fixed (its command, a "
+      "template, a copied or watched file, a pattern: each changes the "
+      "study, so this folder is refused), set run.folder to a new folder, "
+      "or move this one away, and run again",
       (unsigned long long)m->errors, (unsigned long long)m->n, 100 * frac,
       md->max_error_fraction, bk_fault_name(f),
-      (unsigned long long)m->nfault[f], m->first_fault[f]);
+      (unsigned long long)m->nfault[f], m->first_fault[f], note);
 }
 
 int bk_mctx_evaluate(bk_mctx_t *m, const char *prefix, size_t n) {

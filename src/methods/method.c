@@ -8,11 +8,12 @@
 #include <stdio.h>
 #include <string.h>
 
+#include "methods/evidence.h"
 #include "methods/method_impl.h"
 
-int bk_method_run(const bk_study_t *s, bk_evaluator_t *ev,
-                  const bk_method_opts_t *opts, bk_result_t *res,
-                  bk_error_t *err) {
+static int run_method(const bk_study_t *s, bk_evaluator_t *ev,
+                      const bk_method_opts_t *opts, bk_result_t *res,
+                      bk_error_t *err) {
   memset(res, 0, sizeof *res);
   res->method = bk_method_name(s->analysis.method);
   switch (s->analysis.method) {
@@ -35,6 +36,22 @@ int bk_method_run(const bk_study_t *s, bk_evaluator_t *ev,
                         "method %s is not available in this version",
                         bk_method_name(s->analysis.method));
   }
+}
+
+/* Every method runs behind the model-error watcher (evidence.h), which
+ * warns when the errored runs it saw cluster where g is low. */
+int bk_method_run(const bk_study_t *s, bk_evaluator_t *ev,
+                  const bk_method_opts_t *opts, bk_result_t *res,
+                  bk_error_t *err) {
+  bk_evidence_t watch;
+  bk_evidence_init(&watch, s, ev);
+  int rc = run_method(s, &watch.ev, opts, res, err);
+  bk_evidence_list(&watch, res, opts ? opts->note : NULL,
+                   opts ? opts->note_data : NULL);
+  if (rc == 0 && bk_evidence_check(&watch, res))
+    rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+  bk_evidence_close(&watch);
+  return rc;
 }
 
 /* The key layouts of the methods, documented at the top of each

@@ -36,9 +36,18 @@ typedef struct {
 /* Called when a batch starts and at each decision point (may be NULL). */
 typedef void (*bk_progress_cb)(void *data, const bk_method_progress_t *p);
 
+/* Writes what the records say of the faulted run under `key`: the reason
+ * ("exit status 1") into reason[rcap] and the run folder kept into
+ * folder[fcap] ("" when none), for messages and reports; returns 1 when
+ * the key is recorded. */
+typedef int (*bk_note_cb)(void *data, const char *key, char *reason,
+                          size_t rcap, char *folder, size_t fcap);
+
 typedef struct {
   bk_progress_cb progress;
   void *progress_data;
+  bk_note_cb note; /* may be NULL */
+  void *note_data;
 } bk_method_opts_t;
 
 /* The words for a batch of keys PREFIX/i ("form/d1/i3" is "FORM search 2,

@@ -27,6 +27,9 @@ void bk_result_close(bk_result_t *r) {
     bk_free(r->notes[i]);
   bk_free(r->notes);
   bk_free(r->details);
+  for (size_t i = 0; i < r->nerror_runs; i++)
+    bk_free(r->error_runs[i].x);
+  bk_free(r->error_runs);
   memset(r, 0, sizeof *r);
 }
 

@@ -41,6 +41,19 @@ typedef struct {
   double value;
 } bk_detail_t;
 
+/* A run that ended in a model error, as the reports list it. */
+typedef struct {
+  char key[96];
+  int fault;        /* bk_fault_t */
+  double *x;        /* nvars physical inputs, owned */
+  char reason[160]; /* the recorded reason; "" when not known */
+  char folder[256]; /* the run folder kept; "" when none */
+} bk_error_run_t;
+
+/* How many model errors a result lists (the first ones, in evaluation
+ * order; all are counted in model_errors). */
+#define BK_RESULT_ERROR_RUNS 20
+
 /* What a method reports back. Owned by the caller; bk_result_close frees
  * the arrays. */
 typedef struct {
@@ -68,6 +81,8 @@ typedef struct {
   size_t nnotes;
   bk_detail_t *details;
   size_t ndetails;
+  bk_error_run_t *error_runs; /* the first BK_RESULT_ERROR_RUNS */
+  size_t nerror_runs;
 } bk_result_t;
 
 void bk_result_close(bk_result_t *r);

@@ -9,6 +9,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "base/fault.h"
 #include "numerics/dist.h"
 
 const char bk_report_caution[] =
@@ -65,6 +66,36 @@ static void pair(bk_buf_t *o, const double v[2]) {
   bk_json_number(o, v[0]);
   bk_buf_puts(o, ", ");
   bk_json_number(o, v[1]);
+  bk_buf_putc(o, ']');
+}
+
+/* The first runs that ended in a model error: key, kind, reason, folder
+ * and every input by name. */
+static void error_runs_json(bk_buf_t *o, const bk_study_t *s,
+                            const bk_result_t *r, int *first) {
+  if (!r->nerror_runs)
+    return;
+  key(o, "error_runs", first);
+  bk_buf_putc(o, '[');
+  for (size_t i = 0; i < r->nerror_runs; i++) {
+    const bk_error_run_t *e = &r->error_runs[i];
+    bk_buf_puts(o, i ? ",\n    {\"key\": " : "\n    {\"key\": ");
+    bk_json_string(o, e->key);
+    bk_buf_puts(o, ", \"kind\": ");
+    bk_json_string(o, bk_fault_name(e->fault));
+    bk_buf_puts(o, ", \"reason\": ");
+    bk_json_string(o, e->reason);
+    bk_buf_puts(o, ", \"folder\": ");
+    bk_json_string(o, e->folder);
+    bk_buf_puts(o, ", \"x\": {");
+    for (size_t k = 0; k < s->nvars; k++) {
+      bk_buf_puts(o, k ? ", " : "");
+      bk_json_string(o, s->vars[k].name);
+      bk_buf_puts(o, ": ");
+      bk_json_number(o, e->x[k]);
+    }
+    bk_buf_puts(o, "}}");
+  }
   bk_buf_putc(o, ']');
 }
 
@@ -194,6 +225,7 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     bk_json_string(o, r->notes[i]);
   }
   bk_buf_putc(o, ']');
+  error_runs_json(o, s, r, &first);
   key(o, "stop_reason", &first);
   bk_json_string(o, r->stop_reason ? r->stop_reason : "");
   key(o, "seconds", &first);
@@ -240,6 +272,36 @@ static void fixed(bk_buf_t *o, double v) {
     bk_buf_puts(o, v > 0 ? "inf" : "-inf");
   else
     bk_buf_printf(o, "%.3f", v);
+}
+
+/* Errored runs, and inputs of each, shown in the text report; the JSON
+ * has every input of each listed run. */
+#define TEXT_ERROR_RUNS 10
+#define TEXT_ERROR_VARS 8
+
+/* The first runs that ended in a model error, one block each. */
+static void error_runs_text(bk_buf_t *o, const bk_study_t *s,
+                            const bk_result_t *r) {
+  if (!r->nerror_runs)
+    return;
+  size_t nruns =
+      r->nerror_runs < TEXT_ERROR_RUNS ? r->nerror_runs : TEXT_ERROR_RUNS;
+  bk_buf_printf(o, "  model errors, the first %zu of %llu", nruns,
+                (unsigned long long)r->model_errors);
+  bk_buf_puts(o, " (`brink export` lists all):\n");
+  for (size_t i = 0; i < nruns; i++) {
+    const bk_error_run_t *e = &r->error_runs[i];
+    bk_buf_printf(o, "    %s  %s%s%s\n      ", e->key, bk_fault_name(e->fault),
+                  e->reason[0] ? ": " : "", e->reason);
+    size_t nshow = s->nvars < TEXT_ERROR_VARS ? s->nvars : TEXT_ERROR_VARS;
+    for (size_t k = 0; k < nshow; k++)
+      bk_buf_printf(o, "%s%s = %.6g", k ? ", " : "", s->vars[k].name, e->x[k]);
+    if (s->nvars > nshow)
+      bk_buf_printf(o, ", ... (%zu more)", s->nvars - nshow);
+    bk_buf_putc(o, '\n');
+    if (e->folder[0])
+      bk_buf_printf(o, "      folder %s\n", e->folder);
+  }
 }
 
 int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
@@ -325,6 +387,7 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     bk_buf_printf(o, "  WARNING: %s\n", r->warnings[i]);
   for (size_t i = 0; i < r->nnotes; i++)
     bk_buf_printf(o, "  NOTE: %s\n", r->notes[i]);
+  error_runs_text(o, s, r);
   bk_buf_printf(o, "  stopped because      %s", r->stop_reason);
   if (s->analysis.target_cov > 0 && !(e->cov <= s->analysis.target_cov))
     bk_buf_printf(o, " (target_cov %g not reached)", s->analysis.target_cov);

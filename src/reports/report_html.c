@@ -224,6 +224,8 @@ typedef struct {
 
 /* How many model errors the report lists (all are counted). */
 #define ERRSHOWN 500
+/* How many inputs of each the error table shows (the records have all). */
+#define ERRVARS 8
 
 typedef struct {
   size_t nx;
@@ -453,7 +455,8 @@ static const char css[] =
     "svg .bar{fill:#1f4e89}svg .barneg{fill:#7a93b3}"
     "svg .time{fill:#5b7a99}\n"
     "svg circle.safe{fill:#8aa4c2;fill-opacity:0.55}"
-    "svg circle.fail{fill:#c0392b;fill-opacity:0.9}\n"
+    "svg circle.fail{fill:#c0392b;fill-opacity:0.9}"
+    "svg circle.err{fill:none;stroke:#e67e22;stroke-width:1.6}\n"
     "svg .target{stroke:#1f6f3a;stroke-width:1.5;stroke-dasharray:6 3}\n";
 
 static void esc(bk_buf_t *o, const char *s) {
@@ -745,12 +748,35 @@ static void chart_influence(bk_buf_t *o, const bk_study_t *st, const rank_t *rk,
                                    : "");
 }
 
+/* Errored runs whose inputs the report holds. */
+static size_t error_rows(const samples_t *s) {
+  return s->nerr < ERRSHOWN ? s->nerr : ERRSHOWN;
+}
+
+/* The scatter's legend, top right of the plot area. */
+static void scatter_legend(bk_svg_t *p, int with_errors) {
+  static const char *const cls[] = {"safe", "fail", "err"};
+  static const char *const text[] = {"safe", "failed", "model error"};
+  double px = p->w - p->mr - 118, py = p->mt + 14;
+  bk_buf_printf(p->o, "<g data-legend=\"scatter\">\n");
+  for (int i = 0; i < (with_errors ? 3 : 2); i++, py += 17) {
+    bk_buf_printf(p->o,
+                  "<circle class=\"%s\" cx=\"%.1f\" cy=\"%.1f\" "
+                  "r=\"%g\"/>\n",
+                  cls[i], px, py - 4, i == 2 ? 3.2 : 3.0);
+    bk_svg_text(p, px + 10, py, "start", "tick", text[i]);
+  }
+  bk_buf_puts(p->o, "</g>\n");
+}
+
 static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
-                          const rank_t *rk, size_t n) {
+                          const rank_t *rk, size_t n, int ranked) {
   if (n < 2 || s->nok < 2)
     return;
   size_t a = rk[0].var, b = rk[1].var;
-  bk_buf_puts(o, "<h3>The two most influential inputs</h3>\n");
+  bk_buf_puts(o, ranked ? "<h3>The two most influential inputs</h3>\n"
+                        : "<h3>The first two inputs, with the model "
+                          "errors</h3>\n");
   double x0 = INFINITY, x1 = -INFINITY, y0 = INFINITY, y1 = -INFINITY;
   for (size_t k = 0; k < s->n + s->nfx; k++) {
     const double *row =
@@ -761,6 +787,14 @@ static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
     y0 = fmin(y0, y);
     y1 = fmax(y1, y);
   }
+  size_t nerr_x = error_rows(s);
+  for (size_t k = 0; k < nerr_x; k++)
+    if (s->err[k].x) {
+      x0 = fmin(x0, s->err[k].x[a]);
+      x1 = fmax(x1, s->err[k].x[a]);
+      y0 = fmin(y0, s->err[k].x[b]);
+      y1 = fmax(y1, s->err[k].x[b]);
+    }
   bk_svg_t p;
   bk_svg_begin(&p, o, 980, 480, "scatter",
                "Scatter of the two most influential inputs, failures in red");
@@ -783,6 +817,15 @@ static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
     bk_svg_dot(&p, s->fx[k * s->nx + a], s->fx[k * s->nx + b], 2.6, "fail");
     drawn_fail++;
   }
+  /* Model errors on top, as rings: where they sit against the failures
+   * tells whether leaving them out biases Pf. */
+  size_t drawn_err = 0;
+  for (size_t k = 0; k < nerr_x; k++)
+    if (s->err[k].x) {
+      bk_svg_dot(&p, s->err[k].x[a], s->err[k].x[b], 3.2, "err");
+      drawn_err++;
+    }
+  scatter_legend(&p, drawn_err > 0);
   bk_svg_end(&p);
   bk_buf_printf(o,
                 "<p class=\"note\">Red: failed (g &#8804; 0), %zu shown of "
@@ -791,6 +834,11 @@ static void chart_scatter(bk_buf_t *o, const bk_study_t *st, const samples_t *s,
                 "study file.</p>\n",
                 drawn_fail, (unsigned long long)s->nfailall,
                 (unsigned long long)s->nall, drawn_safe, nsafe, s->n);
+  if (drawn_err)
+    bk_buf_printf(o,
+                  "<p class=\"note\">Orange rings: runs that ended in a "
+                  "model error, %zu shown of %zu; they have no g.</p>\n",
+                  drawn_err, s->nerr);
 }
 
 static void chart_times(bk_buf_t *o, const samples_t *s) {
@@ -1087,11 +1135,14 @@ static void errors_section(bk_buf_t *o, const bk_study_t *st,
     bk_buf_printf(o, "</code></td><td>%s</td><td>", bk_fault_name(e->fault));
     esc(o, e->reason);
     bk_buf_puts(o, "</td><td class=\"n\">");
-    for (size_t k = 0; e->x && k < s->nx && k < st->nvars; k++) {
+    size_t nshow = s->nx < st->nvars ? s->nx : st->nvars;
+    for (size_t k = 0; e->x && k < nshow && k < ERRVARS; k++) {
       bk_buf_puts(o, k ? ", " : "");
       esc(o, st->vars[k].name);
       bk_buf_printf(o, " = %.6g", e->x[k]);
     }
+    if (e->x && nshow > ERRVARS)
+      bk_buf_printf(o, ", ... (%zu more)", nshow - ERRVARS);
     bk_buf_puts(o, "</td><td>");
     if (e->folder[0]) {
       bk_buf_puts(o, "<code>");
@@ -1239,7 +1290,15 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   if (s.n > 0 || a2)
     chart_influence(o, st, rk, nr, a2 != NULL, &s);
   if (s.n > 0 && nr >= 2 && !isnan(rk[1].value))
-    chart_scatter(o, st, &s, rk, nr);
+    chart_scatter(o, st, &s, rk, nr, 1);
+  else if (s.n > 0 && nr >= 2 && error_rows(&s) > 0) {
+    /* No failure to rank the inputs by, but model errors to show: the
+     * first two random inputs, in the order of the study. */
+    for (size_t i = 0, k = 0; i < st->nvars && k < 2; i++)
+      if (st->vars[i].dist.kind != BK_DIST_CONSTANT)
+        rk[k++].var = i;
+    chart_scatter(o, st, &s, rk, nr, 0);
+  }
   chart_times(o, &s);
   bk_free(rk);
   errors_section(o, st, &s);

@@ -56,7 +56,8 @@ static const char *const keys_root[] = {"name",         "seed",  "variables",
 static const char *const keys_model[] = {
     "files",   "copy",    "command",  "env",
     "timeout", "retries", "on_error", "max_error_fraction",
-    "outputs", "keep",    NULL};
+    "outputs", "keep",    "watch",    "version_command",
+    NULL};
 static const char *const keys_deck[] = {"template", "to", NULL};
 static const char *const keys_output[] = {"file", "stdout", "pattern", "match",
                                           NULL};
@@ -996,6 +997,56 @@ char **bk_study_render_argv(const bk_study_t *s, const bk_template_ctx_t *ctx) {
   return argv;
 }
 
+/* model.watch, files whose contents are part of the model, and
+ * model.version_command, whose output names the model's version: both
+ * fingerprinted by every run (eval/fingerprint.h). */
+static int load_watch(loader_t *L, yaml_node_t *mn) {
+  bk_model_t *m = &L->s->model;
+  yaml_node_t *n;
+  int rc;
+  if ((n = lookup(L, mn, "watch"))) {
+    if ((rc = load_string_list(L, n, "model.watch", &m->watch_names,
+                               &m->nwatch)))
+      return rc;
+    m->watch = bk_calloc(m->nwatch + 1, sizeof *m->watch);
+    if (!m->watch)
+      return nomem(L);
+    for (size_t i = 0; i < m->nwatch; i++) {
+      yaml_node_t *it = node_at(L, n->data.sequence.items.start[i]);
+      struct stat st;
+      if (!(m->watch[i] = resolve_path(L->s->dir, m->watch_names[i])))
+        return nomem(L);
+      if (stat(m->watch[i], &st) != 0)
+        return FAIL(L, it,
+                    "cannot find '%s' (model.watch names files the "
+                    "model reads)",
+                    m->watch_names[i]);
+      if (!S_ISREG(st.st_mode))
+        return FAIL(L, it,
+                    "'%s' is %s; model.watch takes files (name each "
+                    "file)",
+                    m->watch_names[i],
+                    S_ISDIR(st.st_mode) ? "a folder" : "not a regular file");
+      if (access(m->watch[i], R_OK) != 0)
+        return FAIL(L, it, "cannot read '%s': %s", m->watch_names[i],
+                    strerror(errno));
+    }
+  }
+  if ((n = lookup(L, mn, "version_command"))) {
+    if ((rc = load_string_list(L, n, "model.version_command", &m->version_argv,
+                               &m->version_argc)))
+      return rc;
+    if (m->version_argc == 0)
+      return FAIL(L, n,
+                  "model.version_command must name a program, e.g. "
+                  "[solver, --version]");
+    if ((rc = check_program(L, node_at(L, n->data.sequence.items.start[0]),
+                            m->version_argv[0])))
+      return rc;
+  }
+  return 0;
+}
+
 static int load_model(loader_t *L, yaml_node_t *mn) {
   bk_model_t *m = &L->s->model;
   int rc = want_mapping(L, mn, "model");
@@ -1043,6 +1094,8 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
                       m->copy_names[j], m->copy_names[i], bn);
     }
   }
+  if ((rc = load_watch(L, mn)))
+    return rc;
   yaml_node_t *cn = lookup(L, mn, "command");
   if (!cn)
     return FAIL(L, mn,
@@ -2049,6 +2102,16 @@ void bk_study_free(bk_study_t *s) {
   }
   bk_free(m->copy);
   bk_free(m->copy_names);
+  for (size_t i = 0; i < m->nwatch; i++) {
+    if (m->watch)
+      bk_free(m->watch[i]);
+    bk_free(m->watch_names[i]);
+  }
+  bk_free(m->watch);
+  bk_free(m->watch_names);
+  for (size_t i = 0; m->version_argv && m->version_argv[i]; i++)
+    bk_free(m->version_argv[i]);
+  bk_free(m->version_argv);
   for (size_t i = 0; m->argv && m->argv[i]; i++) {
     bk_free(m->argv[i]);
     if (m->argt)

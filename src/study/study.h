@@ -62,6 +62,11 @@ typedef struct {
   char **copy;       /* paths (resolved) of static files */
   char **copy_names; /* as written */
   size_t ncopy;
+  char **watch;       /* paths (resolved) of files the model reads */
+  char **watch_names; /* as written */
+  size_t nwatch;
+  char **version_argv; /* NULL-terminated; NULL when not given */
+  size_t version_argc;
   char **argv; /* NULL-terminated, as written */
   size_t argc;
   /* argc entries: argument i parsed as a template when it holds `{{` or

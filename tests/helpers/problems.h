@@ -166,7 +166,8 @@ static bk_study_t *problem_study(const char *name, const char *a, const char *b,
 
 /* The reference Pf of problem `name` with parameters a (and b) from
  * tests/fixtures/ref_problems.txt: the last number of its line. */
-static double problem_ref(const char *name, const char *a, const char *b) {
+static __attribute__((unused)) double
+problem_ref(const char *name, const char *a, const char *b) {
   const char *fx = getenv("BRINK_FIXTURES");
   cr_assert(fx, "BRINK_FIXTURES must be set");
   char path[600], want[200], line[256];
@@ -195,8 +196,10 @@ typedef struct {
 } cover_t;
 
 /* Runs seeds first..first+runs-1 of a problem in process and counts. */
-static cover_t coverage_of(const char *name, const char *a, const char *b,
-                           const char *analysis, int first, int runs) {
+static __attribute__((unused)) cover_t coverage_of(const char *name,
+                                                   const char *a, const char *b,
+                                                   const char *analysis,
+                                                   int first, int runs) {
   double exact = problem_ref(name, a, b);
   cover_t c;
   memset(&c, 0, sizeof c);
@@ -233,7 +236,7 @@ static cover_t coverage_of(const char *name, const char *a, const char *b,
 }
 
 /* P(X >= k) for X binomial(n, p). */
-static double binom_sf(int k, int n, double p) {
+static __attribute__((unused)) double binom_sf(int k, int n, double p) {
   double s = 0;
   for (int i = k; i <= n; i++)
     s += exp(lgamma(n + 1.0) - lgamma(i + 1.0) - lgamma(n - i + 1.0) +
@@ -242,7 +245,8 @@ static double binom_sf(int k, int n, double p) {
 }
 
 /* The acceptance rule (top of this file). */
-static void expect_honest(const cover_t *c, const char *what) {
+static __attribute__((unused)) void expect_honest(const cover_t *c,
+                                                  const char *what) {
   int honest = c->covered + c->warned_miss;
   double f = (double)honest / c->runs;
   cr_expect(f >= 0.90,
@@ -258,8 +262,8 @@ static void expect_honest(const cover_t *c, const char *what) {
 
 /* For problems a method is built for: at most `share` of the runs warn
  * (a method that always warns would pass expect_honest trivially). */
-static void expect_few_warnings(const cover_t *c, double share,
-                                const char *what) {
+static __attribute__((unused)) void
+expect_few_warnings(const cover_t *c, double share, const char *what) {
   cr_expect(c->warned <= share * c->runs,
             "%s: %d of %d runs warned, where the method should hold", what,
             c->warned, c->runs);
