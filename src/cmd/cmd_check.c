@@ -299,10 +299,25 @@ int bk__cmd_check(int argc, char **argv) {
              s->vars[s->corr[i].b].name, s->corr[i].rho,
              bk_transform_rho0(s->transform, s->corr[i].a, s->corr[i].b));
   }
-  printf("\nLimit state (failure when g <= 0)\n  g = %s\n", s->limit_state);
+  double gc[BK_STUDY_MAX_MODES];
+  if (s->nmodes) {
+    printf("\nLimit states (failure when g <= 0)\n");
+    for (size_t i = 0; i < s->nmodes; i++)
+      printf("  %-14s g = %s\n", s->modes[i].name, s->modes[i].text);
+    printf("  system: %s\n",
+           s->system == BK_SYSTEM_SERIES     ? "series (fails when any fails)"
+           : s->system == BK_SYSTEM_PARALLEL ? "parallel (fails when all fail)"
+                                             : s->limit_state);
+  } else {
+    printf("\nLimit state (failure when g <= 0)\n  g = %s\n", s->limit_state);
+  }
   if (!s->model.present) {
-    double g = bk_expr_eval(s->g, med);
-    printf("  at the medians g = %.6g (%s)\n", g, g <= 0 ? "failed" : "safe");
+    double g = bk_study_g(s, med, gc);
+    for (size_t i = 0; i < s->nmodes; i++)
+      printf("  at the medians %s = %.6g (%s)\n", s->modes[i].name, gc[i],
+             gc[i] <= 0 ? "failed" : "safe");
+    printf("  at the medians %s = %.6g (%s)\n", s->nmodes ? "system g" : "g", g,
+           g <= 0 ? "failed" : "safe");
   } else {
     const bk_model_t *m = &s->model;
     printf("\nModel\n  command   ");

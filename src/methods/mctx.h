@@ -44,7 +44,7 @@ typedef struct {
   uint64_t errors;   /* of those, ending in a model error */
   uint64_t planned;  /* evaluations the method plans, for progress */
   /* Private. */
-  double *xs, *ys;
+  double *xs, *ys, *gcs, *vals;
   uint64_t nfault[BK_FAULT__COUNT];
   char first_fault[BK_FAULT__COUNT][96]; /* the first key of each kind */
 } bk_mctx_t;
@@ -68,13 +68,20 @@ void bk_mctx_set_u(bk_mctx_t *m, size_t i, uint64_t index, const double *u);
  * of the evaluator. Then counts, applies on_error abort (BK_EMODEL naming
  * the key), checks for a stop (BK_ESTOPPED) and the error limit
  * (BK_EMODEL). Returns 0 with each point's g and fault filled, or a
- * negative code with err set (the batch must not be used). */
+ * negative code with err set (the batch must not be used). With several
+ * limit states each point's gc is then recomputed from its x and y
+ * (bk_study_g), whoever evaluated or replayed it. */
 int bk_mctx_evaluate(bk_mctx_t *m, const char *prefix, size_t n);
 
 /* The limit-state value of point i for an estimate, after the on_error
  * policy: g, or for a point with a model error NaN (skip: left out) or
  * -INFINITY (fail: counted as failed). */
 double bk_mctx_g(const bk_mctx_t *m, size_t i);
+
+/* With several limit states: mode k's value at point i after the on_error
+ * policy, as bk_mctx_g. A model error, or a mode that is not a number at
+ * the point, is a fault of that mode: NaN (skip) or -INFINITY (fail). */
+double bk_mctx_gc(const bk_mctx_t *m, size_t i, size_t k);
 
 /* Reports progress (res as it stands) to the caller's callback. */
 void bk_mctx_progress(bk_mctx_t *m);
