@@ -475,3 +475,60 @@ Test(commands, every_command_has_help) {
   cr_assert(strstr(read_file("err.txt"), "not a run folder"));
   cr_assert_eq(brink("export nowhere --csv"), 2);
 }
+
+/* Several limit states over a model's output and a variable: report.json
+ * has each mode, export one column per mode, and the HTML report the table
+ * of the modes. An independent reader (Python's csv and json) recomputes
+ * each mode from the exported inputs and outputs and counts its failures
+ * and the system's, which must match the report. */
+Test(commands, several_limit_states_in_report_export_and_html) {
+  write_model_study("ok", "method: random, samples: 300",
+                    "limit_states:\n"
+                    "  bending: \"g\"\n"
+                    "  sway: \"1.2 - a\"\n"
+                    "system: series\n");
+  /* write_model_study wrote limit_state too: take it out. */
+  cr_assert_eq(sh("sed -i '/^limit_state: g$/d' study.yaml"), 0);
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear"), 0);
+  const char *text = read_file("out.txt");
+  cr_expect(strstr(text, "limit states, system series"), "%s", text);
+  cr_expect(strstr(text, "drives the system's failure"), "%s", text);
+  cr_assert_eq(brink("export out/linear --csv -o e.csv"), 0, "%s",
+               read_file("err.txt"));
+  cr_assert_eq(brink("export study.yaml --json-lines -o e.jsonl"), 0);
+  cr_assert_eq(brink("report out/linear --html r.html"), 0, "%s",
+               read_file("err.txt"));
+  char *csv = read_file("e.csv");
+  cr_expect(
+      strncmp(csv, "key,a,b,g,total,limit_state,bending,sway,failed", 47) == 0,
+      "header: %.80s", csv);
+  cr_expect(strstr(read_file("r.html"), "<h3>Limit states</h3>"));
+  if (!have_python())
+    cr_skip_test("no /usr/bin/python3 for the independent parsers");
+  write_file("chk.py",
+             "import csv, json, sys\n"
+             "rep = json.load(open('out/linear/report.json'))\n"
+             "rows = list(csv.DictReader(open('e.csv')))\n"
+             "jl = [json.loads(x) for x in open('e.jsonl')]\n"
+             "assert len(rows) == rep['evaluations'] == len(jl)\n"
+             "kb = ks = ksys = 0\n"
+             "for r, j in zip(rows, jl):\n"
+             "    a, g = float(r['a']), float(r['g'])\n"
+             "    assert float(r['bending']) == g == j['bending']\n"
+             "    assert float(r['sway']) == 1.2 - a == j['sway']\n"
+             "    assert float(r['limit_state']) == min(g, 1.2 - a)\n"
+             "    kb += g <= 0; ks += 1.2 - a <= 0\n"
+             "    ksys += min(g, 1.2 - a) <= 0\n"
+             "c = rep['components']\n"
+             "n = len(rows)\n"
+             "assert c['bending']['failures'] == kb, (c, kb)\n"
+             "assert c['sway']['failures'] == ks, (c, ks)\n"
+             "assert rep['failures'] == ksys\n"
+             "assert c['bending']['pf'] == kb / n and c['sway']['pf'] == ks / "
+             "n\n"
+             "assert rep['system'] == 'series'\n"
+             "print('ok')\n");
+  cr_assert_eq(sh("/usr/bin/python3 chk.py >chk.txt 2>&1"), 0, "%s",
+               read_file("chk.txt"));
+}

@@ -599,6 +599,11 @@ Test(study, several_limit_states_refused_with_place_and_reason) {
                "'series' names a kind of system; give the limit state "
                "another name");
   expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {g: \"x - 1\"}\n",
+               2, 16,
+               "'g' names a column of `brink export`; give the limit state "
+               "another name");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
                "limit_states: {\"two words\": \"x - 1\"}\n",
                2, 16,
                "limit state name 'two words' must start with a letter or "

@@ -854,9 +854,30 @@ static void study_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j) {
   bk_buf_puts(o, "<h2>Study</h2>\n<table>\n");
   row(o, "study", st->name);
   row(o, "study file", jstr(j, "study")[0] ? jstr(j, "study") : st->path);
-  bk_buf_puts(o, "<tr><th>limit state</th><td><code>g = ");
-  esc(o, st->limit_state);
-  bk_buf_puts(o, "</code> (failure when g &#8804; 0)</td></tr>\n");
+  if (st->nmodes) {
+    for (size_t i = 0; i < st->nmodes; i++) {
+      bk_buf_puts(o, "<tr><th>limit state <code>");
+      esc(o, st->modes[i].name);
+      bk_buf_puts(o, "</code></th><td><code>");
+      esc(o, st->modes[i].text);
+      bk_buf_puts(o, "</code> (failure when &#8804; 0)</td></tr>\n");
+    }
+    bk_buf_puts(o, "<tr><th>system</th><td>");
+    if (st->system == BK_SYSTEM_SERIES)
+      bk_buf_puts(o, "series: fails when any limit state fails (g = min)");
+    else if (st->system == BK_SYSTEM_PARALLEL)
+      bk_buf_puts(o, "parallel: fails when every limit state fails (g = max)");
+    else {
+      bk_buf_puts(o, "<code>g = ");
+      esc(o, st->limit_state);
+      bk_buf_puts(o, "</code> (failure when g &#8804; 0)");
+    }
+    bk_buf_puts(o, "</td></tr>\n");
+  } else {
+    bk_buf_puts(o, "<tr><th>limit state</th><td><code>g = ");
+    esc(o, st->limit_state);
+    bk_buf_puts(o, "</code> (failure when g &#8804; 0)</td></tr>\n");
+  }
   if (st->model.present) {
     bk_buf_puts(o, "<tr><th>model command</th><td><code>");
     for (size_t i = 0; i < st->model.argc; i++) {
@@ -931,6 +952,82 @@ static void study_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j) {
   }
 }
 
+/* The modes of a study with several limit states: each one's Pf, beta,
+ * interval and share of the system's failures, and the one that drives
+ * the system's failure. */
+static void components_table(bk_buf_t *o, const jv_t *j) {
+  const jv_t *c = jget(j, "components");
+  if (!c || c->t != J_OBJ || !c->n)
+    return;
+  bk_buf_puts(o, "<h3>Limit states</h3>\n<table>\n<tr><th>limit state</th>"
+                 "<th>Pf</th><th>&#946;</th><th>cov</th><th>interval of "
+                 "Pf</th><th>failures</th><th>share of the system's "
+                 "failures</th></tr>\n");
+  size_t drive = c->n;
+  double best = -1;
+  for (size_t i = 0; i < c->n; i++) {
+    const jv_t *m = &c->items[i];
+    bk_buf_puts(o, "<tr><td><code>");
+    esc(o, c->keys[i]);
+    bk_buf_puts(o, "</code></td>");
+    if (!isfinite(jnum(m, "pf"))) {
+      bk_buf_puts(o, "<td colspan=\"6\">not estimated by this method</td>"
+                     "</tr>\n");
+      continue;
+    }
+    bk_buf_puts(o, "<td class=\"n\">");
+    sci(o, jnum(m, "pf"));
+    bk_buf_puts(o, "</td><td class=\"n\">");
+    fix3(o, jnum(m, "beta"));
+    bk_buf_puts(o, "</td><td class=\"n\">");
+    if (isfinite(jnum(m, "cov")))
+      bk_buf_printf(o, "%.3f", jnum(m, "cov"));
+    else
+      bk_buf_puts(o, "n/a");
+    bk_buf_puts(o, "</td><td class=\"n\">");
+    const jv_t *ci = jget(m, "ci");
+    sci(o, jat(ci, 0));
+    bk_buf_puts(o, " to ");
+    sci(o, jat(ci, 1));
+    bk_buf_printf(o, "</td><td class=\"n\">%.0f</td><td class=\"n\">",
+                  jnum(m, "failures"));
+    double share = jnum(m, "share_of_system");
+    if (isfinite(share))
+      bk_buf_printf(o, "%.1f%%", 100 * share);
+    else
+      bk_buf_puts(o, "-");
+    bk_buf_puts(o, "</td></tr>\n");
+    double key = isfinite(share) ? share : jnum(m, "pf");
+    if (key > best) {
+      best = key;
+      drive = i;
+    }
+  }
+  bk_buf_puts(o, "</table>\n");
+  if (drive < c->n) {
+    bk_buf_puts(o, "<p><code>");
+    esc(o, c->keys[drive]);
+    bk_buf_puts(o, isfinite(jnum(&c->items[drive], "share_of_system"))
+                       ? "</code> fails in the largest share of the system's "
+                         "failures: it drives the system's failure.</p>\n"
+                       : "</code> has the largest Pf of the limit "
+                         "states.</p>\n");
+  }
+  const jv_t *b = jget(j, "system_bounds");
+  if (b) {
+    bk_buf_puts(o, "<table>\n<tr><th>first-order bounds on the system Pf, "
+                   "simple</th><td>");
+    sci(o, jat(jget(b, "simple"), 0));
+    bk_buf_puts(o, " to ");
+    sci(o, jat(jget(b, "simple"), 1));
+    bk_buf_puts(o, "</td></tr>\n<tr><th>Ditlevsen (bimodal)</th><td>");
+    sci(o, jat(jget(b, "ditlevsen"), 0));
+    bk_buf_puts(o, " to ");
+    sci(o, jat(jget(b, "ditlevsen"), 1));
+    bk_buf_puts(o, "</td></tr>\n</table>\n");
+  }
+}
+
 static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
                            const samples_t *s) {
   double pf = jnum(j, "pf"), beta = jnum(j, "beta"), cov = jnum(j, "cov");
@@ -939,7 +1036,14 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
   double level = jnum(j, "ci_level");
   bk_buf_t v;
   bk_buf_init(&v);
-  bk_buf_puts(o, "<h2>Result</h2>\n<div class=\"key\">\n");
+  bk_buf_puts(o, "<h2>Result</h2>\n");
+  if (jstr(j, "reanalysis")[0]) {
+    bk_buf_puts(o, "<p class=\"warn\"><b>Re-analysis</b> of the recorded "
+                   "evaluations, no model run: ");
+    esc(o, jstr(j, "reanalysis"));
+    bk_buf_puts(o, "</p>\n");
+  }
+  bk_buf_puts(o, "<div class=\"key\">\n");
   sci(&v, pf);
   tile(o, "failure probability Pf", v.data, NULL);
   bk_buf_reset(&v);
@@ -1030,6 +1134,7 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
     row(o, det->keys[i], v.data);
   }
   bk_buf_puts(o, "</table>\n");
+  components_table(o, j);
   const jv_t *dp = jget(j, "design_point");
   if (dp) {
     bk_buf_puts(o, "<h3>Design point (FORM)</h3>\n<table>\n");

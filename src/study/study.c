@@ -1763,6 +1763,17 @@ static int load_limit_states(loader_t *L, yaml_node_t *ln, yaml_node_t *sn) {
                 name);
       break;
     }
+    static const char *const columns[] = {
+        "g",        "limit_state", "key",  "failed", "status",
+        "attempts", "seconds",     "host", "reason", "folder"};
+    for (size_t i = 0; !rc && i < sizeof columns / sizeof *columns; i++)
+      if (strcmp(name, columns[i]) == 0)
+        rc = FAIL(L, k,
+                  "'%s' names a column of `brink export`; give the limit "
+                  "state another name",
+                  name);
+    if (rc)
+      break;
     for (size_t i = 0; i < nn; i++)
       if (strcmp(names[i], name) == 0) {
         rc = FAIL(L, k,
