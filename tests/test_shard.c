@@ -172,7 +172,7 @@ Test(shard, serve_answers_from_the_logs_and_counts_missing_keys) {
   s.nvars = 1;
   uint64_t missing[2] = {0, 0};
   char first[2][96] = {"", ""};
-  bk_serve_t sv = {&s, &r, 1, 2, missing, first, 0};
+  bk_serve_t sv = {&s, &r, 1, 2, missing, first, 0, 0};
   bk_evaluator_t ev;
   bk_serve_evaluator(&sv, &ev);
   bk_point_t pts[6];

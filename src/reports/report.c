@@ -182,6 +182,8 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
       bk_json_string(o, c->name);
       bk_buf_puts(o, ": {\"limit_state\": ");
       bk_json_string(o, i < s->nmodes ? s->modes[i].text : "");
+      if (i >= s->nsystem || s->system == BK_SYSTEM_SINGLE)
+        bk_buf_puts(o, ", \"in_system\": false");
       if (!c->present) {
         bk_buf_puts(o, ", \"estimated\": false}");
         continue;
@@ -317,9 +319,9 @@ static void fixed(bk_buf_t *o, double v) {
 /* The index of the mode that drives the system's failure: the one failing
  * in most of the system's failures, else the one of largest Pf; -1 when
  * none is known. */
-static long driving_mode(const bk_result_t *r) {
+static long driving_mode(const bk_result_t *r, size_t nsystem) {
   long best = -1;
-  for (size_t i = 0; i < r->ncomponents; i++) {
+  for (size_t i = 0; i < r->ncomponents && i < nsystem; i++) {
     const bk_component_t *c = &r->components[i], *b;
     if (!c->present)
       continue;
@@ -345,6 +347,8 @@ static void components_text(const bk_study_t *s, const bk_result_t *r,
   for (size_t i = 0; i < s->nmodes; i++) {
     const bk_component_t *c = i < r->ncomponents ? &r->components[i] : NULL;
     bk_buf_printf(o, "    %-16s ", s->modes[i].name);
+    if (i >= s->nsystem || s->system == BK_SYSTEM_SINGLE)
+      bk_buf_printf(o, "(beside the system, not part of it)\n    %-16s ", "");
     if (!c || !c->present) {
       bk_buf_puts(o, "not estimated by this method\n");
       continue;
@@ -368,7 +372,7 @@ static void components_text(const bk_study_t *s, const bk_result_t *r,
     else
       bk_buf_printf(o, " %9s\n", "-");
   }
-  long d = driving_mode(r);
+  long d = driving_mode(r, s->system == BK_SYSTEM_SINGLE ? 0 : s->nsystem);
   if (d >= 0 && r->est.failures &&
       r->components[d].system_failures != UINT64_MAX)
     bk_buf_printf(o,

@@ -244,6 +244,10 @@ typedef struct {
   double *sum, *sumsq, *fsum;
   double *fx;
   size_t nfx;
+  /* A re-analysis: g of each record is computed again with this study's
+   * limit states from the recorded inputs and outputs. */
+  const bk_study_t *regs;
+  double *vals;
 } samples_t;
 
 #define FAILCAP   3000
@@ -288,6 +292,7 @@ static void samples_close(samples_t *s) {
   bk_free(s->sumsq);
   bk_free(s->fsum);
   bk_free(s->fx);
+  bk_free(s->vals);
   memset(s, 0, sizeof *s);
 }
 
@@ -320,6 +325,18 @@ static int samples_push(samples_t *s, const double *x, double g, double sec) {
 
 static int on_record(void *data, const bk_record_t *r) {
   samples_t *s = data;
+  bk_record_t again;
+  if (s->regs && s->vals && r->nx == s->nx &&
+      r->ny == s->regs->model.noutputs &&
+      (r->fault == BK_FAULT_NONE || r->fault == BK_FAULT_NOT_A_NUMBER)) {
+    again = *r;
+    memcpy(s->vals, r->x, r->nx * sizeof *s->vals);
+    if (r->ny)
+      memcpy(s->vals + r->nx, r->y, r->ny * sizeof *s->vals);
+    again.g = bk_study_g(s->regs, s->vals, NULL);
+    again.fault = isnan(again.g) ? BK_FAULT_NOT_A_NUMBER : BK_FAULT_NONE;
+    r = &again;
+  }
   if (r->fault != BK_FAULT_NONE) {
     if (r->fault > 0 && r->fault < BK_FAULT__COUNT)
       s->errs_by_kind[r->fault]++;
@@ -379,11 +396,17 @@ static int capture_batch(bk_evaluator_t *ev, const char *prefix,
 #define SUBSAMPLE 20000
 #define STREAM    (1u << 22)
 
-static int load_samples(const char *folder, const bk_study_t *st,
-                        samples_t *s) {
+static int load_samples(const char *folder, const bk_study_t *st, samples_t *s,
+                        int reanalysis) {
   s->nx = st->nvars;
   if (stats_init(s))
     return BK_ENOMEM;
+  if (reanalysis) {
+    s->regs = st;
+    s->vals = bk_calloc(st->nvars + st->model.noutputs + 1, sizeof *s->vals);
+    if (!s->vals)
+      return BK_ENOMEM;
+  }
   if (st->model.present) {
     bk_buf_t lp;
     bk_buf_init(&lp);
@@ -1234,12 +1257,17 @@ static const char *method_words(const char *m) {
 
 int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
                    bk_error_t *err) {
+  return bk_report_html_of(folder, st, NULL, o, err);
+}
+
+int bk_report_html_of(const char *folder, const bk_study_t *st,
+                      const char *json, bk_buf_t *o, bk_error_t *err) {
   bk_buf_t text;
   bk_buf_init(&text);
   bk_buf_t path;
   bk_buf_init(&path);
   bk_buf_printf(&path, "%s/report.json", folder);
-  int rc = read_file(path.data, &text);
+  int rc = json ? bk_buf_puts(&text, json) : read_file(path.data, &text);
   if (rc) {
     bk_error_set(err, rc, path.data, 0, 0,
                  "no finished result here (%s); run `brink run STUDY.yaml` "
@@ -1263,7 +1291,7 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   bk_buf_close(&path);
   samples_t s;
   memset(&s, 0, sizeof s);
-  rc = load_samples(folder, st, &s);
+  rc = load_samples(folder, st, &s, jstr(&j, "reanalysis")[0] != '\0');
   if (rc) {
     bk_error_set(err, rc, folder, 0, 0, "cannot read the evaluations: %s",
                  bk_strerror(rc));
@@ -1274,7 +1302,8 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   }
   char fp[80];
   snprintf(fp, sizeof fp, "%s-%s", st->digest_study, st->digest_model);
-  int changed = strcmp(fp, jstr(&j, "fingerprint")) != 0;
+  int changed =
+      strcmp(fp, jstr(&j, "fingerprint")) != 0 && !jstr(&j, "reanalysis")[0];
 
   bk_buf_puts(o, "<!DOCTYPE html>\n<html xmlns=\"http://www.w3.org/1999/"
                  "xhtml\" lang=\"en\">\n<head>\n<meta charset=\"utf-8\"/>\n"

@@ -1806,6 +1806,7 @@ static int load_limit_states(loader_t *L, yaml_node_t *ln, yaml_node_t *sn) {
   s->limit_state = bk_strdup(sys);
   if (!s->limit_state)
     return nomem(L);
+  s->nsystem = s->nmodes;
   if (strcmp(sys, "series") == 0) {
     s->system = BK_SYSTEM_SERIES;
     return 0;
@@ -1834,13 +1835,13 @@ double bk_study_system(const bk_study_t *s, const double *gc) {
     /* As max() in an expression: NaN propagates, of equal values the
      * first. */
     g = gc[0];
-    for (size_t i = 1; i < s->nmodes; i++)
+    for (size_t i = 1; i < s->nsystem; i++)
       g = isnan(g) || isnan(gc[i]) ? g + gc[i] : gc[i] > g ? gc[i] : g;
     return g;
   case BK_SYSTEM_SERIES:
   default:
     g = gc[0];
-    for (size_t i = 1; i < s->nmodes; i++)
+    for (size_t i = 1; i < s->nsystem; i++)
       g = isnan(g) || isnan(gc[i]) ? g + gc[i] : gc[i] < g ? gc[i] : g;
     return g;
   }
@@ -1853,7 +1854,82 @@ double bk_study_g(const bk_study_t *s, const double *vals, double *gc) {
   double *c = gc ? gc : own;
   for (size_t i = 0; i < s->nmodes; i++)
     c[i] = bk_expr_eval(s->modes[i].g, vals);
+  if (s->system == BK_SYSTEM_SINGLE)
+    return bk_expr_eval(s->g, vals);
   return bk_study_system(s, c);
+}
+
+int bk_study_set_limit_state(bk_study_t *s, const char *name, const char *expr,
+                             char *msg, size_t cap) {
+  if (!is_identifier(name)) {
+    snprintf(msg, cap,
+             "'%s' is not a limit state name (letters, digits and _, "
+             "starting with a letter)",
+             name);
+    return BK_EINVAL;
+  }
+  size_t n;
+  const char **names = bk_study_g_names(s, &n);
+  if (!names) {
+    snprintf(msg, cap, "out of memory");
+    return BK_ENOMEM;
+  }
+  for (size_t i = 0; i < n; i++)
+    if (strcmp(names[i], name) == 0) {
+      snprintf(msg, cap, "'%s' is the name of a %s, not of a limit state", name,
+               i < s->nvars ? "variable" : "model output");
+      bk_free(names);
+      return BK_EINVAL;
+    }
+  bk_names_t tab = {names, n};
+  bk_expr_t *g = NULL;
+  char why[400] = "";
+  int rc = bk_expr_compile(expr, strlen(expr), &tab, &g, why, sizeof why, NULL);
+  bk_free(names);
+  if (rc) {
+    snprintf(msg, cap, "%s: %s", name, why);
+    return rc;
+  }
+  char *text = bk_strdup(expr);
+  if (!text) {
+    bk_expr_free(g);
+    snprintf(msg, cap, "out of memory");
+    return BK_ENOMEM;
+  }
+  if (!s->nmodes && strcmp(name, "limit_state") == 0) {
+    bk_expr_free(s->g);
+    bk_free(s->limit_state);
+    s->g = g;
+    s->limit_state = text;
+    return 0;
+  }
+  for (size_t i = 0; i < s->nmodes; i++)
+    if (strcmp(s->modes[i].name, name) == 0) {
+      bk_expr_free(s->modes[i].g);
+      bk_free(s->modes[i].text);
+      s->modes[i].g = g;
+      s->modes[i].text = text;
+      return 0;
+    }
+  char *nm = bk_strdup(name);
+  bk_mode_t *m = s->nmodes < BK_STUDY_MAX_MODES
+                     ? bk_realloc(s->modes, (s->nmodes + 1) * sizeof *m)
+                     : NULL;
+  if (!m || !nm) {
+    if (m)
+      s->modes = m;
+    bk_free(nm);
+    bk_free(text);
+    bk_expr_free(g);
+    snprintf(msg, cap,
+             s->nmodes < BK_STUDY_MAX_MODES ? "out of memory"
+                                            : "at most %d limit states",
+             BK_STUDY_MAX_MODES);
+    return s->nmodes < BK_STUDY_MAX_MODES ? BK_ENOMEM : BK_EINVAL;
+  }
+  s->modes = m;
+  m[s->nmodes++] = (bk_mode_t){nm, text, g};
+  return 0;
 }
 
 static int load_limit_state(loader_t *L, yaml_node_t *gn) {

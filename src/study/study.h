@@ -196,6 +196,8 @@ typedef struct {
   bk_mode_t *modes;  /* limit_states, in the order written; nmodes = 0 for
                         one limit_state */
   size_t nmodes;
+  size_t nsystem; /* the modes the system combines: the first nsystem (a
+                     re-analysis may add modes beside the system) */
   bk_system_t system;
   bk_expr_t *system_g; /* BK_SYSTEM_EXPR: over the mode names */
   bk_analysis_t analysis;
@@ -231,6 +233,17 @@ double bk_study_g(const bk_study_t *s, const double *vals, double *gc);
 
 /* The system's g from the modes' values gc[0..nmodes). */
 double bk_study_system(const bk_study_t *s, const double *gc);
+
+/* For a re-analysis of recorded evaluations (`brink report
+ * --limit-state`): gives limit state `name` the expression `expr` (over
+ * the variables and the model's outputs). A name of limit_states changes
+ * that mode, and so the system; "limit_state" in a study of one limit
+ * state changes it; any other name adds a mode reported beside the
+ * system, not part of it. The fingerprint is left as it was. Returns 0,
+ * or BK_EPARSE, BK_ENOTFOUND, BK_EINVAL (a bad name, too many modes) or
+ * BK_ENOMEM with a message in msg. */
+int bk_study_set_limit_state(bk_study_t *s, const char *name, const char *expr,
+                             char *msg, size_t cap);
 
 /* A 128-bit digest of a text as 32 hex digits into hex[33]. */
 void bk_digest_hex(const void *data, size_t len, char hex[33]);
