@@ -532,3 +532,93 @@ Test(commands, several_limit_states_in_report_export_and_html) {
   cr_assert_eq(sh("/usr/bin/python3 chk.py >chk.txt 2>&1"), 0, "%s",
                read_file("chk.txt"));
 }
+
+/* What if: `report --limit-state` on the records of an lhs run gives bit
+ * for bit the numbers of a new run of the study with that limit state
+ * (the model is deterministic), without running the model; it is marked
+ * as a re-analysis and report.json stays as it was. */
+Test(commands, reanalysis_equals_a_new_run_with_the_changed_limit_state) {
+  write_model_study("ok", "method: lhs, samples: 120, replicates: 4",
+                    "limit_states:\n"
+                    "  bending: \"g\"\n"
+                    "  sway: \"1.2 - a\"\n");
+  cr_assert_eq(sh("sed -i '/^limit_state: g$/d' study.yaml"), 0);
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  char *before = strdup(read_file("out/linear/report.json"));
+  cr_assert_eq(brink("report out/linear --json --limit-state "
+                     "'sway=0.9 - a' --limit-state 'tip=g + 0.4'"),
+               0, "%s", read_file("err.txt"));
+  char *what = strdup(read_file("out.txt"));
+  cr_expect(strstr(what, "\"reanalysis\": \"sway=0.9 - a; tip=g + 0.4\""), "%s",
+            what);
+  cr_expect_str_eq(read_file("out/linear/report.json"), before);
+  /* The same study with sway changed and tip added, run anew. */
+  cr_assert_eq(sh("sed -e 's/1.2 - a/0.9 - a/' -e 's#out/linear#out/new#' "
+                  "-e 's/^  sway:/  tip: \"g + 0.4\"\\n  sway:/' study.yaml "
+                  ">new.yaml"),
+               0);
+  cr_assert_eq(brink("run new.yaml -q"), 0, "%s", read_file("err.txt"));
+  char *fresh = strdup(read_file("out/new/report.json"));
+  /* System and modes: the same numbers, printed the same way. */
+  const char *keys[] = {"\"pf\": ", "\"cov\": ", "\"ci\": "};
+  for (int k = 0; k < 3; k++) {
+    const char *a = strstr(what, keys[k]), *b = strstr(fresh, keys[k]);
+    cr_assert(a && b);
+    cr_expect(strncmp(a, b, strcspn(a, "\n")) == 0, "%.80s vs %.80s", a, b);
+  }
+  const char *modes[] = {"\"bending\": ", "\"sway\": ", "\"tip\": "};
+  for (int k = 0; k < 3; k++) {
+    const char *a = strstr(what, modes[k]), *b = strstr(fresh, modes[k]);
+    cr_assert(a && b, "%s", modes[k]);
+    a = strstr(a, "\"pf\": ");
+    b = strstr(b, "\"pf\": ");
+    cr_expect(strncmp(a, b, strcspn(a, ",")) == 0, "%s: %.40s vs %.40s",
+              modes[k], a, b);
+  }
+  /* The text and the HTML say it is a re-analysis. */
+  cr_assert_eq(brink("report out/linear --limit-state 'sway=0.9 - a'"), 0);
+  cr_expect(strstr(read_file("out.txt"), "RE-ANALYSIS"));
+  cr_assert_eq(brink("report out/linear --html w.html --limit-state "
+                     "'sway=0.9 - a'"),
+               0, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("w.html"), "<b>Re-analysis</b>"));
+  free(before);
+  free(what);
+  free(fresh);
+}
+
+Test(commands, reanalysis_refusals_say_why) {
+  write_model_study("ok", "method: random, samples: 40", "");
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear --limit-state sway"), 2);
+  cr_expect(strstr(read_file("err.txt"), "--limit-state takes NAME=EXPRESSION"),
+            "%s", read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear --limit-state 'x=1 - nosuch'"), 2);
+  cr_expect(strstr(read_file("err.txt"), "unknown name 'nosuch'"), "%s",
+            read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear --limit-state 'a=1 - b'"), 2);
+  cr_expect(strstr(read_file("err.txt"), "'a' is the name of a variable"), "%s",
+            read_file("err.txt"));
+  /* One limit state: limit_state names it. */
+  cr_assert_eq(brink("report out/linear --json --limit-state "
+                     "'limit_state=g - 5'"),
+               0, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("out.txt"), "\"pf\": 1,"), "%s",
+            read_file("out.txt"));
+  /* Adaptive methods chose their points from g. */
+  write_file("f.yaml", "variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                       "limit_state: x\n"
+                       "analysis: {method: form}\n"
+                       "run: {folder: out/f}\n");
+  cr_assert_eq(brink("report f.yaml --limit-state 'limit_state=x - 1'"), 2);
+  cr_expect(strstr(read_file("err.txt"), "the form method chose where to "
+                                         "evaluate from the values of g"),
+            "%s", read_file("err.txt"));
+  /* Records with a gap: the re-analysis needs every evaluation. */
+  cr_assert_eq(sh("grep -v -P '^mc/7\\t' out/linear/records.log > r && "
+                  "mv r out/linear/records.log"),
+               0);
+  int rc = brink("report out/linear --limit-state 'limit_state=g - 1'");
+  cr_expect_eq(rc, 1, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("err.txt"), "not in"), "%s", read_file("err.txt"));
+}
