@@ -620,6 +620,15 @@ Test(study, several_limit_states_refused_with_place_and_reason) {
                3, 17,
                "system (series, parallel, or an expression over the "
                "limit_states names): unknown name 'c'; known names: a, b");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {a: \"x - 1\", b: 5}\n"
+               "system: \"min(a, b)\"\n"
+               "analysis: {method: form}\n",
+               3, 9,
+               "FORM gives first-order bounds for a series or a parallel "
+               "system only; for a system written as an expression use a "
+               "sampling method (random, lhs, sobol) or importance, "
+               "cross-entropy, subset");
   expect_error_part("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
                     "limit_states:\n"
                     "  a: \"x - 1\"\n"

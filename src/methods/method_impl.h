@@ -43,6 +43,12 @@ void bk__design_points_close(bk__design_points_t *dps);
  * negative code with m->err set. */
 int bk__form_search(bk_mctx_t *m, bk__design_points_t *out);
 
+/* FORM of a system of several limit states (system.c): a design point per
+ * mode and the system's first-order bounds. */
+int bk__system_form(const bk_study_t *s, bk_evaluator_t *ev,
+                    const bk_method_opts_t *opts, bk_result_t *res,
+                    bk_error_t *err);
+
 /* The other methods, one file each. */
 int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,
                     const bk_method_opts_t *opts, bk_result_t *res,

@@ -1748,6 +1748,13 @@ static int load_limit_states(loader_t *L, yaml_node_t *ln, yaml_node_t *sn) {
        !rc && p < ln->data.mapping.pairs.top; p++) {
     yaml_node_t *k = node_at(L, p->key), *v = node_at(L, p->value);
     const char *name = scalar(k), *text;
+    if (strlen(name) > 40) {
+      rc = FAIL(L, k,
+                "limit state name '%.40s...' is longer than 40 characters "
+                "(it is part of evaluation keys)",
+                name);
+      break;
+    }
     if (!is_identifier(name)) {
       rc = FAIL(L, k,
                 "limit state name '%s' must start with a letter or '_' and "
@@ -2128,6 +2135,12 @@ static int load_root(loader_t *L, yaml_node_t *root) {
     return rc;
   if ((rc = load_analysis(L, lookup(L, root, "analysis"))))
     return rc;
+  if (sn && s->system == BK_SYSTEM_EXPR && s->analysis.method == BK_METHOD_FORM)
+    return FAIL(L, sn,
+                "FORM gives first-order bounds for a series or a parallel "
+                "system only; for a system written as an expression use a "
+                "sampling method (random, lhs, sobol) or importance, "
+                "cross-entropy, subset");
   if ((rc = check_design(L, root)))
     return rc;
   if ((rc = load_run(L, lookup(L, root, "run"))))
