@@ -172,6 +172,17 @@ double bk_mctx_gc(const bk_mctx_t *m, size_t i, size_t k) {
   return m->s->model.on_error == BK_ON_ERROR_FAIL ? -INFINITY : NAN;
 }
 
+uint32_t bk_mctx_mode_failures(const bk_mctx_t *m, size_t i) {
+  const bk_point_t *p = &m->pts[i];
+  uint32_t bits = 0;
+  if (!p->gc ||
+      (p->fault != BK_FAULT_NONE && p->fault != BK_FAULT_NOT_A_NUMBER))
+    return 0;
+  for (size_t k = 0; k < m->s->nmodes && k < 32; k++)
+    bits |= (uint32_t)(p->gc[k] <= 0) << k;
+  return bits;
+}
+
 void bk_mctx_progress(bk_mctx_t *m) {
   if (m->opts && m->opts->progress)
     m->opts->progress(m->opts->progress_data, m->res, m->planned);

@@ -83,6 +83,10 @@ double bk_mctx_g(const bk_mctx_t *m, size_t i);
  * the point, is a fault of that mode: NaN (skip) or -INFINITY (fail). */
 double bk_mctx_gc(const bk_mctx_t *m, size_t i, size_t k);
 
+/* With several limit states: bit k set when mode k fails at point i (no
+ * fault and its value <= 0); 0 for one limit state. */
+uint32_t bk_mctx_mode_failures(const bk_mctx_t *m, size_t i);
+
 /* Reports progress (res as it stands) to the caller's callback. */
 void bk_mctx_progress(bk_mctx_t *m);
 

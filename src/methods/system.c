@@ -272,3 +272,71 @@ out:
   bk_free(vals);
   return rc;
 }
+
+/* ---- subset simulation -------------------------------------------------- */
+
+int bk__system_subset(bk_result_t *res, const bk_study_t *s, const double *g,
+                      const uint32_t *fm, size_t n) {
+  const char *names[BK_STUDY_MAX_MODES];
+  for (size_t i = 0; i < s->nmodes; i++)
+    names[i] = s->modes[i].name;
+  if (bk_result_components(res, names, s->nmodes, 0))
+    return BK_ENOMEM;
+  if (s->system != BK_SYSTEM_SERIES)
+    return bk_result_note(
+        res,
+        "subset simulation follows the system's g: the modes of a %s "
+        "system are not estimated (their failure domains do not lie "
+        "inside the system's, so the last level says nothing of "
+        "them); use a sampling method, importance or cross-entropy "
+        "for each mode's Pf",
+        s->system == BK_SYSTEM_PARALLEL ? "parallel"
+                                        : "system written as "
+                                          "an expression");
+  const bk_estimate_t *sys = &res->est;
+  size_t nf = 0;
+  uint64_t cnt[BK_STUDY_MAX_MODES] = {0};
+  for (size_t i = 0; i < n; i++) {
+    if (!(g[i] <= 0))
+      continue;
+    nf++;
+    for (size_t k = 0; k < s->nmodes; k++)
+      cnt[k] += (fm[i] >> k) & 1u;
+  }
+  for (size_t k = 0; k < s->nmodes; k++) {
+    bk_component_t *c = &res->components[k];
+    if (!nf || !(sys->pf > 0))
+      continue;
+    double q = (double)cnt[k] / (double)nf;
+    /* The ratio's binomial error, taking the last level's failures as
+     * independent (they are chain states, so this is optimistic), added
+     * to the system's. */
+    double cq2 = q > 0 ? (1 - q) / ((double)nf * q) : INFINITY;
+    double cov = sqrt(sys->cov * sys->cov + cq2);
+    bk_estimate_lognormal(sys->pf * q, cov, s->analysis.ci_level, &c->est);
+    c->est.ci_method = "subset, last level share (lognormal)";
+    c->est.failures = cnt[k];
+    c->est.n = sys->n;
+    c->present = 1;
+    c->system_failures = cnt[k];
+    c->pf_bounds[0] = c->pf_bounds[1] = c->est.pf;
+  }
+  return bk_result_note(
+      res, "each limit state's Pf is the system's times the share of the "
+           "last level's failures in which it fails (its failure domain "
+           "lies inside the series system's); its interval takes those "
+           "failures as independent, which chains are not, so it is "
+           "optimistic");
+}
+
+int bk__system_surrogate(bk_result_t *res, const bk_study_t *s) {
+  const char *names[BK_STUDY_MAX_MODES];
+  for (size_t i = 0; i < s->nmodes; i++)
+    names[i] = s->modes[i].name;
+  if (bk_result_components(res, names, s->nmodes, 0))
+    return BK_ENOMEM;
+  return bk_result_note(
+      res, "the surrogate learns the system's g only: the limit states' own "
+           "Pf are not estimated (use a sampling method, importance or "
+           "cross-entropy for them)");
+}
