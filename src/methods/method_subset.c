@@ -602,8 +602,8 @@ static int fill_estimate(ss_t *m) {
   e->n = m->ctx.n;
   e->failures = m->nf;
   /* Several limit states: each mode from the last level's failures. */
-  if (s->nmodes &&
-      bk__system_subset(res, s, m->cur.g, m->cur.fm, m->N) == BK_ENOMEM)
+  if (s->nmodes && bk__system_subset(res, s, m->cur.g, m->cur.fm, m->cur.off,
+                                     m->cur.len, m->nchains) == BK_ENOMEM)
     return bk_mctx_nomem(&m->ctx);
   res->excluded = m->fail_mode ? 0 : m->e0;
   res->pf_bounds[0] = res->pf_bounds[1] = e->pf;

@@ -276,7 +276,8 @@ out:
 /* ---- subset simulation -------------------------------------------------- */
 
 int bk__system_subset(bk_result_t *res, const bk_study_t *s, const double *g,
-                      const uint32_t *fm, size_t n) {
+                      const uint32_t *fm, const size_t *off, const size_t *len,
+                      size_t nchains) {
   const char *names[BK_STUDY_MAX_MODES];
   for (size_t i = 0; i < s->nmodes; i++)
     names[i] = s->modes[i].name;
@@ -294,24 +295,39 @@ int bk__system_subset(bk_result_t *res, const bk_study_t *s, const double *g,
                                         : "system written as "
                                           "an expression");
   const bk_estimate_t *sys = &res->est;
-  size_t nf = 0;
+  double nf = 0;
   uint64_t cnt[BK_STUDY_MAX_MODES] = {0};
-  for (size_t i = 0; i < n; i++) {
-    if (!(g[i] <= 0))
-      continue;
-    nf++;
-    for (size_t k = 0; k < s->nmodes; k++)
-      cnt[k] += (fm[i] >> k) & 1u;
-  }
+  for (size_t c = 0; c < nchains; c++)
+    for (size_t i = off[c]; i < off[c] + len[c]; i++) {
+      if (!(g[i] <= 0))
+        continue;
+      nf++;
+      for (size_t k = 0; k < s->nmodes; k++)
+        cnt[k] += (fm[i] >> k) & 1u;
+    }
   for (size_t k = 0; k < s->nmodes; k++) {
     bk_component_t *c = &res->components[k];
-    if (!nf || !(sys->pf > 0))
+    if (!(nf > 0) || !(sys->pf > 0))
       continue;
-    double q = (double)cnt[k] / (double)nf;
-    /* The ratio's binomial error, taking the last level's failures as
-     * independent (they are chain states, so this is optimistic), added
-     * to the system's. */
-    double cq2 = q > 0 ? (1 - q) / ((double)nf * q) : INFINITY;
+    double q = (double)cnt[k] / nf;
+    /* The error of the share q = sum B_c / sum A_c (A_c: failures of chain
+     * c, B_c: those where the mode fails) by the delta method with the
+     * chains as independent groups, which keeps the correlation of states
+     * along a chain (chains from related seeds stay correlated: still
+     * somewhat optimistic). */
+    double v = 0;
+    for (size_t ch = 0; ch < nchains; ch++) {
+      double a = 0, b = 0;
+      for (size_t i = off[ch]; i < off[ch] + len[ch]; i++)
+        if (g[i] <= 0) {
+          a++;
+          b += (fm[i] >> k) & 1u;
+        }
+      v += (b - q * a) * (b - q * a);
+    }
+    if (nchains > 1)
+      v *= (double)nchains / (double)(nchains - 1);
+    double cq2 = q > 0 ? v / (nf * nf) / (q * q) : INFINITY;
     double cov = sqrt(sys->cov * sys->cov + cq2);
     bk_estimate_lognormal(sys->pf * q, cov, s->analysis.ci_level, &c->est);
     c->est.ci_method = "subset, last level share (lognormal)";
@@ -324,9 +340,9 @@ int bk__system_subset(bk_result_t *res, const bk_study_t *s, const double *g,
   return bk_result_note(
       res, "each limit state's Pf is the system's times the share of the "
            "last level's failures in which it fails (its failure domain "
-           "lies inside the series system's); its interval takes those "
-           "failures as independent, which chains are not, so it is "
-           "optimistic");
+           "lies inside the series system's); the share's error groups the "
+           "failures by chain, but chains from related seeds stay "
+           "correlated, so a rare mode's interval can be optimistic");
 }
 
 int bk__system_surrogate(bk_result_t *res, const bk_study_t *s) {
