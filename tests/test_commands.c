@@ -637,6 +637,12 @@ Test(commands, several_limit_states_replay_to_the_same_report) {
   cr_expect(strstr(read_file("out.txt"), "sway           g = 1.2 - a"), "%s",
             read_file("out.txt"));
   cr_expect(strstr(read_file("out.txt"), "system: parallel"));
+  cr_assert_eq(brink("check study.yaml --try"), 0, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("out.txt"),
+                   "limit state sway = 1.2 (safe at the medians)"),
+            "%s", read_file("out.txt"));
+  cr_expect(strstr(read_file("out.txt"), "system g = 1.5 (safe"), "%s",
+            read_file("out.txt"));
   cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
   char *first = strdup(read_file("out/linear/report.json"));
   cr_assert_eq(sh("rm out/linear/report.json out/linear/report.txt"), 0);

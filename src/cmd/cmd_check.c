@@ -158,7 +158,15 @@ static int try_model(const bk_study_t *s, const double *med) {
                             .host = "check"};
   if (rc == 0)
     rc = bk_dispatch_new(&d, &dop);
-  bk_point_t pt = {.index = 0, .x = x, .y = y, .g = NAN, .fault = 0};
+  double gc[BK_STUDY_MAX_MODES];
+  for (size_t i = 0; i < BK_STUDY_MAX_MODES; i++)
+    gc[i] = NAN;
+  bk_point_t pt = {.index = 0,
+                   .x = x,
+                   .y = y,
+                   .g = NAN,
+                   .fault = 0,
+                   .gc = s->nmodes ? gc : NULL};
   if (rc == 0) {
     bk_evaluator_t ev;
     bk_dispatch_evaluator(d, &ev);
@@ -221,8 +229,12 @@ static int try_model(const bk_study_t *s, const double *med) {
       bk_buf_close(&p);
     }
   }
+  int valued = pt.fault == BK_FAULT_NONE || pt.fault == BK_FAULT_NOT_A_NUMBER;
+  for (size_t i = 0; valued && pt.gc && i < s->nmodes; i++)
+    printf("  limit state %s = %.10g (%s)\n", s->modes[i].name, gc[i],
+           gc[i] <= 0 ? "failed at the medians" : "safe at the medians");
   if (pt.fault == BK_FAULT_NONE)
-    printf("  limit state g = %.10g (%s)\n", pt.g,
+    printf("  %s g = %.10g (%s)\n", s->nmodes ? "system" : "limit state", pt.g,
            pt.g <= 0 ? "failed at the medians" : "safe at the medians");
   else {
     exit_code = BK_EXIT_RUNTIME;
