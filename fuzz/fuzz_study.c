@@ -55,7 +55,8 @@ int BK_FUZZ_ENTRY(const uint8_t *data, size_t size) {
   bk_error_clear(&err);
   int rc = bk_study_load(fs_path, &s, &err);
   if (rc == 0) {
-    assert(s && s->nvars > 0 && s->g);
+    assert(s && s->nvars > 0 && (s->g || s->nmodes));
+    assert(!s->nmodes || s->nsystem == s->nmodes);
     bk_study_free(s);
   } else {
     assert(!s);

@@ -679,3 +679,184 @@ Test(commands, every_command_has_help) {
   cr_assert(strstr(read_file("err.txt"), "not a run folder"));
   cr_assert_eq(brink("export nowhere --csv"), 2);
 }
+
+/* Several limit states over a model's output and a variable: report.json
+ * has each mode, export one column per mode, and the HTML report the table
+ * of the modes. An independent reader (Python's csv and json) recomputes
+ * each mode from the exported inputs and outputs and counts its failures
+ * and the system's, which must match the report. */
+Test(commands, several_limit_states_in_report_export_and_html) {
+  write_model_study("ok", "method: random, samples: 300",
+                    "limit_states:\n"
+                    "  bending: \"g\"\n"
+                    "  sway: \"1.2 - a\"\n"
+                    "system: series\n");
+  /* write_model_study wrote limit_state too: take it out. */
+  cr_assert_eq(sh("sed -i '/^limit_state: g$/d' study.yaml"), 0);
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear"), 0);
+  const char *text = read_file("out.txt");
+  cr_expect(strstr(text, "limit states, system series"), "%s", text);
+  cr_expect(strstr(text, "drives the system's failure"), "%s", text);
+  cr_assert_eq(brink("export out/linear --csv -o e.csv"), 0, "%s",
+               read_file("err.txt"));
+  cr_assert_eq(brink("export study.yaml --json-lines -o e.jsonl"), 0);
+  cr_assert_eq(brink("report out/linear --html r.html"), 0, "%s",
+               read_file("err.txt"));
+  char *csv = read_file("e.csv");
+  cr_expect(
+      strncmp(csv, "key,a,b,g,total,limit_state,bending,sway,failed", 47) == 0,
+      "header: %.80s", csv);
+  cr_expect(strstr(read_file("r.html"), "<h3>Limit states</h3>"));
+  if (!have_python())
+    cr_skip_test("no /usr/bin/python3 for the independent parsers");
+  write_file("chk.py",
+             "import csv, json, sys\n"
+             "rep = json.load(open('out/linear/report.json'))\n"
+             "rows = list(csv.DictReader(open('e.csv')))\n"
+             "jl = [json.loads(x) for x in open('e.jsonl')]\n"
+             "assert len(rows) == rep['evaluations'] == len(jl)\n"
+             "kb = ks = ksys = 0\n"
+             "for r, j in zip(rows, jl):\n"
+             "    a, g = float(r['a']), float(r['g'])\n"
+             "    assert float(r['bending']) == g == j['bending']\n"
+             "    assert float(r['sway']) == 1.2 - a == j['sway']\n"
+             "    assert float(r['limit_state']) == min(g, 1.2 - a)\n"
+             "    kb += g <= 0; ks += 1.2 - a <= 0\n"
+             "    ksys += min(g, 1.2 - a) <= 0\n"
+             "c = rep['components']\n"
+             "n = len(rows)\n"
+             "assert c['bending']['failures'] == kb, (c, kb)\n"
+             "assert c['sway']['failures'] == ks, (c, ks)\n"
+             "assert rep['failures'] == ksys\n"
+             "assert c['bending']['pf'] == kb / n and c['sway']['pf'] == ks / "
+             "n\n"
+             "assert rep['system'] == 'series'\n"
+             "print('ok')\n");
+  cr_assert_eq(sh("/usr/bin/python3 chk.py >chk.txt 2>&1"), 0, "%s",
+               read_file("chk.txt"));
+}
+
+/* What if: `report --limit-state` on the records of an lhs run gives bit
+ * for bit the numbers of a new run of the study with that limit state
+ * (the model is deterministic), without running the model; it is marked
+ * as a re-analysis and report.json stays as it was. */
+Test(commands, reanalysis_equals_a_new_run_with_the_changed_limit_state) {
+  write_model_study("ok", "method: lhs, samples: 120, replicates: 4",
+                    "limit_states:\n"
+                    "  bending: \"g\"\n"
+                    "  sway: \"1.2 - a\"\n");
+  cr_assert_eq(sh("sed -i '/^limit_state: g$/d' study.yaml"), 0);
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  char *before = strdup(read_file("out/linear/report.json"));
+  cr_assert_eq(brink("report out/linear --json --limit-state "
+                     "'sway=0.9 - a' --limit-state 'tip=g + 0.4'"),
+               0, "%s", read_file("err.txt"));
+  char *what = strdup(read_file("out.txt"));
+  cr_expect(strstr(what, "\"reanalysis\": \"sway=0.9 - a; tip=g + 0.4\""), "%s",
+            what);
+  cr_expect_str_eq(read_file("out/linear/report.json"), before);
+  /* The same study with sway changed and tip added, run anew. */
+  cr_assert_eq(sh("sed -e 's/1.2 - a/0.9 - a/' -e 's#out/linear#out/new#' "
+                  "-e 's/^  sway:/  tip: \"g + 0.4\"\\n  sway:/' study.yaml "
+                  ">new.yaml"),
+               0);
+  cr_assert_eq(brink("run new.yaml -q"), 0, "%s", read_file("err.txt"));
+  char *fresh = strdup(read_file("out/new/report.json"));
+  /* System and modes: the same numbers, printed the same way. */
+  const char *keys[] = {"\"pf\": ", "\"cov\": ", "\"ci\": "};
+  for (int k = 0; k < 3; k++) {
+    const char *a = strstr(what, keys[k]), *b = strstr(fresh, keys[k]);
+    cr_assert(a && b);
+    cr_expect(strncmp(a, b, strcspn(a, "\n")) == 0, "%.80s vs %.80s", a, b);
+  }
+  const char *modes[] = {"\"bending\": ", "\"sway\": ", "\"tip\": "};
+  for (int k = 0; k < 3; k++) {
+    const char *a = strstr(what, modes[k]), *b = strstr(fresh, modes[k]);
+    cr_assert(a && b, "%s", modes[k]);
+    a = strstr(a, "\"pf\": ");
+    b = strstr(b, "\"pf\": ");
+    cr_expect(strncmp(a, b, strcspn(a, ",")) == 0, "%s: %.40s vs %.40s",
+              modes[k], a, b);
+  }
+  /* The text and the HTML say it is a re-analysis. */
+  cr_assert_eq(brink("report out/linear --limit-state 'sway=0.9 - a'"), 0);
+  cr_expect(strstr(read_file("out.txt"), "RE-ANALYSIS"));
+  cr_assert_eq(brink("report out/linear --html w.html --limit-state "
+                     "'sway=0.9 - a'"),
+               0, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("w.html"), "<b>Re-analysis</b>"));
+  free(before);
+  free(what);
+  free(fresh);
+}
+
+Test(commands, reanalysis_refusals_say_why) {
+  write_model_study("ok", "method: random, samples: 40", "");
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear --limit-state sway"), 2);
+  cr_expect(strstr(read_file("err.txt"), "--limit-state takes NAME=EXPRESSION"),
+            "%s", read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear --limit-state 'x=1 - nosuch'"), 2);
+  cr_expect(strstr(read_file("err.txt"), "unknown name 'nosuch'"), "%s",
+            read_file("err.txt"));
+  cr_assert_eq(brink("report out/linear --limit-state 'a=1 - b'"), 2);
+  cr_expect(strstr(read_file("err.txt"), "'a' is the name of a variable"), "%s",
+            read_file("err.txt"));
+  /* One limit state: limit_state names it. */
+  cr_assert_eq(brink("report out/linear --json --limit-state "
+                     "'limit_state=g - 5'"),
+               0, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("out.txt"), "\"pf\": 1,"), "%s",
+            read_file("out.txt"));
+  /* Adaptive methods chose their points from g. */
+  write_file("f.yaml", "variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                       "limit_state: x\n"
+                       "analysis: {method: form}\n"
+                       "run: {folder: out/f}\n");
+  cr_assert_eq(brink("report f.yaml --limit-state 'limit_state=x - 1'"), 2);
+  cr_expect(strstr(read_file("err.txt"), "the form method chose where to "
+                                         "evaluate from the values of g"),
+            "%s", read_file("err.txt"));
+  /* Records with a gap: the re-analysis needs every evaluation. */
+  cr_assert_eq(sh("grep -v -P '^mc/7\\t' out/linear/records.log > r && "
+                  "mv r out/linear/records.log"),
+               0);
+  int rc = brink("report out/linear --limit-state 'limit_state=g - 1'");
+  cr_expect_eq(rc, 1, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("err.txt"), "not in"), "%s", read_file("err.txt"));
+}
+
+/* A run of several limit states made again from its records (every key
+ * replayed, the modes computed again from the recorded inputs and
+ * outputs) ends with the same report, bit for bit; check lists the modes. */
+Test(commands, several_limit_states_replay_to_the_same_report) {
+  write_model_study("ok", "method: sobol, samples: 64, replicates: 4",
+                    "limit_states:\n"
+                    "  bending: \"g\"\n"
+                    "  sway: \"1.2 - a\"\n"
+                    "system: parallel\n");
+  cr_assert_eq(sh("sed -i '/^limit_state: g$/d' study.yaml"), 0);
+  cr_assert_eq(brink("check study.yaml"), 0, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("out.txt"), "sway           g = 1.2 - a"), "%s",
+            read_file("out.txt"));
+  cr_expect(strstr(read_file("out.txt"), "system: parallel"));
+  cr_assert_eq(brink("check study.yaml --try"), 0, "%s", read_file("err.txt"));
+  cr_expect(strstr(read_file("out.txt"),
+                   "limit state sway = 1.2 (safe at the medians)"),
+            "%s", read_file("out.txt"));
+  cr_expect(strstr(read_file("out.txt"), "system g = 1.5 (safe"), "%s",
+            read_file("out.txt"));
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  char *first = strdup(read_file("out/linear/report.json"));
+  cr_assert_eq(sh("rm out/linear/report.json out/linear/report.txt"), 0);
+  cr_assert_eq(brink("run study.yaml -q"), 0, "%s", read_file("err.txt"));
+  char *again = read_file("out/linear/report.json");
+  const char *a = strstr(first, "\"components\""),
+             *b = strstr(again, "\"components\"");
+  cr_assert(a && b);
+  cr_expect(strncmp(a, b, (size_t)(strstr(a, "\"warnings\"") - a)) == 0,
+            "%.400s\nvs\n%.400s", a, b);
+  cr_expect(strncmp(strstr(first, "\"pf\""), strstr(again, "\"pf\""), 40) == 0);
+  free(first);
+}

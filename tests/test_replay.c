@@ -83,7 +83,7 @@ Test(replay, recorded_point_gets_outputs_g_fault_and_the_record) {
   bk_records_t *b = log_with("b.log", "mc/2", x, NAN, BK_FAULT_EXIT_CODE);
   bk_records_t *logs[] = {a, NULL, b};
   double y = NAN;
-  bk_point_t pt = {2, (double[]){0.25, -3}, &y, 0, 0};
+  bk_point_t pt = {2, (double[]){0.25, -3}, &y, 0, 0, NULL};
   bk_record_t rec;
   bk_error_t err;
   bk_error_clear(&err);
@@ -101,7 +101,7 @@ Test(replay, unrecorded_point_is_left_alone) {
   double x[2] = {1, 2};
   bk_records_t *a = log_with("a.log", "mc/1", x, 5, 0);
   double y = -7;
-  bk_point_t pt = {3, x, &y, -8, -9};
+  bk_point_t pt = {3, x, &y, -8, -9, NULL};
   bk_error_t err;
   bk_error_clear(&err);
   cr_assert_eq(bk_replay_point(&a, 1, "mc/3", 2, 1, &pt, NULL, &err), 0);
@@ -120,7 +120,7 @@ Test(replay, inputs_that_differ_in_one_bit_are_refused) {
   double other[][2] = {{-0.0, 0.1}, {0.0, nextafter(0.1, 1)}};
   for (int i = 0; i < 2; i++) {
     double y = -7;
-    bk_point_t pt = {4, other[i], &y, -8, 0};
+    bk_point_t pt = {4, other[i], &y, -8, 0, NULL};
     bk_error_t err;
     bk_error_clear(&err);
     cr_assert_eq(bk_replay_point(&a, 1, "lhs/r0/4", 2, 1, &pt, NULL, &err),

@@ -112,7 +112,7 @@ Test(shard, evaluator_passes_owned_points_and_marks_the_rest_safe) {
   bk_point_t pts[10];
   double x[10];
   for (int i = 0; i < 10; i++)
-    pts[i] = (bk_point_t){(uint64_t)i, &x[i], NULL, NAN, -1};
+    pts[i] = (bk_point_t){(uint64_t)i, &x[i], NULL, NAN, -1, NULL};
   bk_error_t err;
   bk_error_clear(&err);
   cr_assert_eq(ev.batch(&ev, "mc", pts, 10, &err), 0);
@@ -172,12 +172,12 @@ Test(shard, serve_answers_from_the_logs_and_counts_missing_keys) {
   s.nvars = 1;
   uint64_t missing[2] = {0, 0};
   char first[2][96] = {"", ""};
-  bk_serve_t sv = {&s, &r, 1, 2, missing, first, 0};
+  bk_serve_t sv = {&s, &r, 1, 2, missing, first, 0, 0};
   bk_evaluator_t ev;
   bk_serve_evaluator(&sv, &ev);
   bk_point_t pts[6];
   for (int i = 0; i < 6; i++)
-    pts[i] = (bk_point_t){(uint64_t)i, &xs[i], NULL, NAN, -1};
+    pts[i] = (bk_point_t){(uint64_t)i, &xs[i], NULL, NAN, -1, NULL};
   cr_assert_eq(ev.batch(&ev, "mc", pts, 6, &err), 0);
   cr_assert_eq(sv.served, 3);
   cr_assert_eq(pts[0].g, 10.0);
@@ -190,7 +190,7 @@ Test(shard, serve_answers_from_the_logs_and_counts_missing_keys) {
   cr_assert_eq(pts[1].g, 1.0, "missing keys are answered as safe");
   /* Inputs that differ from the recorded ones are refused. */
   double other = 9.0;
-  bk_point_t bad = {0, &other, NULL, NAN, -1};
+  bk_point_t bad = {0, &other, NULL, NAN, -1, NULL};
   cr_assert_eq(ev.batch(&ev, "mc", &bad, 1, &err), BK_EMISMATCH);
   cr_assert(strstr(err.msg, "mc/0"), "%s", err.msg);
   bk_records_close(r);

@@ -150,7 +150,7 @@ Test(study, unknown_top_level_key) {
   expect_error(HEAD "variabels: {}\n", 3, 1,
                "unknown key 'variabels' in the study file; expected one of: "
                "name, seed, variables, correlations, model, limit_state, "
-               "analysis, run");
+               "limit_states, system, analysis, run");
 }
 
 Test(study, duplicated_key) {
@@ -297,7 +297,8 @@ Test(study, limit_state_missing) {
                     "  x: {type: normal, mean: 1, sd: 1}\n",
                1, 1,
                "the study file needs 'limit_state', an expression that is "
-               "<= 0 on failure, e.g. \"r - s\"");
+               "<= 0 on failure, e.g. \"r - s\" (or 'limit_states', several "
+               "by name)");
 }
 
 Test(study, samples_or_target_needed) {
@@ -496,4 +497,141 @@ Test(study, exploration_and_defensive_share_keys) {
                3, 36,
                "analysis.importance.defensive must lie in [0, 1) (got 1), "
                "e.g. 0.1");
+}
+
+/* Several limit states: the modes in the order written, the system's g as
+ * the minimum (series), the maximum (parallel) or an expression over the
+ * names; each mode's value comes back through gc. */
+Test(study, several_limit_states_and_their_system) {
+  static const char *const systems[] = {"", "system: parallel\n",
+                                        "system: \"min(b, max(a, 2*b))\"\n"};
+  /* At x = 3, y = -1: a = x + y = 2 and b = x*y = -3, so series
+   * min(2, -3) = -3, parallel max(2, -3) = 2, and min(b, max(a, 2*b)) =
+   * min(-3, max(2, -6)) = -3. */
+  double vals[2] = {3.0, -1.0};
+  double want[] = {-3.0, 2.0, -3.0};
+  for (int k = 0; k < 3; k++) {
+    char yaml[512];
+    snprintf(yaml, sizeof yaml,
+             "variables:\n"
+             "  x: {type: normal, mean: 3, sd: 1}\n"
+             "  y: {type: normal, mean: 1, sd: 1}\n"
+             "limit_states:\n"
+             "  a: \"x + y\"\n"
+             "  b: \"x*y\"\n"
+             "analysis: {method: random, samples: 100}\n"
+             "%s",
+             systems[k]);
+    bk_study_t *s;
+    bk_error_t err;
+    int rc = load(yaml, &s, &err);
+    cr_assert_eq(rc, 0, "%d:%d: %s", err.line, err.col, err.msg);
+    cr_assert_eq(s->nmodes, 2);
+    cr_assert_null(s->g);
+    cr_assert_str_eq(s->modes[0].name, "a");
+    cr_assert_str_eq(s->modes[1].name, "b");
+    cr_assert_str_eq(s->modes[1].text, "x*y");
+    cr_assert_eq(s->system, k == 0   ? BK_SYSTEM_SERIES
+                            : k == 1 ? BK_SYSTEM_PARALLEL
+                                     : BK_SYSTEM_EXPR);
+    double gc[2];
+    double g = bk_study_g(s, vals, gc);
+    cr_expect_eq(gc[0], 2.0);
+    cr_expect_eq(gc[1], -3.0);
+    cr_expect_eq(g, want[k], "system %d: g %g, want %g", k, g, want[k]);
+    cr_expect_eq(bk_study_g(s, vals, NULL), g);
+    /* A mode that is not a number makes a series or parallel system not a
+     * number (as min and max do in an expression). */
+    double nanv[2] = {NAN, 1.0};
+    if (k < 2)
+      cr_expect(isnan(bk_study_g(s, nanv, NULL)));
+    bk_study_free(s);
+  }
+}
+
+/* The fingerprint holds each mode's expression and the system. */
+Test(study, fingerprint_holds_the_modes_and_the_system) {
+  const char *yaml[] = {"variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                        "limit_states: {a: \"x\", b: \"x - 1\"}\n",
+                        "variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                        "limit_states: {a: \"x\", b: \"x - 2\"}\n",
+                        "variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                        "limit_states: {a: \"x\", b: \"x - 1\"}\n"
+                        "system: parallel\n"};
+  char *d[3];
+  char text[400];
+  for (int i = 0; i < 3; i++) {
+    bk_study_t *s;
+    bk_error_t err;
+    snprintf(text, sizeof text, "%sanalysis: {method: random, samples: 9}\n",
+             yaml[i]);
+    cr_assert_eq(load(text, &s, &err), 0, "%s", err.msg);
+    d[i] = strdup(s->digest_study);
+    bk_study_free(s);
+  }
+  cr_expect_str_neq(d[0], d[1]);
+  cr_expect_str_neq(d[0], d[2]);
+  for (int i = 0; i < 3; i++)
+    free(d[i]);
+}
+
+Test(study, several_limit_states_refused_with_place_and_reason) {
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "limit_states: {a: x}\n",
+               3, 15,
+               "give either 'limit_state' (one) or 'limit_states' "
+               "(several, by name), not both");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_state: x\n"
+               "system: series\n",
+               3, 9,
+               "'system' combines the entries of 'limit_states'; with one "
+               "'limit_state' leave it out");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {x: \"x - 1\"}\n",
+               2, 16,
+               "limit state name 'x' is already the name of a variable; give "
+               "it another name");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {series: \"x - 1\"}\n",
+               2, 16,
+               "'series' names a kind of system; give the limit state "
+               "another name");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {g: \"x - 1\"}\n",
+               2, 16,
+               "'g' names a column of `brink export`; give the limit state "
+               "another name");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {\"two words\": \"x - 1\"}\n",
+               2, 16,
+               "limit state name 'two words' must start with a letter or "
+               "'_' and hold only letters, digits and '_' (the system "
+               "expression uses it)");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {}\n",
+               2, 15,
+               "limit_states needs at least one entry, e.g. limit_states: "
+               "{bending: \"r - s\"}");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {a: \"x - 1\", b: 5}\n"
+               "system: \"min(a, c)\"\n",
+               3, 17,
+               "system (series, parallel, or an expression over the "
+               "limit_states names): unknown name 'c'; known names: a, b");
+  expect_error("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+               "limit_states: {a: \"x - 1\", b: 5}\n"
+               "system: \"min(a, b)\"\n"
+               "analysis: {method: form}\n",
+               3, 9,
+               "FORM gives first-order bounds for a series or a parallel "
+               "system only; for a system written as an expression use a "
+               "sampling method (random, lhs, sobol) or importance, "
+               "cross-entropy, subset");
+  expect_error_part("variables: {x: {type: normal, mean: 3, sd: 1}}\n"
+                    "limit_states:\n"
+                    "  a: \"x - 1\"\n"
+                    "  b: \"x - yy\"\n",
+                    4, 11, "limit_states.b: unknown name 'yy'");
 }

@@ -160,7 +160,15 @@ static int try_model(const bk_study_t *s, const double *med) {
                             .host = "check"};
   if (rc == 0)
     rc = bk_dispatch_new(&d, &dop);
-  bk_point_t pt = {.index = 0, .x = x, .y = y, .g = NAN, .fault = 0};
+  double gc[BK_STUDY_MAX_MODES];
+  for (size_t i = 0; i < BK_STUDY_MAX_MODES; i++)
+    gc[i] = NAN;
+  bk_point_t pt = {.index = 0,
+                   .x = x,
+                   .y = y,
+                   .g = NAN,
+                   .fault = 0,
+                   .gc = s->nmodes ? gc : NULL};
   if (rc == 0) {
     bk_evaluator_t ev;
     bk_dispatch_evaluator(d, &ev);
@@ -227,8 +235,12 @@ static int try_model(const bk_study_t *s, const double *med) {
       bk_buf_close(&p);
     }
   }
+  int valued = pt.fault == BK_FAULT_NONE || pt.fault == BK_FAULT_NOT_A_NUMBER;
+  for (size_t i = 0; valued && pt.gc && i < s->nmodes; i++)
+    printf("  limit state %s = %.10g (%s)\n", s->modes[i].name, gc[i],
+           gc[i] <= 0 ? "failed at the medians" : "safe at the medians");
   if (pt.fault == BK_FAULT_NONE)
-    printf("  limit state g = %.10g (%s)\n", pt.g,
+    printf("  %s g = %.10g (%s)\n", s->nmodes ? "system" : "limit state", pt.g,
            pt.g <= 0 ? "failed at the medians" : "safe at the medians");
   else {
     exit_code = BK_EXIT_RUNTIME;
@@ -305,10 +317,25 @@ int bk__cmd_check(int argc, char **argv) {
              s->vars[s->corr[i].b].name, s->corr[i].rho,
              bk_transform_rho0(s->transform, s->corr[i].a, s->corr[i].b));
   }
-  printf("\nLimit state (failure when g <= 0)\n  g = %s\n", s->limit_state);
+  double gc[BK_STUDY_MAX_MODES];
+  if (s->nmodes) {
+    printf("\nLimit states (failure when g <= 0)\n");
+    for (size_t i = 0; i < s->nmodes; i++)
+      printf("  %-14s g = %s\n", s->modes[i].name, s->modes[i].text);
+    printf("  system: %s\n",
+           s->system == BK_SYSTEM_SERIES     ? "series (fails when any fails)"
+           : s->system == BK_SYSTEM_PARALLEL ? "parallel (fails when all fail)"
+                                             : s->limit_state);
+  } else {
+    printf("\nLimit state (failure when g <= 0)\n  g = %s\n", s->limit_state);
+  }
   if (!s->model.present) {
-    double g = bk_expr_eval(s->g, med);
-    printf("  at the medians g = %.6g (%s)\n", g, g <= 0 ? "failed" : "safe");
+    double g = bk_study_g(s, med, gc);
+    for (size_t i = 0; i < s->nmodes; i++)
+      printf("  at the medians %s = %.6g (%s)\n", s->modes[i].name, gc[i],
+             gc[i] <= 0 ? "failed" : "safe");
+    printf("  at the medians %s = %.6g (%s)\n", s->nmodes ? "system g" : "g", g,
+           g <= 0 ? "failed" : "safe");
   } else {
     const bk_model_t *m = &s->model;
     printf("\nModel\n  command   ");

@@ -28,7 +28,11 @@ static const char export_help[] =
     "key, the variables, the model outputs, g (named limit_state when a\n"
     "variable or an output is called g), failed (1 when g <= 0), status (ok\n"
     "or the model error kind), attempts, seconds, host, reason (what went\n"
-    "wrong in a model error) and folder (the run folder kept). Missing\n"
+    "wrong in a model error) and folder (the run folder kept). A study with\n"
+    "several limit_states has g (the system's) and then one column per\n"
+    "limit state, named after it, computed from the recorded inputs and\n"
+    "outputs (on a folder the study is found through report.json; give the\n"
+    "study file while a run goes). Missing\n"
     "values are empty cells in CSV and null in JSON lines. Goes to stdout\n"
     "unless -o FILE is given. Safe to use while the study runs.\n"
     "\n"
@@ -42,7 +46,10 @@ typedef struct {
   size_t nx, ny;
   const char *const *xn;
   const char *const *yn;
-  const char *gname; /* "g", or "limit_state" when a column is named g */
+  const char *gname;   /* "g", or "limit_state" when a column is named g */
+  const bk_study_t *s; /* with several limit states, else NULL */
+  double *vals;        /* nx + ny values for the modes */
+  double gc[BK_STUDY_MAX_MODES];
   bk_buf_t line;
 } export_t;
 
@@ -67,10 +74,26 @@ static void csv_num(bk_buf_t *b, double v) {
     bk_buf_put_double(b, v);
 }
 
+/* Each mode's value of record r into e->gc (NaN when the model failed). */
+static void mode_values(export_t *e, const bk_record_t *r) {
+  size_t nm = e->s ? e->s->nmodes : 0;
+  for (size_t k = 0; k < nm; k++)
+    e->gc[k] = NAN;
+  if (!nm || r->nx != e->nx || r->ny != e->ny ||
+      (r->fault != BK_FAULT_NONE && r->fault != BK_FAULT_NOT_A_NUMBER))
+    return;
+  memcpy(e->vals, r->x, r->nx * sizeof *e->vals);
+  if (r->ny)
+    memcpy(e->vals + r->nx, r->y, r->ny * sizeof *e->vals);
+  bk_study_g(e->s, e->vals, e->gc);
+}
+
 static int on_record(void *data, const bk_record_t *r) {
   export_t *e = data;
   bk_buf_t *b = &e->line;
   bk_buf_reset(b);
+  size_t nm = e->s ? e->s->nmodes : 0;
+  mode_values(e, r);
   int failed = r->fault == BK_FAULT_NONE && r->g <= 0;
   if (e->json) {
     bk_buf_puts(b, "{\"key\": ");
@@ -91,6 +114,12 @@ static int on_record(void *data, const bk_record_t *r) {
     bk_json_string(b, e->gname);
     bk_buf_puts(b, ": ");
     bk_json_number(b, r->g);
+    for (size_t k = 0; k < nm; k++) {
+      bk_buf_puts(b, ", ");
+      bk_json_string(b, e->s->modes[k].name);
+      bk_buf_puts(b, ": ");
+      bk_json_number(b, e->gc[k]);
+    }
     bk_buf_printf(b, ", \"failed\": %s, \"status\": ",
                   r->fault ? "null"
                   : failed ? "true"
@@ -117,6 +146,10 @@ static int on_record(void *data, const bk_record_t *r) {
     }
     bk_buf_putc(b, ',');
     csv_num(b, r->g);
+    for (size_t k = 0; k < nm; k++) {
+      bk_buf_putc(b, ',');
+      csv_num(b, e->gc[k]);
+    }
     bk_buf_printf(b, ",%s,%s,%d,",
                   r->fault ? ""
                   : failed ? "1"
@@ -133,6 +166,34 @@ static int on_record(void *data, const bk_record_t *r) {
   }
   if (fwrite(b->data, 1, b->len, e->f) != b->len)
     return -EIO;
+  return 0;
+}
+
+/* The study named in folder/report.json when it has several limit states
+ * and loads; else NULL (then no mode columns). Quiet: the records export
+ * without it. */
+static bk_study_t *study_of_folder(const char *folder) {
+  char *path = NULL;
+  if (bk_report_study_path(folder, &path))
+    return NULL;
+  bk_study_t *s = NULL;
+  bk_error_t err;
+  bk_error_clear(&err);
+  if (bk_study_load(path, &s, &err) == 0 && !s->nmodes) {
+    bk_study_free(s);
+    s = NULL;
+  }
+  bk_free(path);
+  return s;
+}
+
+/* Is the log made by study s (its study fingerprint)? */
+static int made_by(const bk_records_t *rec, const bk_study_t *s) {
+  size_t n;
+  const bk_fingerprint_part_t *p = bk_records_parts(rec, &n);
+  for (size_t i = 0; i < n; i++)
+    if (strcmp(p[i].name, "study") == 0)
+      return strcmp(p[i].digest, s->digest_study) == 0;
   return 0;
 }
 
@@ -170,6 +231,7 @@ int bk__cmd_export(int argc, char **argv) {
                                "give the run folder or the study file, e.g. "
                                "brink export runs/NAME --csv");
   char *folder;
+  bk_study_t *study = NULL; /* kept for several limit states */
   if (is_regular_file(target)) {
     bk_study_t *s;
     int rc = bk__cli_load_study(target, &s);
@@ -185,9 +247,13 @@ int bk__cmd_export(int argc, char **argv) {
       return BK_EXIT_USAGE;
     }
     folder = bk_strdup(s->run.folder);
-    bk_study_free(s);
+    if (s->nmodes)
+      study = s;
+    else
+      bk_study_free(s);
   } else {
     folder = bk_strdup(target);
+    study = study_of_folder(folder);
   }
   bk_records_t *rec = NULL;
   bk_error_t err;
@@ -203,6 +269,7 @@ int bk__cmd_export(int argc, char **argv) {
     else
       bk__cli_print_error(&err);
     bk_free(folder);
+    bk_study_free(study);
     return bk_error_exit(rc);
   }
   export_t e;
@@ -210,6 +277,11 @@ int bk__cmd_export(int argc, char **argv) {
   e.json = json;
   bk_records_columns(rec, &e.nx, &e.xn, &e.ny, &e.yn);
   e.gname = "g";
+  if (study && made_by(rec, study) && e.nx == study->nvars &&
+      e.ny == study->model.noutputs) {
+    e.vals = bk_calloc(e.nx + e.ny + 1, sizeof *e.vals);
+    e.s = e.vals ? study : NULL;
+  }
   for (size_t i = 0; i < e.nx + e.ny; i++)
     if (strcmp(i < e.nx ? e.xn[i] : e.yn[i - e.nx], "g") == 0)
       e.gname = "limit_state";
@@ -231,9 +303,13 @@ int bk__cmd_export(int argc, char **argv) {
       bk_buf_putc(&e.line, ',');
       csv_text(&e.line, e.yn[i]);
     }
-    bk_buf_printf(&e.line,
-                  ",%s,failed,status,attempts,seconds,host,reason,folder\n",
-                  e.gname);
+    bk_buf_printf(&e.line, ",%s", e.gname);
+    for (size_t k = 0; e.s && k < e.s->nmodes; k++) {
+      bk_buf_putc(&e.line, ',');
+      csv_text(&e.line, e.s->modes[k].name);
+    }
+    bk_buf_puts(&e.line,
+                ",failed,status,attempts,seconds,host,reason,folder\n");
     fwrite(e.line.data, 1, e.line.len, e.f);
   }
   rc = bk_records_scan(rec, on_record, &e);
@@ -250,5 +326,7 @@ int bk__cmd_export(int argc, char **argv) {
 done:
   bk_records_close(rec);
   bk_free(folder);
+  bk_free(e.vals);
+  bk_study_free(study);
   return exit_code;
 }

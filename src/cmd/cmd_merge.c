@@ -257,7 +257,7 @@ int bk__cmd_merge(int argc, char **argv) {
   }
   uint64_t *missing = bk_calloc(ss.count, sizeof *missing);
   char(*first)[96] = bk_calloc(ss.count, sizeof *first);
-  bk_serve_t sv = {s, ss.logs, ss.nlogs, ss.count, missing, first, 0};
+  bk_serve_t sv = {s, ss.logs, ss.nlogs, ss.count, missing, first, 0, 0};
   bk_evaluator_t ev;
   bk_serve_evaluator(&sv, &ev);
   bk_method_opts_t opts = {NULL, NULL, shard_reason, &ss};

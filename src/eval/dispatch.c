@@ -652,7 +652,7 @@ static void extract_outputs(job_t *j, char *why, size_t whycap) {
   memcpy(d->vals, pt->x, s->nvars * sizeof *d->vals);
   if (s->model.noutputs)
     memcpy(d->vals + s->nvars, pt->y, s->model.noutputs * sizeof *d->vals);
-  pt->g = bk_expr_eval(s->g, d->vals);
+  pt->g = bk_study_g(s, d->vals, pt->gc);
   if (isnan(pt->g)) {
     pt->fault = BK_FAULT_NOT_A_NUMBER;
     snprintf(why, whycap,

@@ -15,7 +15,7 @@ static int inprocess_batch(bk_evaluator_t *ev, const char *prefix,
   (void)err;
   const bk_study_t *s = ev->data;
   for (size_t i = 0; i < n; i++) {
-    double g = bk_expr_eval(s->g, pts[i].x);
+    double g = bk_study_g(s, pts[i].x, pts[i].gc);
     pts[i].g = g;
     pts[i].fault = isnan(g) ? BK_FAULT_NOT_A_NUMBER : BK_FAULT_NONE;
   }

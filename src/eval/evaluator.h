@@ -20,13 +20,18 @@
 #include "study/study.h"
 
 /* One evaluation of a batch. The method fills index and x; the evaluator
- * fills y, g and fault. */
+ * fills y, g and fault. With several limit states g is the system's, and
+ * gc (nmodes values, NULL for one limit state) each mode's: an evaluator
+ * may fill it, and the method context (mctx.h) recomputes it from x and y
+ * after every batch, so that replayed points, which carry only the
+ * recorded g, have it too. */
 typedef struct {
   uint64_t index; /* the key is PREFIX/index */
   double *x;      /* nvars physical inputs */
   double *y;      /* noutputs extracted outputs (may be NULL if none) */
   double g;       /* limit-state value; NaN on a fault */
   int fault;      /* bk_fault_t */
+  double *gc;     /* the modes' values (several limit states), or NULL */
 } bk_point_t;
 
 typedef struct bk_evaluator bk_evaluator_t;

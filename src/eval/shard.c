@@ -227,6 +227,24 @@ static int serve_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
       return found;
     if (found) {
       sv->served++;
+      if (sv->recompute) {
+        bk_point_t *p = &pts[i];
+        if (p->fault == BK_FAULT_NONE || p->fault == BK_FAULT_NOT_A_NUMBER) {
+          double vals[512];
+          double *v = s->nvars + s->model.noutputs <= 512
+                          ? vals
+                          : bk_calloc(s->nvars + s->model.noutputs, sizeof *v);
+          if (!v)
+            return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+          memcpy(v, p->x, s->nvars * sizeof *v);
+          if (s->model.noutputs)
+            memcpy(v + s->nvars, p->y, s->model.noutputs * sizeof *v);
+          p->g = bk_study_g(s, v, p->gc);
+          p->fault = isnan(p->g) ? BK_FAULT_NOT_A_NUMBER : BK_FAULT_NONE;
+          if (v != vals)
+            bk_free(v);
+        }
+      }
       continue;
     }
     uint32_t owner = sv->count ? (uint32_t)(pts[i].index % sv->count) : 0;

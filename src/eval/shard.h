@@ -90,6 +90,10 @@ typedef struct {
   uint64_t *missing;
   char (*first)[96];
   uint64_t served;
+  /* A re-analysis: g of each served point is computed again from its
+   * recorded inputs and outputs with the study's (changed) limit states,
+   * instead of the recorded g. */
+  int recompute;
 } bk_serve_t;
 
 void bk_serve_evaluator(bk_serve_t *sv, bk_evaluator_t *ev);

@@ -28,8 +28,10 @@ void bk_mctx_close(bk_mctx_t *m) {
   bk_free(m->pts);
   bk_free(m->xs);
   bk_free(m->ys);
+  bk_free(m->gcs);
+  bk_free(m->vals);
   m->pts = NULL;
-  m->xs = m->ys = NULL;
+  m->xs = m->ys = m->gcs = m->vals = NULL;
   m->cap = 0;
 }
 
@@ -42,13 +44,17 @@ int bk_mctx_reserve(bk_mctx_t *m, size_t n) {
   m->pts = bk_calloc(n, sizeof *m->pts);
   m->xs = bk_calloc(n * nv, sizeof *m->xs);
   m->ys = ny ? bk_calloc(n * ny, sizeof *m->ys) : NULL;
-  if (!m->pts || !m->xs || (ny && !m->ys)) {
+  size_t nm = s->nmodes;
+  m->gcs = nm ? bk_calloc(n * nm, sizeof *m->gcs) : NULL;
+  m->vals = nm ? bk_calloc(nv + ny, sizeof *m->vals) : NULL;
+  if (!m->pts || !m->xs || (ny && !m->ys) || (nm && (!m->gcs || !m->vals))) {
     bk_mctx_close(m);
     return bk_mctx_nomem(m);
   }
   for (size_t i = 0; i < n; i++) {
     m->pts[i].x = m->xs + i * nv;
     m->pts[i].y = ny ? m->ys + i * ny : NULL;
+    m->pts[i].gc = nm ? m->gcs + i * nm : NULL;
   }
   m->cap = n;
   return 0;
@@ -107,6 +113,25 @@ static int error_limit(bk_mctx_t *m, int final) {
       (unsigned long long)m->nfault[f], m->first_fault[f], note);
 }
 
+/* Each mode's value at the points of the batch, from x and y. A point whose
+ * model failed has no outputs: its modes are NaN. */
+static void mode_values(bk_mctx_t *m, size_t n) {
+  const bk_study_t *s = m->s;
+  size_t nx = s->nvars, ny = s->model.noutputs;
+  for (size_t i = 0; i < n; i++) {
+    bk_point_t *p = &m->pts[i];
+    if (p->fault != BK_FAULT_NONE && p->fault != BK_FAULT_NOT_A_NUMBER) {
+      for (size_t k = 0; k < s->nmodes; k++)
+        p->gc[k] = NAN;
+      continue;
+    }
+    memcpy(m->vals, p->x, nx * sizeof *m->vals);
+    if (ny)
+      memcpy(m->vals + nx, p->y, ny * sizeof *m->vals);
+    bk_study_g(s, m->vals, p->gc);
+  }
+}
+
 int bk_mctx_evaluate(bk_mctx_t *m, const char *prefix, size_t n) {
   bk_method_stage(prefix, m->stage, sizeof m->stage);
   m->batch_first = m->n;
@@ -117,6 +142,8 @@ int bk_mctx_evaluate(bk_mctx_t *m, const char *prefix, size_t n) {
   if (rc)
     return rc;
   const bk_study_t *s = m->s;
+  if (s->nmodes)
+    mode_values(m, n);
   for (size_t i = 0; i < n; i++) {
     const bk_point_t *p = &m->pts[i];
     m->n++;
@@ -149,6 +176,27 @@ double bk_mctx_g(const bk_mctx_t *m, size_t i) {
   if (p->fault == BK_FAULT_NONE)
     return p->g;
   return m->s->model.on_error == BK_ON_ERROR_FAIL ? -INFINITY : NAN;
+}
+
+double bk_mctx_gc(const bk_mctx_t *m, size_t i, size_t k) {
+  const bk_point_t *p = &m->pts[i];
+  double g = p->gc[k];
+  if (p->fault != BK_FAULT_NONE && p->fault != BK_FAULT_NOT_A_NUMBER)
+    g = NAN;
+  if (!isnan(g))
+    return g;
+  return m->s->model.on_error == BK_ON_ERROR_FAIL ? -INFINITY : NAN;
+}
+
+uint32_t bk_mctx_mode_failures(const bk_mctx_t *m, size_t i) {
+  const bk_point_t *p = &m->pts[i];
+  uint32_t bits = 0;
+  if (!p->gc ||
+      (p->fault != BK_FAULT_NONE && p->fault != BK_FAULT_NOT_A_NUMBER))
+    return 0;
+  for (size_t k = 0; k < m->s->nmodes && k < 32; k++)
+    bits |= (uint32_t)(p->gc[k] <= 0) << k;
+  return bits;
 }
 
 void bk_mctx_progress(bk_mctx_t *m) {

@@ -48,7 +48,7 @@ typedef struct {
   char stage[96];       /* the batch under way in words */
   uint64_t batch_first; /* evaluations before it */
   uint64_t batch_size;  /* its size; 0 between batches */
-  double *xs, *ys;
+  double *xs, *ys, *gcs, *vals;
   uint64_t nfault[BK_FAULT__COUNT];
   char first_fault[BK_FAULT__COUNT][96]; /* the first key of each kind */
 } bk_mctx_t;
@@ -73,13 +73,24 @@ void bk_mctx_set_u(bk_mctx_t *m, size_t i, uint64_t index, const double *u);
  * the key), checks for a stop (BK_ESTOPPED) and the error limit
  * (BK_EMODEL). Returns 0 with each point's g and fault filled, or a
  * negative code with err set (the batch must not be used). The batch is
- * announced to the progress callback (its stage) before it runs. */
+ * announced to the progress callback (its stage) before it runs. With
+ * several limit states each point's gc is then recomputed from its x and
+ * y (bk_study_g), whoever evaluated or replayed it. */
 int bk_mctx_evaluate(bk_mctx_t *m, const char *prefix, size_t n);
 
 /* The limit-state value of point i for an estimate, after the on_error
  * policy: g, or for a point with a model error NaN (skip: left out) or
  * -INFINITY (fail: counted as failed). */
 double bk_mctx_g(const bk_mctx_t *m, size_t i);
+
+/* With several limit states: mode k's value at point i after the on_error
+ * policy, as bk_mctx_g. A model error, or a mode that is not a number at
+ * the point, is a fault of that mode: NaN (skip) or -INFINITY (fail). */
+double bk_mctx_gc(const bk_mctx_t *m, size_t i, size_t k);
+
+/* With several limit states: bit k set when mode k fails at point i (no
+ * fault and its value <= 0); 0 for one limit state. */
+uint32_t bk_mctx_mode_failures(const bk_mctx_t *m, size_t i);
 
 /* Reports progress (res as it stands) to the caller's callback. */
 void bk_mctx_progress(bk_mctx_t *m);

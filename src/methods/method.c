@@ -29,8 +29,14 @@ static int run_method(const bk_study_t *s, bk_evaluator_t *ev,
     return bk__method_cross_entropy(s, ev, opts, res, err);
   case BK_METHOD_SUBSET:
     return bk__method_subset(s, ev, opts, res, err);
-  case BK_METHOD_SURROGATE:
-    return bk__method_surrogate(s, ev, opts, res, err);
+  case BK_METHOD_SURROGATE: {
+    int rc = bk__method_surrogate(s, ev, opts, res, err);
+    if (rc == 0 && s->nmodes)
+      rc = bk__system_surrogate(res, s);
+    if (rc == BK_ENOMEM)
+      bk_error_set(err, rc, NULL, 0, 0, "out of memory");
+    return rc;
+  }
   default:
     return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
                         "method %s is not available in this version",

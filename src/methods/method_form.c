@@ -1443,6 +1443,8 @@ out:
 int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,
                     const bk_method_opts_t *opts, bk_result_t *res,
                     bk_error_t *err) {
+  if (s->nmodes) /* several limit states: system.c */
+    return bk__system_form(s, ev, opts, res, err);
   bk_mctx_t m;
   bk_mctx_init(&m, s, ev, opts, res, err);
   int rc = bk__form_search(&m, NULL);

@@ -43,6 +43,27 @@ void bk__design_points_close(bk__design_points_t *dps);
  * negative code with m->err set. */
 int bk__form_search(bk_mctx_t *m, bk__design_points_t *out);
 
+/* FORM of a system of several limit states (system.c): a design point per
+ * mode and the system's first-order bounds. */
+int bk__system_form(const bk_study_t *s, bk_evaluator_t *ev,
+                    const bk_method_opts_t *opts, bk_result_t *res,
+                    bk_error_t *err);
+
+/* Subset simulation of several limit states (system.c): with a series
+ * system every mode's failure domain lies in the system's, so P(F_k) =
+ * P(F_sys) P(F_k | F_sys), the second factor from the last level's
+ * points with g <= 0 (values g, failing modes fm; chain c at rows off[c]
+ * .. off[c] + len[c] - 1); other systems get a
+ * note saying why their modes are not estimated. Reads res->est (the
+ * system's). Returns 0 or BK_ENOMEM. */
+int bk__system_subset(bk_result_t *res, const bk_study_t *s, const double *g,
+                      const uint32_t *fm, const size_t *off, const size_t *len,
+                      size_t nchains);
+
+/* The surrogate method learns the system's g alone (system.c): its modes
+ * are listed as not estimated, with a note. Returns 0 or BK_ENOMEM. */
+int bk__system_surrogate(bk_result_t *res, const bk_study_t *s);
+
 /* The other methods, one file each. */
 int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,
                     const bk_method_opts_t *opts, bk_result_t *res,

@@ -12,6 +12,11 @@
  * MIN_FAILURES failures, and for lhs and sobol failures in at least
  * MIN_FAILING_REPLICATES replicates.
  *
+ * Several limit states: every mode is counted on the same evaluations as
+ * the system, with the same error bar, so a mode's estimate is bit for bit
+ * the one a study of that mode alone makes with the same seed and design
+ * (stopping rules look at the system only).
+ *
  * SPDX-License-Identifier: MIT
  */
 #include <math.h>
@@ -61,7 +66,35 @@ typedef struct {
   uint64_t n, k, e;
   /* Over the whole run. */
   uint64_t total_n, total_k, total_e;
+  /* Several limit states: the same counts per mode, and the system
+   * failures in which the mode fails too. */
+  struct mode_count {
+    uint64_t n, k, e, total_n, total_k, total_e, both;
+  } * modes;
 } mc_t;
+
+/* Adds point i of the batch to the counts of each mode. */
+static void count_modes(mc_t *m, size_t i) {
+  const bk_point_t *p = &m->ctx.pts[i];
+  int sys_fails = p->fault == BK_FAULT_NONE && p->g <= 0;
+  for (size_t j = 0; j < m->s->nmodes; j++) {
+    struct mode_count *c = &m->modes[j];
+    double g = p->gc[j];
+    int fault =
+        (p->fault != BK_FAULT_NONE && p->fault != BK_FAULT_NOT_A_NUMBER) ||
+        isnan(g);
+    if (fault) {
+      c->e++;
+      c->total_e++;
+    } else if (g <= 0) {
+      c->k++;
+      c->total_k++;
+      c->both += sys_fails;
+    }
+    c->n++;
+    c->total_n++;
+  }
+}
 
 /* Evaluates points [from, to) of sampler `sp` under key prefix `prefix`,
  * adding to the counts. */
@@ -92,6 +125,8 @@ static int run_range(mc_t *m, const bk_sampler_t *sp, const char *prefix,
       }
       m->n++;
       m->total_n++;
+      if (m->modes)
+        count_modes(m, i);
     }
     from += n;
   }
@@ -125,6 +160,45 @@ static void fill_common(mc_t *m) {
   }
 }
 
+/* Each mode's estimate as the system's: binomial (random) or from the
+ * replicates (lhs, sobol; replicate j just completed when j >= 0). */
+static void mode_estimates(mc_t *m, int32_t j) {
+  bk_result_t *r = m->res;
+  const bk_analysis_t *a = &m->s->analysis;
+  for (size_t i = 0; m->modes && i < r->ncomponents; i++) {
+    struct mode_count *c = &m->modes[i];
+    bk_component_t *cp = &r->components[i];
+    uint64_t n, k, tn, tk;
+    policy_counts(m, c->total_n, c->total_k, c->total_e, &tn, &tk);
+    if (j < 0) {
+      bk_estimate_binomial(tn, tk, a->ci_level, &cp->est);
+    } else {
+      policy_counts(m, c->n, c->k, c->e, &n, &k);
+      cp->replicate_pf[j] = n ? (double)k / (double)n : NAN;
+      bk_estimate_replicates(cp->replicate_pf, (size_t)j + 1, r->per_replicate,
+                             tk, a->ci_level, &cp->est);
+      cp->est.n = tn;
+    }
+    cp->present = 1;
+    cp->model_errors = c->total_e;
+    cp->excluded = m->s->model.on_error == BK_ON_ERROR_FAIL ? 0 : c->total_e;
+    cp->system_failures = c->both;
+    double nn = (double)c->total_n;
+    if (c->total_n && cp->excluded) {
+      cp->pf_bounds[0] = (double)c->total_k / nn;
+      cp->pf_bounds[1] = (double)(c->total_k + c->total_e) / nn;
+    } else {
+      cp->pf_bounds[0] = cp->pf_bounds[1] = cp->est.pf;
+    }
+  }
+}
+
+/* Starts each scope's counts of the modes again (a new replicate). */
+static void modes_new_scope(mc_t *m) {
+  for (size_t i = 0; m->modes && i < m->s->nmodes; i++)
+    m->modes[i].n = m->modes[i].k = m->modes[i].e = 0;
+}
+
 static int run_random(mc_t *m) {
   const bk_analysis_t *a = &m->s->analysis;
   bk_sampler_t sp;
@@ -150,6 +224,7 @@ static int run_random(mc_t *m) {
     policy_counts(m, m->n, m->k, m->e, &n, &k);
     bk_estimate_binomial(n, k, a->ci_level, &r->est);
     fill_common(m);
+    mode_estimates(m, -1);
     if ((rc = bk_result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
     bk_mctx_progress(&m->ctx);
@@ -192,6 +267,7 @@ static int run_replicated(mc_t *m) {
                           "cannot set up the %s design for %zu variables",
                           is_lhs ? "Latin hypercube" : "Sobol", m->nu);
     m->n = m->k = m->e = 0;
+    modes_new_scope(m);
     if ((rc = run_range(m, &sp, prefix, 0, per)))
       return rc;
     uint64_t n, k;
@@ -205,6 +281,7 @@ static int run_replicated(mc_t *m) {
                            &r->est);
     r->est.n = tn;
     fill_common(m);
+    mode_estimates(m, (int32_t)j);
     if ((rc = bk_result_push_history(r)))
       return bk_error_set(m->err, rc, NULL, 0, 0, "out of memory");
     bk_mctx_progress(&m->ctx);
@@ -253,6 +330,18 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
   }
   if ((rc = bk_mctx_reserve(&m.ctx, m.chunk)))
     goto out;
+  if (s->nmodes) {
+    const char *names[BK_STUDY_MAX_MODES];
+    for (size_t i = 0; i < s->nmodes; i++)
+      names[i] = s->modes[i].name;
+    m.modes = bk_calloc(s->nmodes, sizeof *m.modes);
+    uint32_t reps =
+        s->analysis.method == BK_METHOD_RANDOM ? 0 : s->analysis.replicates;
+    if (!m.modes || bk_result_components(res, names, s->nmodes, reps)) {
+      rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
+      goto out;
+    }
+  }
   if (s->analysis.method == BK_METHOD_RANDOM)
     rc = run_random(&m);
   else
@@ -262,5 +351,6 @@ int bk__method_mc(const bk_study_t *s, bk_evaluator_t *ev,
 out:
   bk_mctx_close(&m.ctx);
   bk_free(m.u);
+  bk_free(m.modes);
   return rc;
 }

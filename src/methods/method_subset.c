@@ -98,6 +98,7 @@
 typedef struct {
   double *u, *g;
   size_t *off, *len;
+  uint32_t *fm; /* several limit states: the modes failing at each point */
 } level_t;
 
 static int level_alloc(level_t *l, size_t N, size_t nu) {
@@ -105,7 +106,8 @@ static int level_alloc(level_t *l, size_t N, size_t nu) {
   l->g = bk_calloc(N, sizeof *l->g);
   l->off = bk_calloc(N, sizeof *l->off);
   l->len = bk_calloc(N, sizeof *l->len);
-  return l->u && l->g && l->off && l->len ? 0 : BK_ENOMEM;
+  l->fm = bk_calloc(N, sizeof *l->fm);
+  return l->u && l->g && l->off && l->len && l->fm ? 0 : BK_ENOMEM;
 }
 
 static void level_free(level_t *l) {
@@ -113,6 +115,7 @@ static void level_free(level_t *l) {
   bk_free(l->g);
   bk_free(l->off);
   bk_free(l->len);
+  bk_free(l->fm);
 }
 
 /* One run: the current level, with nchains chains, and the next one being
@@ -255,6 +258,7 @@ static int level0(ss_t *m) {
     return rc;
   for (size_t i = 0; i < N; i++) {
     m->cur.g[i] = c->pts[i].g;
+    m->cur.fm[i] = bk_mctx_mode_failures(c, i);
     if (c->pts[i].fault != BK_FAULT_NONE) {
       m->e0++;
       m->out0[i] = !m->fail_mode;
@@ -357,6 +361,7 @@ static size_t seed_chains(ss_t *m, size_t ns, uint32_t *par) {
     memcpy(m->nx.u + o * nu, m->cur.u + m->seedpos[c] * nu,
            nu * sizeof *m->cur.u);
     m->nx.g[o] = m->cur.g[m->seedpos[c]];
+    m->nx.fm[o] = m->cur.fm[m->seedpos[c]];
     o += m->nx.len[c];
   }
   for (size_t d = 0; d < nu; d++) {
@@ -415,10 +420,12 @@ static int chain_step(ss_t *m, double b, size_t ns, size_t step, size_t *acc,
     if (ok) {
       memcpy(m->nx.u + at * nu, m->prop + i * nu, nu * sizeof *m->nx.u);
       m->nx.g[at] = p->g;
+      m->nx.fm[at] = bk_mctx_mode_failures(c, i);
       (*acc)++;
     } else {
       memcpy(m->nx.u + at * nu, m->nx.u + (at - 1) * nu, nu * sizeof *m->nx.u);
       m->nx.g[at] = m->nx.g[at - 1];
+      m->nx.fm[at] = m->nx.fm[at - 1];
     }
   }
   *np = n;
@@ -593,6 +600,10 @@ static int fill_estimate(ss_t *m) {
   }
   e->n = m->ctx.n;
   e->failures = m->nf;
+  /* Several limit states: each mode from the last level's failures. */
+  if (s->nmodes && bk__system_subset(res, s, m->cur.g, m->cur.fm, m->cur.off,
+                                     m->cur.len, m->nchains) == BK_ENOMEM)
+    return bk_mctx_nomem(&m->ctx);
   res->excluded = m->fail_mode ? 0 : m->e0;
   res->pf_bounds[0] = res->pf_bounds[1] = e->pf;
   if (m->e0 && !m->fail_mode && m->p_first > 0) {

@@ -30,6 +30,13 @@ void bk_result_close(bk_result_t *r) {
   for (size_t i = 0; i < r->nerror_runs; i++)
     bk_free(r->error_runs[i].x);
   bk_free(r->error_runs);
+  for (size_t i = 0; i < r->ncomponents; i++) {
+    bk_free(r->components[i].replicate_pf);
+    bk_free(r->components[i].dp.u);
+    bk_free(r->components[i].dp.x);
+    bk_free(r->components[i].dp.alpha2);
+  }
+  bk_free(r->components);
   memset(r, 0, sizeof *r);
 }
 
@@ -114,5 +121,25 @@ int bk_result_push_history(bk_result_t *r) {
   h->pf = r->est.pf;
   h->ci[0] = r->est.ci[0];
   h->ci[1] = r->est.ci[1];
+  return 0;
+}
+
+int bk_result_components(bk_result_t *r, const char *const *names, size_t n,
+                         uint32_t replicates) {
+  if (r->ncomponents)
+    return 0;
+  bk_component_t *c = bk_calloc(n ? n : 1, sizeof *c);
+  if (!c)
+    return BK_ENOMEM;
+  r->components = c;
+  r->ncomponents = n;
+  for (size_t i = 0; i < n; i++) {
+    c[i].name = names[i];
+    c[i].est.pf = c[i].est.beta = c[i].est.cov = NAN;
+    c[i].system_failures = UINT64_MAX;
+    if (replicates &&
+        !(c[i].replicate_pf = bk_calloc(replicates, sizeof *c[i].replicate_pf)))
+      return BK_ENOMEM;
+  }
   return 0;
 }

@@ -53,6 +53,28 @@ typedef struct {
 /* How many model errors a result lists (the first ones, in evaluation
  * order; all are counted in model_errors). */
 #define BK_RESULT_ERROR_RUNS 20
+/* One limit state of several (a failure mode), estimated from the same
+ * evaluations as the system. */
+typedef struct {
+  const char *name; /* the study's name of the mode (lives with the study) */
+  int present;      /* the method estimated this mode */
+  bk_estimate_t est;
+  uint64_t model_errors;    /* evaluations where the mode has no value */
+  uint64_t excluded;        /* of those, left out (on_error: skip) */
+  double pf_bounds[2];      /* excluded runs taken as safe / as failed */
+  double *replicate_pf;     /* lhs, sobol: the result's replicates values */
+  uint64_t system_failures; /* system failures in which this mode fails
+                               too; UINT64_MAX when not counted */
+  /* FORM: the mode's design point; beta and pf_form also in est. */
+  bk_design_point_t dp;
+} bk_component_t;
+
+/* First-order bounds on the system's Pf from the modes' FORM results. */
+typedef struct {
+  int present;
+  double simple[2];    /* unimodal bounds */
+  double ditlevsen[2]; /* bimodal bounds (Ditlevsen 1979) */
+} bk_system_bounds_t;
 
 /* What a method reports back. Owned by the caller; bk_result_close frees
  * the arrays. */
@@ -83,6 +105,14 @@ typedef struct {
   size_t ndetails;
   bk_error_run_t *error_runs; /* the first BK_RESULT_ERROR_RUNS */
   size_t nerror_runs;
+  /* Several limit states: each mode's estimate (ncomponents = 0 for one
+   * limit state, or when the method cannot estimate the modes). */
+  bk_component_t *components;
+  size_t ncomponents;
+  bk_system_bounds_t bounds;
+  /* A re-analysis of recorded evaluations (`brink report --limit-state`):
+   * what was changed, NULL for a run. */
+  const char *reanalysis;
 } bk_result_t;
 
 void bk_result_close(bk_result_t *r);
@@ -102,6 +132,10 @@ int bk_result_detail(bk_result_t *r, const char *label, double value);
  * 63 bytes a label holds. */
 int bk_result_detailf(bk_result_t *r, double value, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));
+/* Sets up n components with the given names, each with room for
+ * `replicates` replicate values (0: none). Returns 0 or BK_ENOMEM. */
+int bk_result_components(bk_result_t *r, const char *const *names, size_t n,
+                         uint32_t replicates);
 /* Allocates dp's arrays for nu and nvars; returns 0 or BK_ENOMEM. */
 int bk_result_design_point(bk_result_t *r, size_t nu, size_t nvars);
 

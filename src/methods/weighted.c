@@ -38,6 +38,28 @@ static void add_point(bk_mctx_t *m, bk_weighted_t *w, size_t i, double logw,
   bk_estimate_wsum_add(&w->hi, faulted ? logw : v);
   if (!faulted && w->seen)
     w->seen(w->data, p->index, u, g);
+  for (size_t k = 0; w->mode_est && k < m->s->nmodes; k++) {
+    double gk = bk_mctx_gc(m, i, k);
+    int fk = isnan(p->gc[k]) ||
+             (p->fault != BK_FAULT_NONE && p->fault != BK_FAULT_NOT_A_NUMBER);
+    w->mode_errors[k] += fk;
+    if (!(fk && isnan(gk)))
+      bk_estimate_wsum_add(&w->mode_est[k], gk <= 0 ? logw : -INFINITY);
+  }
+}
+
+/* Each mode's estimate as it stands. */
+static void fill_modes(const bk_mctx_t *m, const bk_weighted_t *w) {
+  bk_result_t *r = m->res;
+  for (size_t k = 0; w->mode_est && k < r->ncomponents; k++) {
+    bk_component_t *c = &r->components[k];
+    bk_estimate_weighted(&w->mode_est[k], m->s->analysis.ci_level, &c->est);
+    c->present = 1;
+    c->model_errors = w->mode_errors[k];
+    c->excluded =
+        m->s->model.on_error == BK_ON_ERROR_FAIL ? 0 : w->mode_errors[k];
+    c->pf_bounds[0] = c->pf_bounds[1] = c->est.pf;
+  }
 }
 
 /* The estimate and its bounds as they stand. */
@@ -77,6 +99,20 @@ int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
     rc = bk_mctx_nomem(m);
     goto out;
   }
+  if (m->s->nmodes) {
+    const char *names[BK_STUDY_MAX_MODES];
+    for (size_t k = 0; k < m->s->nmodes; k++)
+      names[k] = m->s->modes[k].name;
+    w->mode_est = bk_calloc(m->s->nmodes, sizeof *w->mode_est);
+    w->mode_errors = bk_calloc(m->s->nmodes, sizeof *w->mode_errors);
+    if (!w->mode_est || !w->mode_errors ||
+        bk_result_components(res, names, m->s->nmodes, 0)) {
+      rc = bk_mctx_nomem(m);
+      goto out;
+    }
+    for (size_t k = 0; k < m->s->nmodes; k++)
+      bk_estimate_wsum_init(&w->mode_est[k]);
+  }
   res->stop_reason = "max_evaluations reached before target_cov";
   uint64_t next = 0;
   while (m->n < a->max_evaluations) {
@@ -93,6 +129,7 @@ int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
         add_point(m, w, i, logw[i], us + i * m->nu);
     }
     fill_result(m, w);
+    fill_modes(m, w);
     if ((rc = bk_result_push_history(res))) {
       rc = bk_mctx_nomem(m);
       goto out;
@@ -109,5 +146,9 @@ int bk_weighted_run(bk_mctx_t *m, bk_weighted_t *w) {
 out:
   bk_free(us);
   bk_free(logw);
+  bk_free(w->mode_est);
+  bk_free(w->mode_errors);
+  w->mode_est = NULL;
+  w->mode_errors = NULL;
   return rc;
 }

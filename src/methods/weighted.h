@@ -13,6 +13,13 @@
  * point's weight is known, so res->pf_bounds are exact for this phase:
  * the faulted points taken as safe, then as failed.
  *
+ * Several limit states: the same points and weights give each mode's
+ * estimate, mean of w I(g_k <= 0), unbiased wherever the sampling density
+ * covers the mode's failure domain (the defensive mixture of importance
+ * sampling and the Gaussian mixtures of cross-entropy are positive
+ * everywhere), though it may be poor for a mode whose failures lie away
+ * from the system's; its cov says how poor.
+ *
  * SPDX-License-Identifier: MIT
  */
 #ifndef BK_WEIGHTED_H
@@ -55,6 +62,10 @@ struct bk_weighted {
                                 without a fault */
   uint64_t n;                /* points evaluated in this phase */
   uint64_t errors;           /* of those, with a fault */
+  /* Private: several limit states, the same estimator per mode (the same
+   * weights and points, the mode's indicator), into res->components. */
+  bk_estimate_wsum_t *mode_est;
+  uint64_t *mode_errors;
 };
 
 /* Draws points [first, first + n) with `draw` into rows of us (n * nu) and

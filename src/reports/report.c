@@ -200,6 +200,86 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     }
     bk_buf_puts(o, "}}");
   }
+  if (s->nmodes) {
+    key(o, "system", &first);
+    bk_json_string(o, s->limit_state);
+  }
+  if (r->ncomponents) {
+    key(o, "components", &first);
+    bk_buf_putc(o, '{');
+    for (size_t i = 0; i < r->ncomponents; i++) {
+      const bk_component_t *c = &r->components[i];
+      bk_buf_puts(o, i ? ",\n    " : "\n    ");
+      bk_json_string(o, c->name);
+      bk_buf_puts(o, ": {\"limit_state\": ");
+      bk_json_string(o, i < s->nmodes ? s->modes[i].text : "");
+      if (i >= s->nsystem || s->system == BK_SYSTEM_SINGLE)
+        bk_buf_puts(o, ", \"in_system\": false");
+      if (!c->present) {
+        bk_buf_puts(o, ", \"estimated\": false}");
+        continue;
+      }
+      bk_buf_puts(o, ", \"pf\": ");
+      bk_json_number(o, c->est.pf);
+      bk_buf_puts(o, ", \"beta\": ");
+      bk_json_number(o, c->est.beta);
+      bk_buf_puts(o, ", \"cov\": ");
+      bk_json_number(o, c->est.cov);
+      bk_buf_puts(o, ", \"ci\": ");
+      pair(o, c->est.ci);
+      bk_buf_puts(o, ", \"ci_method\": ");
+      bk_json_string(o, c->est.ci_method ? c->est.ci_method : "none");
+      bk_buf_puts(o, ", \"beta_ci\": ");
+      pair(o, c->est.beta_ci);
+      bk_buf_printf(o, ", \"failures\": %llu, \"model_errors\": %llu",
+                    (unsigned long long)c->est.failures,
+                    (unsigned long long)c->model_errors);
+      if (c->excluded) {
+        bk_buf_printf(o, ", \"excluded\": %llu, \"pf_bounds\": ",
+                      (unsigned long long)c->excluded);
+        pair(o, c->pf_bounds);
+      }
+      if (c->system_failures != UINT64_MAX) {
+        /* The share of the system's failures in which this mode fails. */
+        bk_buf_printf(o, ", \"system_failures\": %llu, \"share_of_system\": ",
+                      (unsigned long long)c->system_failures);
+        bk_json_number(o, e->failures
+                              ? (double)c->system_failures / (double)e->failures
+                              : NAN);
+      }
+      if (c->dp.present) {
+        bk_buf_printf(o,
+                      ", \"design_point\": {\"converged\": %s, "
+                      "\"iterations\": %d, \"beta\": ",
+                      c->dp.converged ? "true" : "false", c->dp.iterations);
+        bk_json_number(o, c->dp.beta);
+        bk_buf_puts(o, ", \"pf_form\": ");
+        bk_json_number(o, c->dp.pf_form);
+        bk_buf_puts(o, ", \"x\": {");
+        for (size_t v = 0; v < s->nvars; v++) {
+          bk_buf_puts(o, v ? ", " : "");
+          bk_json_string(o, s->vars[v].name);
+          bk_buf_puts(o, ": ");
+          bk_json_number(o, c->dp.x[v]);
+        }
+        bk_buf_puts(o, "}}");
+      }
+      bk_buf_putc(o, '}');
+    }
+    bk_buf_puts(o, "\n  }");
+  }
+  if (r->bounds.present) {
+    key(o, "system_bounds", &first);
+    bk_buf_puts(o, "{\"simple\": ");
+    pair(o, r->bounds.simple);
+    bk_buf_puts(o, ", \"ditlevsen\": ");
+    pair(o, r->bounds.ditlevsen);
+    bk_buf_putc(o, '}');
+  }
+  if (r->reanalysis) {
+    key(o, "reanalysis", &first);
+    bk_json_string(o, r->reanalysis);
+  }
   if (r->ndetails) {
     key(o, "details", &first);
     bk_buf_putc(o, '{');
@@ -304,10 +384,96 @@ static void error_runs_text(bk_buf_t *o, const bk_study_t *s,
   }
 }
 
+/* The index of the mode that drives the system's failure: the one failing
+ * in most of the system's failures, else the one of largest Pf; -1 when
+ * none is known. */
+static long driving_mode(const bk_result_t *r, size_t nsystem) {
+  long best = -1;
+  for (size_t i = 0; i < r->ncomponents && i < nsystem; i++) {
+    const bk_component_t *c = &r->components[i], *b;
+    if (!c->present)
+      continue;
+    if (best < 0) {
+      best = (long)i;
+      continue;
+    }
+    b = &r->components[best];
+    int counted =
+        c->system_failures != UINT64_MAX && b->system_failures != UINT64_MAX;
+    if (counted ? c->system_failures > b->system_failures
+                : c->est.pf > b->est.pf)
+      best = (long)i;
+  }
+  return best;
+}
+
+static void components_text(const bk_study_t *s, const bk_result_t *r,
+                            bk_buf_t *o) {
+  bk_buf_printf(o, "\n  limit states, system %s\n", s->limit_state);
+  bk_buf_printf(o, "    %-16s %11s %8s %7s %23s %9s %9s\n", "mode", "Pf",
+                "beta", "cov", "interval", "failures", "of system");
+  for (size_t i = 0; i < s->nmodes; i++) {
+    const bk_component_t *c = i < r->ncomponents ? &r->components[i] : NULL;
+    bk_buf_printf(o, "    %-16s ", s->modes[i].name);
+    if (i >= s->nsystem || s->system == BK_SYSTEM_SINGLE)
+      bk_buf_printf(o, "(beside the system, not part of it)\n    %-16s ", "");
+    if (!c || !c->present) {
+      bk_buf_puts(o, "not estimated by this method\n");
+      continue;
+    }
+    bk_buf_puts(o, " ");
+    num(o, c->est.pf);
+    bk_buf_puts(o, " ");
+    bk_buf_printf(o, "%8.3f ", c->est.beta);
+    if (isfinite(c->est.cov))
+      bk_buf_printf(o, "%7.3f ", c->est.cov);
+    else
+      bk_buf_printf(o, "%7s ", "n/a");
+    num(o, c->est.ci[0]);
+    bk_buf_puts(o, " to ");
+    num(o, c->est.ci[1]);
+    bk_buf_printf(o, " %9llu", (unsigned long long)c->est.failures);
+    if (c->system_failures != UINT64_MAX && r->est.failures)
+      bk_buf_printf(o, " %8.1f%%\n",
+                    100.0 * (double)c->system_failures /
+                        (double)r->est.failures);
+    else
+      bk_buf_printf(o, " %9s\n", "-");
+  }
+  long d = driving_mode(r, s->system == BK_SYSTEM_SINGLE ? 0 : s->nsystem);
+  if (d >= 0 && r->est.failures &&
+      r->components[d].system_failures != UINT64_MAX)
+    bk_buf_printf(o,
+                  "    %s fails in %.1f%% of the system's failures (\"of "
+                  "system\"); it drives the system's failure\n",
+                  r->components[d].name,
+                  100.0 * (double)r->components[d].system_failures /
+                      (double)r->est.failures);
+  else if (d >= 0)
+    bk_buf_printf(o, "    %s has the largest Pf of the modes\n",
+                  r->components[d].name);
+  if (r->bounds.present) {
+    bk_buf_puts(o, "    first-order bounds on the system Pf: simple ");
+    num(o, r->bounds.simple[0]);
+    bk_buf_puts(o, " to ");
+    num(o, r->bounds.simple[1]);
+    bk_buf_puts(o, ", Ditlevsen ");
+    num(o, r->bounds.ditlevsen[0]);
+    bk_buf_puts(o, " to ");
+    num(o, r->bounds.ditlevsen[1]);
+    bk_buf_puts(o, "\n");
+  }
+}
+
 int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   const bk_estimate_t *e = &r->est;
   bk_buf_printf(o, "Study %s, method %s, seed %llu\n", s->name, r->method,
                 (unsigned long long)s->seed);
+  if (r->reanalysis)
+    bk_buf_printf(o,
+                  "  RE-ANALYSIS of the recorded evaluations (no model run): "
+                  "%s\n",
+                  r->reanalysis);
   if (r->replicates)
     bk_buf_printf(o, "  design               %u replicates of %llu points\n",
                   r->replicates, (unsigned long long)r->per_replicate);
@@ -380,6 +546,8 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
       bk_buf_printf(o, " %10.4f\n", r->dp.alpha2[i]);
     }
   }
+  if (s->nmodes)
+    components_text(s, r, o);
   for (size_t i = 0; i < r->ndetails; i++)
     bk_buf_printf(o, "  %-20s %.6g\n", r->details[i].label,
                   r->details[i].value);

@@ -27,6 +27,13 @@ int bk_report_text(const bk_study_t *s, const bk_result_t *r, bk_buf_t *out);
 int bk_report_html(const char *folder, const bk_study_t *s, bk_buf_t *out,
                    bk_error_t *err);
 
+/* The same from the JSON summary `json` (as bk_report_json writes it)
+ * instead of folder/report.json; for a re-analysis (its "reanalysis" key)
+ * the charts compute g again from the records with the study's limit
+ * states. */
+int bk_report_html_of(const char *folder, const bk_study_t *s, const char *json,
+                      bk_buf_t *out, bk_error_t *err);
+
 /* The study file that made the report.json in `folder` (its "study" key),
  * as a new string freed with bk_free. Returns 0, a negative errno when
  * there is no report.json, BK_ENOTFOUND when it names no study, or

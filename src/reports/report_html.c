@@ -246,6 +246,10 @@ typedef struct {
   double *sum, *sumsq, *fsum;
   double *fx;
   size_t nfx;
+  /* A re-analysis: g of each record is computed again with this study's
+   * limit states from the recorded inputs and outputs. */
+  const bk_study_t *regs;
+  double *vals;
 } samples_t;
 
 #define FAILCAP   3000
@@ -290,6 +294,7 @@ static void samples_close(samples_t *s) {
   bk_free(s->sumsq);
   bk_free(s->fsum);
   bk_free(s->fx);
+  bk_free(s->vals);
   memset(s, 0, sizeof *s);
 }
 
@@ -322,6 +327,18 @@ static int samples_push(samples_t *s, const double *x, double g, double sec) {
 
 static int on_record(void *data, const bk_record_t *r) {
   samples_t *s = data;
+  bk_record_t again;
+  if (s->regs && s->vals && r->nx == s->nx &&
+      r->ny == s->regs->model.noutputs &&
+      (r->fault == BK_FAULT_NONE || r->fault == BK_FAULT_NOT_A_NUMBER)) {
+    again = *r;
+    memcpy(s->vals, r->x, r->nx * sizeof *s->vals);
+    if (r->ny)
+      memcpy(s->vals + r->nx, r->y, r->ny * sizeof *s->vals);
+    again.g = bk_study_g(s->regs, s->vals, NULL);
+    again.fault = isnan(again.g) ? BK_FAULT_NOT_A_NUMBER : BK_FAULT_NONE;
+    r = &again;
+  }
   if (r->fault != BK_FAULT_NONE) {
     if (r->fault > 0 && r->fault < BK_FAULT__COUNT)
       s->errs_by_kind[r->fault]++;
@@ -381,11 +398,17 @@ static int capture_batch(bk_evaluator_t *ev, const char *prefix,
 #define SUBSAMPLE 20000
 #define STREAM    (1u << 22)
 
-static int load_samples(const char *folder, const bk_study_t *st,
-                        samples_t *s) {
+static int load_samples(const char *folder, const bk_study_t *st, samples_t *s,
+                        int reanalysis) {
   s->nx = st->nvars;
   if (stats_init(s))
     return BK_ENOMEM;
+  if (reanalysis) {
+    s->regs = st;
+    s->vals = bk_calloc(st->nvars + st->model.noutputs + 1, sizeof *s->vals);
+    if (!s->vals)
+      return BK_ENOMEM;
+  }
   if (st->model.present) {
     bk_records_t *rec = NULL;
     bk_error_t err;
@@ -897,9 +920,30 @@ static void study_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j) {
   bk_buf_puts(o, "<h2>Study</h2>\n<table>\n");
   row(o, "study", st->name);
   row(o, "study file", jstr(j, "study")[0] ? jstr(j, "study") : st->path);
-  bk_buf_puts(o, "<tr><th>limit state</th><td><code>g = ");
-  esc(o, st->limit_state);
-  bk_buf_puts(o, "</code> (failure when g &#8804; 0)</td></tr>\n");
+  if (st->nmodes) {
+    for (size_t i = 0; i < st->nmodes; i++) {
+      bk_buf_puts(o, "<tr><th>limit state <code>");
+      esc(o, st->modes[i].name);
+      bk_buf_puts(o, "</code></th><td><code>");
+      esc(o, st->modes[i].text);
+      bk_buf_puts(o, "</code> (failure when &#8804; 0)</td></tr>\n");
+    }
+    bk_buf_puts(o, "<tr><th>system</th><td>");
+    if (st->system == BK_SYSTEM_SERIES)
+      bk_buf_puts(o, "series: fails when any limit state fails (g = min)");
+    else if (st->system == BK_SYSTEM_PARALLEL)
+      bk_buf_puts(o, "parallel: fails when every limit state fails (g = max)");
+    else {
+      bk_buf_puts(o, "<code>g = ");
+      esc(o, st->limit_state);
+      bk_buf_puts(o, "</code> (failure when g &#8804; 0)");
+    }
+    bk_buf_puts(o, "</td></tr>\n");
+  } else {
+    bk_buf_puts(o, "<tr><th>limit state</th><td><code>g = ");
+    esc(o, st->limit_state);
+    bk_buf_puts(o, "</code> (failure when g &#8804; 0)</td></tr>\n");
+  }
   if (st->model.present) {
     bk_buf_puts(o, "<tr><th>model command</th><td><code>");
     for (size_t i = 0; i < st->model.argc; i++) {
@@ -974,6 +1018,82 @@ static void study_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j) {
   }
 }
 
+/* The modes of a study with several limit states: each one's Pf, beta,
+ * interval and share of the system's failures, and the one that drives
+ * the system's failure. */
+static void components_table(bk_buf_t *o, const jv_t *j) {
+  const jv_t *c = jget(j, "components");
+  if (!c || c->t != J_OBJ || !c->n)
+    return;
+  bk_buf_puts(o, "<h3>Limit states</h3>\n<table>\n<tr><th>limit state</th>"
+                 "<th>Pf</th><th>&#946;</th><th>cov</th><th>interval of "
+                 "Pf</th><th>failures</th><th>share of the system's "
+                 "failures</th></tr>\n");
+  size_t drive = c->n;
+  double best = -1;
+  for (size_t i = 0; i < c->n; i++) {
+    const jv_t *m = &c->items[i];
+    bk_buf_puts(o, "<tr><td><code>");
+    esc(o, c->keys[i]);
+    bk_buf_puts(o, "</code></td>");
+    if (!isfinite(jnum(m, "pf"))) {
+      bk_buf_puts(o, "<td colspan=\"6\">not estimated by this method</td>"
+                     "</tr>\n");
+      continue;
+    }
+    bk_buf_puts(o, "<td class=\"n\">");
+    sci(o, jnum(m, "pf"));
+    bk_buf_puts(o, "</td><td class=\"n\">");
+    fix3(o, jnum(m, "beta"));
+    bk_buf_puts(o, "</td><td class=\"n\">");
+    if (isfinite(jnum(m, "cov")))
+      bk_buf_printf(o, "%.3f", jnum(m, "cov"));
+    else
+      bk_buf_puts(o, "n/a");
+    bk_buf_puts(o, "</td><td class=\"n\">");
+    const jv_t *ci = jget(m, "ci");
+    sci(o, jat(ci, 0));
+    bk_buf_puts(o, " to ");
+    sci(o, jat(ci, 1));
+    bk_buf_printf(o, "</td><td class=\"n\">%.0f</td><td class=\"n\">",
+                  jnum(m, "failures"));
+    double share = jnum(m, "share_of_system");
+    if (isfinite(share))
+      bk_buf_printf(o, "%.1f%%", 100 * share);
+    else
+      bk_buf_puts(o, "-");
+    bk_buf_puts(o, "</td></tr>\n");
+    double key = isfinite(share) ? share : jnum(m, "pf");
+    if (key > best) {
+      best = key;
+      drive = i;
+    }
+  }
+  bk_buf_puts(o, "</table>\n");
+  if (drive < c->n) {
+    bk_buf_puts(o, "<p><code>");
+    esc(o, c->keys[drive]);
+    bk_buf_puts(o, isfinite(jnum(&c->items[drive], "share_of_system"))
+                       ? "</code> fails in the largest share of the system's "
+                         "failures: it drives the system's failure.</p>\n"
+                       : "</code> has the largest Pf of the limit "
+                         "states.</p>\n");
+  }
+  const jv_t *b = jget(j, "system_bounds");
+  if (b) {
+    bk_buf_puts(o, "<table>\n<tr><th>first-order bounds on the system Pf, "
+                   "simple</th><td>");
+    sci(o, jat(jget(b, "simple"), 0));
+    bk_buf_puts(o, " to ");
+    sci(o, jat(jget(b, "simple"), 1));
+    bk_buf_puts(o, "</td></tr>\n<tr><th>Ditlevsen (bimodal)</th><td>");
+    sci(o, jat(jget(b, "ditlevsen"), 0));
+    bk_buf_puts(o, " to ");
+    sci(o, jat(jget(b, "ditlevsen"), 1));
+    bk_buf_puts(o, "</td></tr>\n</table>\n");
+  }
+}
+
 static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
                            const samples_t *s) {
   double pf = jnum(j, "pf"), beta = jnum(j, "beta"), cov = jnum(j, "cov");
@@ -982,7 +1102,14 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
   double level = jnum(j, "ci_level");
   bk_buf_t v;
   bk_buf_init(&v);
-  bk_buf_puts(o, "<h2>Result</h2>\n<div class=\"key\">\n");
+  bk_buf_puts(o, "<h2>Result</h2>\n");
+  if (jstr(j, "reanalysis")[0]) {
+    bk_buf_puts(o, "<p class=\"warn\"><b>Re-analysis</b> of the recorded "
+                   "evaluations, no model run: ");
+    esc(o, jstr(j, "reanalysis"));
+    bk_buf_puts(o, "</p>\n");
+  }
+  bk_buf_puts(o, "<div class=\"key\">\n");
   sci(&v, pf);
   tile(o, "failure probability Pf", v.data, NULL);
   bk_buf_reset(&v);
@@ -1078,6 +1205,7 @@ static void result_section(bk_buf_t *o, const bk_study_t *st, const jv_t *j,
     row(o, det->keys[i], v.data);
   }
   bk_buf_puts(o, "</table>\n");
+  components_table(o, j);
   const jv_t *dp = jget(j, "design_point");
   if (dp) {
     bk_buf_puts(o, "<h3>Design point (FORM)</h3>\n<table>\n");
@@ -1180,12 +1308,17 @@ static const char *method_words(const char *m) {
 
 int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
                    bk_error_t *err) {
+  return bk_report_html_of(folder, st, NULL, o, err);
+}
+
+int bk_report_html_of(const char *folder, const bk_study_t *st,
+                      const char *json, bk_buf_t *o, bk_error_t *err) {
   bk_buf_t text;
   bk_buf_init(&text);
   bk_buf_t path;
   bk_buf_init(&path);
   bk_buf_printf(&path, "%s/report.json", folder);
-  int rc = read_file(path.data, &text);
+  int rc = json ? bk_buf_puts(&text, json) : read_file(path.data, &text);
   if (rc) {
     bk_error_set(err, rc, path.data, 0, 0,
                  "no finished result here (%s); run `brink run STUDY.yaml` "
@@ -1209,7 +1342,7 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   bk_buf_close(&path);
   samples_t s;
   memset(&s, 0, sizeof s);
-  rc = load_samples(folder, st, &s);
+  rc = load_samples(folder, st, &s, jstr(&j, "reanalysis")[0] != '\0');
   if (rc) {
     bk_error_set(err, rc, folder, 0, 0, "cannot read the evaluations: %s",
                  bk_strerror(rc));
@@ -1220,7 +1353,8 @@ int bk_report_html(const char *folder, const bk_study_t *st, bk_buf_t *o,
   }
   char fp[80];
   snprintf(fp, sizeof fp, "%s-%s", st->digest_study, st->digest_model);
-  int changed = strcmp(fp, jstr(&j, "fingerprint")) != 0;
+  int changed =
+      strcmp(fp, jstr(&j, "fingerprint")) != 0 && !jstr(&j, "reanalysis")[0];
 
   bk_buf_puts(o, "<!DOCTYPE html>\n<html xmlns=\"http://www.w3.org/1999/"
                  "xhtml\" lang=\"en\">\n<head>\n<meta charset=\"utf-8\"/>\n"

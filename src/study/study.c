@@ -50,9 +50,10 @@ const char *bk_method_name(bk_method_kind_t m) {
 /* One list per mapping, NULL-terminated; check_keys refuses any other key,
  * and bk_study_keys hands the same lists to the test that every key is
  * documented in docs/study-file.md. */
-static const char *const keys_root[] = {"name",         "seed",  "variables",
-                                        "correlations", "model", "limit_state",
-                                        "analysis",     "run",   NULL};
+static const char *const keys_root[] = {"name",         "seed",   "variables",
+                                        "correlations", "model",  "limit_state",
+                                        "limit_states", "system", "analysis",
+                                        "run",          NULL};
 static const char *const keys_model[] = {
     "files",   "copy",    "command",  "env",
     "timeout", "retries", "on_error", "max_error_fraction",
@@ -1819,6 +1820,244 @@ const char **bk_study_g_names(const bk_study_t *s, size_t *n) {
   return names;
 }
 
+/* Compiles the expression of scalar `n` over `tab`; `what` names it in a
+ * message ("limit_state", "limit_states.bending", "system"). */
+static int compile_at(loader_t *L, yaml_node_t *n, const char *what,
+                      const char *text, const bk_names_t *tab,
+                      bk_expr_t **out) {
+  char msg[400] = "";
+  size_t off = 0;
+  int rc = bk_expr_compile(text, strlen(text), tab, out, msg, sizeof msg, &off);
+  if (rc == BK_ENOMEM)
+    return nomem(L);
+  if (rc) {
+    yaml_mark_t mk;
+    scalar_offset_mark(L, n, off, &mk);
+    return fail_at(L, &mk, "%s: %s", what, msg);
+  }
+  return 0;
+}
+
+/* limit_states: NAME: "expression", ...; and system:. */
+static int load_limit_states(loader_t *L, yaml_node_t *ln, yaml_node_t *sn) {
+  bk_study_t *s = L->s;
+  int rc;
+  if ((rc = want_mapping(L, ln, "limit_states")) ||
+      (rc = check_keys(L, ln, "limit_states", NULL)))
+    return rc;
+  size_t n =
+      (size_t)(ln->data.mapping.pairs.top - ln->data.mapping.pairs.start);
+  if (n == 0)
+    return FAIL(L, ln,
+                "limit_states needs at least one entry, e.g. "
+                "limit_states: {bending: \"r - s\"}");
+  if (n > BK_STUDY_MAX_MODES)
+    return FAIL(L, ln, "limit_states holds %zu entries; at most %d are allowed",
+                n, BK_STUDY_MAX_MODES);
+  s->modes = bk_calloc(n, sizeof *s->modes);
+  if (!s->modes)
+    return nomem(L);
+  size_t nn;
+  const char **names = bk_study_g_names(s, &nn);
+  if (!names)
+    return nomem(L);
+  bk_names_t tab = {names, nn};
+  rc = 0;
+  for (yaml_node_pair_t *p = ln->data.mapping.pairs.start;
+       !rc && p < ln->data.mapping.pairs.top; p++) {
+    yaml_node_t *k = node_at(L, p->key), *v = node_at(L, p->value);
+    const char *name = scalar(k), *text;
+    if (strlen(name) > 40) {
+      rc = FAIL(L, k,
+                "limit state name '%.40s...' is longer than 40 characters "
+                "(it is part of evaluation keys)",
+                name);
+      break;
+    }
+    if (!is_identifier(name)) {
+      rc = FAIL(L, k,
+                "limit state name '%s' must start with a letter or '_' and "
+                "hold only letters, digits and '_' (the system expression "
+                "uses it)",
+                name);
+      break;
+    }
+    if (strcmp(name, "series") == 0 || strcmp(name, "parallel") == 0) {
+      rc = FAIL(L, k,
+                "'%s' names a kind of system; give the limit state another "
+                "name",
+                name);
+      break;
+    }
+    static const char *const columns[] = {
+        "g",        "limit_state", "key",  "failed", "status",
+        "attempts", "seconds",     "host", "reason", "folder"};
+    for (size_t i = 0; !rc && i < sizeof columns / sizeof *columns; i++)
+      if (strcmp(name, columns[i]) == 0)
+        rc = FAIL(L, k,
+                  "'%s' names a column of `brink export`; give the limit "
+                  "state another name",
+                  name);
+    if (rc)
+      break;
+    for (size_t i = 0; i < nn; i++)
+      if (strcmp(names[i], name) == 0) {
+        rc = FAIL(L, k,
+                  "limit state name '%s' is already the name of a %s; give "
+                  "it another name",
+                  name, i < s->nvars ? "variable" : "model output");
+        break;
+      }
+    if (rc)
+      break;
+    char what[160];
+    snprintf(what, sizeof what, "limit_states.%s", name);
+    if ((rc = want_text(L, v, what, &text)))
+      break;
+    bk_mode_t *m = &s->modes[s->nmodes++];
+    m->name = bk_strdup(name);
+    m->text = bk_strdup(text);
+    if (!m->name || !m->text) {
+      rc = nomem(L);
+      break;
+    }
+    rc = compile_at(L, v, what, text, &tab, &m->g);
+  }
+  bk_free(names);
+  if (rc)
+    return rc;
+  const char *sys = "series";
+  if (sn && (rc = want_text(L, sn, "system", &sys)))
+    return rc;
+  s->limit_state = bk_strdup(sys);
+  if (!s->limit_state)
+    return nomem(L);
+  s->nsystem = s->nmodes;
+  if (strcmp(sys, "series") == 0) {
+    s->system = BK_SYSTEM_SERIES;
+    return 0;
+  }
+  if (strcmp(sys, "parallel") == 0) {
+    s->system = BK_SYSTEM_PARALLEL;
+    return 0;
+  }
+  s->system = BK_SYSTEM_EXPR;
+  const char *mnames[BK_STUDY_MAX_MODES];
+  for (size_t i = 0; i < s->nmodes; i++)
+    mnames[i] = s->modes[i].name;
+  bk_names_t mtab = {mnames, s->nmodes};
+  return compile_at(L, sn,
+                    "system (series, parallel, or an expression "
+                    "over the limit_states names)",
+                    sys, &mtab, &s->system_g);
+}
+
+double bk_study_system(const bk_study_t *s, const double *gc) {
+  double g;
+  switch (s->system) {
+  case BK_SYSTEM_EXPR:
+    return bk_expr_eval(s->system_g, gc);
+  case BK_SYSTEM_PARALLEL:
+    /* As max() in an expression: NaN propagates, of equal values the
+     * first. */
+    g = gc[0];
+    for (size_t i = 1; i < s->nsystem; i++)
+      g = isnan(g) || isnan(gc[i]) ? g + gc[i] : gc[i] > g ? gc[i] : g;
+    return g;
+  case BK_SYSTEM_SERIES:
+  default:
+    g = gc[0];
+    for (size_t i = 1; i < s->nsystem; i++)
+      g = isnan(g) || isnan(gc[i]) ? g + gc[i] : gc[i] < g ? gc[i] : g;
+    return g;
+  }
+}
+
+double bk_study_g(const bk_study_t *s, const double *vals, double *gc) {
+  if (!s->nmodes)
+    return bk_expr_eval(s->g, vals);
+  double own[BK_STUDY_MAX_MODES];
+  double *c = gc ? gc : own;
+  for (size_t i = 0; i < s->nmodes; i++)
+    c[i] = bk_expr_eval(s->modes[i].g, vals);
+  if (s->system == BK_SYSTEM_SINGLE)
+    return bk_expr_eval(s->g, vals);
+  return bk_study_system(s, c);
+}
+
+int bk_study_set_limit_state(bk_study_t *s, const char *name, const char *expr,
+                             char *msg, size_t cap) {
+  if (!is_identifier(name)) {
+    snprintf(msg, cap,
+             "'%s' is not a limit state name (letters, digits and _, "
+             "starting with a letter)",
+             name);
+    return BK_EINVAL;
+  }
+  size_t n;
+  const char **names = bk_study_g_names(s, &n);
+  if (!names) {
+    snprintf(msg, cap, "out of memory");
+    return BK_ENOMEM;
+  }
+  for (size_t i = 0; i < n; i++)
+    if (strcmp(names[i], name) == 0) {
+      snprintf(msg, cap, "'%s' is the name of a %s, not of a limit state", name,
+               i < s->nvars ? "variable" : "model output");
+      bk_free(names);
+      return BK_EINVAL;
+    }
+  bk_names_t tab = {names, n};
+  bk_expr_t *g = NULL;
+  char why[400] = "";
+  int rc = bk_expr_compile(expr, strlen(expr), &tab, &g, why, sizeof why, NULL);
+  bk_free(names);
+  if (rc) {
+    snprintf(msg, cap, "%s: %s", name, why);
+    return rc;
+  }
+  char *text = bk_strdup(expr);
+  if (!text) {
+    bk_expr_free(g);
+    snprintf(msg, cap, "out of memory");
+    return BK_ENOMEM;
+  }
+  if (!s->nmodes && strcmp(name, "limit_state") == 0) {
+    bk_expr_free(s->g);
+    bk_free(s->limit_state);
+    s->g = g;
+    s->limit_state = text;
+    return 0;
+  }
+  for (size_t i = 0; i < s->nmodes; i++)
+    if (strcmp(s->modes[i].name, name) == 0) {
+      bk_expr_free(s->modes[i].g);
+      bk_free(s->modes[i].text);
+      s->modes[i].g = g;
+      s->modes[i].text = text;
+      return 0;
+    }
+  char *nm = bk_strdup(name);
+  bk_mode_t *m = s->nmodes < BK_STUDY_MAX_MODES
+                     ? bk_realloc(s->modes, (s->nmodes + 1) * sizeof *m)
+                     : NULL;
+  if (!m || !nm) {
+    if (m)
+      s->modes = m;
+    bk_free(nm);
+    bk_free(text);
+    bk_expr_free(g);
+    snprintf(msg, cap,
+             s->nmodes < BK_STUDY_MAX_MODES ? "out of memory"
+                                            : "at most %d limit states",
+             BK_STUDY_MAX_MODES);
+    return s->nmodes < BK_STUDY_MAX_MODES ? BK_ENOMEM : BK_EINVAL;
+  }
+  s->modes = m;
+  m[s->nmodes++] = (bk_mode_t){nm, text, g};
+  return 0;
+}
+
 static int load_limit_state(loader_t *L, yaml_node_t *gn) {
   bk_study_t *s = L->s;
   const char *text;
@@ -1831,20 +2070,11 @@ static int load_limit_state(loader_t *L, yaml_node_t *gn) {
   size_t n;
   const char **names = bk_study_g_names(s, &n);
   if (!names)
-    return bk_error_set(L->err, BK_ENOMEM, L->path, 0, 0, "out of memory");
-  bk_names_t tab = {names, n};
-  char msg[400] = "";
-  size_t off = 0;
-  rc = bk_expr_compile(text, strlen(text), &tab, &s->g, msg, sizeof msg, &off);
-  bk_free(names);
-  if (rc == BK_ENOMEM)
     return nomem(L);
-  if (rc) {
-    yaml_mark_t mk;
-    scalar_offset_mark(L, gn, off, &mk);
-    return fail_at(L, &mk, "limit_state: %s", msg);
-  }
-  return 0;
+  bk_names_t tab = {names, n};
+  rc = compile_at(L, gn, "limit_state", text, &tab, &s->g);
+  bk_free(names);
+  return rc;
 }
 
 /* ---- fingerprint ---------------------------------------------------- */
@@ -1869,6 +2099,10 @@ static int make_digests(bk_study_t *s) {
     bad |= bk_buf_printf(&b, "corr %s %s %a\n", s->vars[s->corr[i].a].name,
                          s->vars[s->corr[i].b].name, s->corr[i].rho);
   const bk_analysis_t *an = &s->analysis;
+  /* One limit state keeps the text it always had, so its runs resume. */
+  for (size_t i = 0; i < s->nmodes; i++)
+    bad |=
+        bk_buf_printf(&b, "mode %s %s\n", s->modes[i].name, s->modes[i].text);
   bad |= bk_buf_printf(&b, "g %s\nmethod %s samples %llu replicates %u\n",
                        s->limit_state, bk_method_name(an->method),
                        (unsigned long long)an->samples, an->replicates);
@@ -2001,14 +2235,31 @@ static int load_root(loader_t *L, yaml_node_t *root) {
   if ((n = lookup(L, root, "model")) && (rc = load_model(L, n)))
     return rc;
   yaml_node_t *gn = lookup(L, root, "limit_state");
-  if (!gn)
+  yaml_node_t *ln = lookup(L, root, "limit_states");
+  yaml_node_t *sn = lookup(L, root, "system");
+  if (gn && ln)
+    return FAIL(L, ln,
+                "give either 'limit_state' (one) or 'limit_states' "
+                "(several, by name), not both");
+  if (sn && !ln)
+    return FAIL(L, sn,
+                "'system' combines the entries of 'limit_states'; with one "
+                "'limit_state' leave it out");
+  if (!gn && !ln)
     return FAIL(L, root,
                 "the study file needs 'limit_state', an expression "
-                "that is <= 0 on failure, e.g. \"r - s\"");
-  if ((rc = load_limit_state(L, gn)))
+                "that is <= 0 on failure, e.g. \"r - s\" (or "
+                "'limit_states', several by name)");
+  if ((rc = gn ? load_limit_state(L, gn) : load_limit_states(L, ln, sn)))
     return rc;
   if ((rc = load_analysis(L, lookup(L, root, "analysis"))))
     return rc;
+  if (sn && s->system == BK_SYSTEM_EXPR && s->analysis.method == BK_METHOD_FORM)
+    return FAIL(L, sn,
+                "FORM gives first-order bounds for a series or a parallel "
+                "system only; for a system written as an expression use a "
+                "sampling method (random, lhs, sobol) or importance, "
+                "cross-entropy, subset");
   if ((rc = check_design(L, root)))
     return rc;
   if ((rc = load_run(L, lookup(L, root, "run"))))
@@ -2132,6 +2383,13 @@ void bk_study_free(bk_study_t *s) {
   bk_free(s->analysis.importance.center);
   bk_free(s->limit_state);
   bk_expr_free(s->g);
+  for (size_t i = 0; i < s->nmodes; i++) {
+    bk_free(s->modes[i].name);
+    bk_free(s->modes[i].text);
+    bk_expr_free(s->modes[i].g);
+  }
+  bk_free(s->modes);
+  bk_expr_free(s->system_g);
   bk_free(s->run.folder);
   bk_free(s->run.scratch);
   bk_free(s->name);

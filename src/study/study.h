@@ -168,6 +168,24 @@ typedef struct {
   char *scratch; /* "" when not given */
 } bk_run_t;
 
+/* Several limit states (limit_states:) and how they combine. */
+typedef enum {
+  BK_SYSTEM_SINGLE,   /* one limit_state */
+  BK_SYSTEM_SERIES,   /* fails when any mode fails: g = min of the modes */
+  BK_SYSTEM_PARALLEL, /* fails when every mode fails: g = max */
+  BK_SYSTEM_EXPR      /* an expression over the mode names */
+} bk_system_t;
+
+/* The most limit states one study may hold. */
+#define BK_STUDY_MAX_MODES 32
+
+/* One limit state of several (a failure mode). */
+typedef struct {
+  char *name;   /* the user's name */
+  char *text;   /* the expression as written */
+  bk_expr_t *g; /* over names: variables, then model outputs */
+} bk_mode_t;
+
 typedef struct {
   char *path; /* the study file as given */
   char *dir;  /* its folder */
@@ -180,8 +198,17 @@ typedef struct {
   size_t ncorr;
   bk_transform_t *transform;
   bk_model_t model;
-  char *limit_state;
-  bk_expr_t *g; /* over names: variables, then model outputs */
+  char *limit_state; /* one limit_state; with several, the system as
+                        written ("series", "parallel" or its expression) */
+  bk_expr_t *g;      /* one limit state, over names: variables, then model
+                        outputs; NULL with several (see bk_study_g) */
+  bk_mode_t *modes;  /* limit_states, in the order written; nmodes = 0 for
+                        one limit_state */
+  size_t nmodes;
+  size_t nsystem; /* the modes the system combines: the first nsystem (a
+                     re-analysis may add modes beside the system) */
+  bk_system_t system;
+  bk_expr_t *system_g; /* BK_SYSTEM_EXPR: over the mode names */
   bk_analysis_t analysis;
   bk_run_t run;
   char *digest_study; /* fingerprint parts */
@@ -211,6 +238,27 @@ void bk_study_keys(bk_study_key_cb cb, void *data);
 /* Names bound by the limit state: variables then outputs; caller frees the
  * array (not the strings) with bk_free. */
 const char **bk_study_g_names(const bk_study_t *s, size_t *n);
+
+/* The limit-state value of the study at vals (nvars inputs, then
+ * noutputs outputs): the one limit state, or with several the system's g,
+ * and then each mode's value into gc[0..nmodes) when gc is not NULL. Every
+ * evaluator computes g through this one function. NaN propagates: a mode
+ * that is not a number makes a series or parallel system not a number. */
+double bk_study_g(const bk_study_t *s, const double *vals, double *gc);
+
+/* The system's g from the modes' values gc[0..nmodes). */
+double bk_study_system(const bk_study_t *s, const double *gc);
+
+/* For a re-analysis of recorded evaluations (`brink report
+ * --limit-state`): gives limit state `name` the expression `expr` (over
+ * the variables and the model's outputs). A name of limit_states changes
+ * that mode, and so the system; "limit_state" in a study of one limit
+ * state changes it; any other name adds a mode reported beside the
+ * system, not part of it. The fingerprint is left as it was. Returns 0,
+ * or BK_EPARSE, BK_ENOTFOUND, BK_EINVAL (a bad name, too many modes) or
+ * BK_ENOMEM with a message in msg. */
+int bk_study_set_limit_state(bk_study_t *s, const char *name, const char *expr,
+                             char *msg, size_t cap);
 
 /* A 128-bit digest of a text as 32 hex digits into hex[33]. */
 void bk_digest_hex(const void *data, size_t len, char hex[33]);
