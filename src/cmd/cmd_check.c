@@ -325,7 +325,10 @@ int bk__cmd_check(int argc, char **argv) {
     for (size_t i = 0; i < m->ndecks; i++) {
       bk_buf_t deck;
       bk_buf_init(&deck);
-      bk_template_ctx_t ctx = {med, 0, "check/0", "(run folder)"};
+      bk_template_ctx_t ctx = {.values = med,
+                               .index = 0,
+                               .key = "check/0",
+                               .folder = "(run folder)"};
       bk_template_render(m->decks[i].tpl, &ctx, &deck);
       printf("\n%s rendered at the medians (from %s):\n", m->decks[i].to,
              m->decks[i].template_name);

@@ -69,10 +69,13 @@ struct bk_dispatch {
   bk_dispatch_opts_t o;
   bk_dispatch_stats_t st;
   bk_sink_t records_sink; /* when no sink is given */
-  char **base_env;        /* environ + model.env, without BRINK_* */
+  char **base_env; /* environ without what the model does not inherit, the
+                      run's resources, model.env */
   size_t nbase_env;
-  double *vals; /* x then y, for the limit state */
-  char **spare; /* folders to reuse (see the top of this file) */
+  char res[6][48];  /* the resource variables in base_env */
+  char hosts[1100]; /* {{ _hosts }}: HOST:RANKS under run.launch direct */
+  double *vals;     /* x then y, for the limit state */
+  char **spare;     /* folders to reuse (see the top of this file) */
   size_t nspare;
   size_t capspare;
   long pid;                /* for spare names */
@@ -180,16 +183,84 @@ static int env_name_eq(const char *a, const char *b) {
   return (*a == '=' || !*a) && (*b == '=' || !*b);
 }
 
+/* Does the variable "NAME=VALUE" match `pat`: a name, or a prefix ending
+ * in '*'? */
+static int env_match(const char *kv, const char *pat) {
+  size_t n = strlen(pat);
+  if (n > 0 && pat[n - 1] == '*')
+    return strncmp(kv, pat, n - 1) == 0;
+  return strncmp(kv, pat, n) == 0 && kv[n] == '=';
+}
+
+/* The variables a model does not inherit from brink (docs/cluster.md,
+ * "The model's environment"): brink's own, those of the launcher that
+ * started brink (mpirun, srun, a PMI), which would make a model's own
+ * mpirun join brink's job or fail, glibc's allocation checks, which slow
+ * every program, and the thread counts brink sets itself. */
+static const char *const removed_always[] = {
+    "BRINK_*",         "OMPI_*",          "PMIX_*",        "PMI_*",
+    "PRTE_*",          "ORTE_*",          "HYDRA_*",       "MPI_LOCALRANKID",
+    "MPI_LOCALNRANKS", "MALLOC_PERTURB_", "MALLOC_CHECK_", NULL};
+/* Under run.launch direct, every Slurm variable: a model's mpirun then
+ * starts its ranks on this node as it would outside Slurm. */
+static const char *const removed_direct[] = {"SLURM_*", NULL};
+/* Under run.launch srun, the variables of brink's own step and task,
+ * which srun would take for options of the model's step; the job's stay,
+ * so that srun finds the allocation. */
+static const char *const removed_srun[] = {"SLURM_STEP*",
+                                           "SLURM_PROCID",
+                                           "SLURM_LOCALID",
+                                           "SLURM_NODEID",
+                                           "SLURM_TASK_PID",
+                                           "SLURM_GTIDS",
+                                           "SLURM_CPU_BIND*",
+                                           "SLURM_LAUNCH_NODE_IPADDR",
+                                           "SLURM_SRUN_COMM_*",
+                                           "SLURM_PTY_*",
+                                           "SLURM_DISTRIBUTION",
+                                           "SLURM_CPUS_PER_TASK",
+                                           "SLURM_NTASKS*",
+                                           "SLURM_NPROCS",
+                                           "SLURM_NNODES",
+                                           "SLURM_TASKS_PER_NODE",
+                                           "SLURM_EXACT",
+                                           "SLURM_OVERLAP",
+                                           NULL};
+/* Set from run.threads (model.env overrides them). */
+static const char *const thread_vars[] = {
+    "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", NULL};
+
+static int in_list(const char *kv, const char *const *list) {
+  for (; *list; list++)
+    if (env_match(kv, *list))
+      return 1;
+  return 0;
+}
+
+int bk_dispatch_env_removed(const bk_study_t *s, const char *kv) {
+  const bk_model_t *m = &s->model;
+  int gone = in_list(kv, removed_always) ||
+             in_list(kv, s->run.launch == BK_LAUNCH_SRUN ? removed_srun
+                                                         : removed_direct);
+  if (gone && strncmp(kv, "BRINK_", 6) != 0)
+    for (size_t i = 0; i < m->ninherit; i++)
+      if (env_match(kv, m->inherit[i]))
+        return 0;
+  return gone || in_list(kv, thread_vars);
+}
+
 static int build_base_env(bk_dispatch_t *d) {
-  const bk_model_t *m = &d->o.study->model;
+  const bk_study_t *s = d->o.study;
+  const bk_model_t *m = &s->model;
   size_t n = 0;
   while (environ && environ[n])
     n++;
-  d->base_env = bk_calloc(n + m->nenv + 1, sizeof *d->base_env);
+  size_t nres = sizeof d->res / sizeof d->res[0];
+  d->base_env = bk_calloc(n + m->nenv + nres + 1, sizeof *d->base_env);
   if (!d->base_env)
     return BK_ENOMEM;
   for (size_t i = 0; i < n; i++) {
-    if (strncmp(environ[i], "BRINK_", 6) == 0)
+    if (bk_dispatch_env_removed(s, environ[i]))
       continue;
     int overridden = 0;
     for (size_t j = 0; j < m->nenv; j++)
@@ -198,9 +269,121 @@ static int build_base_env(bk_dispatch_t *d) {
     if (!overridden)
       d->base_env[d->nbase_env++] = environ[i];
   }
+  /* The run's resources, unless model.env sets them. */
+  int threads = s->run.threads > 0 ? s->run.threads : 1;
+  int ranks = s->run.ranks > 0 ? s->run.ranks : 1;
+  snprintf(d->res[0], sizeof d->res[0], "BRINK_THREADS=%d", threads);
+  snprintf(d->res[1], sizeof d->res[1], "BRINK_RANKS=%d", ranks);
+  snprintf(d->res[2], sizeof d->res[2], "BRINK_CORES=%d", threads * ranks);
+  for (int k = 0; thread_vars[k]; k++)
+    snprintf(d->res[3 + k], sizeof d->res[3 + k], "%s=%d", thread_vars[k],
+             threads);
+  for (size_t k = 0; k < nres; k++) {
+    int overridden = 0;
+    for (size_t j = 0; j < m->nenv; j++)
+      if (env_name_eq(d->res[k], m->env[j]))
+        overridden = 1;
+    if (!overridden)
+      d->base_env[d->nbase_env++] = d->res[k];
+  }
   for (size_t j = 0; j < m->nenv; j++)
     d->base_env[d->nbase_env++] = m->env[j];
   return 0;
+}
+
+/* Expands the placeholders of the run's resources in one argument of
+ * model.command: {{ _threads }}, {{ _ranks }}, {{ _cores }} (numbers) and
+ * {{ _hosts }} (text); blanks inside the braces are optional. Any other
+ * text, other placeholders included, is kept as written. Returns a new
+ * string or NULL (out of memory). */
+static char *expand_arg(const bk_dispatch_t *d, const char *a) {
+  const bk_run_t *r = &d->o.study->run;
+  int threads = r->threads > 0 ? r->threads : 1;
+  int ranks = r->ranks > 0 ? r->ranks : 1;
+  bk_buf_t b;
+  bk_buf_init(&b);
+  int bad = bk_buf_puts(&b, "");
+  const char *p = a;
+  while (*p) {
+    const char *open = strstr(p, "{{");
+    if (!open) {
+      bad |= bk_buf_puts(&b, p);
+      break;
+    }
+    const char *q = open + 2;
+    while (*q == ' ' || *q == '\t')
+      q++;
+    static const char *const names[] = {"_threads", "_ranks", "_cores",
+                                        "_hosts"};
+    int which = -1;
+    size_t len = 0;
+    for (int k = 0; k < 4 && which < 0; k++) {
+      len = strlen(names[k]);
+      if (strncmp(q, names[k], len) == 0)
+        which = k;
+    }
+    const char *e = which >= 0 ? q + len : q;
+    while (*e == ' ' || *e == '\t')
+      e++;
+    if (which < 0 || strncmp(e, "}}", 2) != 0) {
+      bad |= bk_buf_append(&b, p, (size_t)(open + 2 - p));
+      p = open + 2;
+      continue;
+    }
+    bad |= bk_buf_append(&b, p, (size_t)(open - p));
+    if (which == 3)
+      bad |= bk_buf_puts(&b, d->hosts);
+    else
+      bad |= bk_buf_printf(&b, "%d",
+                           which == 0   ? threads
+                           : which == 1 ? ranks
+                                        : threads * ranks);
+    p = e + 2;
+  }
+  if (bad) {
+    bk_buf_close(&b);
+    return NULL;
+  }
+  return b.data;
+}
+
+/* The argv of one run: model.command with its resource placeholders
+ * expanded, after `srun --exact ...` under run.launch srun. NULL when out
+ * of memory; free with free_argv. */
+static char **run_argv(const bk_dispatch_t *d, const char *key) {
+  const bk_study_t *s = d->o.study;
+  const bk_run_t *r = &s->run;
+  size_t pre = r->launch == BK_LAUNCH_SRUN ? 7 : 0;
+  char **argv = bk_calloc(pre + s->model.argc + 1, sizeof *argv);
+  if (!argv)
+    return NULL;
+  int bad = 0;
+  if (pre) {
+    char t[3][BK_REPLAY_KEY_MAX + 32];
+    snprintf(t[0], sizeof t[0], "--ntasks=%d", r->ranks > 0 ? r->ranks : 1);
+    snprintf(t[1], sizeof t[1], "--cpus-per-task=%d",
+             r->threads > 0 ? r->threads : 1);
+    snprintf(t[2], sizeof t[2], "--job-name=%s", key);
+    const char *a[7] = {
+        "srun", "--exact", t[0], t[1], t[2], "--kill-on-bad-exit=1", "--quiet"};
+    for (size_t i = 0; i < pre; i++)
+      bad |= !(argv[i] = bk_strdup(a[i]));
+  }
+  for (size_t i = 0; !bad && i < s->model.argc; i++)
+    bad |= !(argv[pre + i] = expand_arg(d, s->model.argv[i]));
+  if (bad) {
+    for (size_t i = 0; i < pre + s->model.argc; i++)
+      bk_free(argv[i]);
+    bk_free(argv);
+    return NULL;
+  }
+  return argv;
+}
+
+static void free_argv(char **argv) {
+  for (size_t i = 0; argv && argv[i]; i++)
+    bk_free(argv[i]);
+  bk_free(argv);
 }
 
 int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
@@ -209,6 +392,10 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
     return BK_ENOMEM;
   d->o = *opts;
   d->pid = (long)getpid();
+  if (opts->study->run.launch == BK_LAUNCH_DIRECT)
+    snprintf(d->hosts, sizeof d->hosts, "%s:%d",
+             opts->host && *opts->host ? opts->host : "localhost",
+             opts->study->run.ranks > 0 ? opts->study->run.ranks : 1);
   if (!d->o.sink) {
     bk_sink_records(&d->records_sink, opts->records);
     d->o.sink = &d->records_sink;
@@ -531,7 +718,9 @@ static int prepare_folder(job_t *j, char *why, size_t whycap) {
   bk_buf_init(&out);
   for (size_t i = 0; i < s->model.ndecks; i++) {
     const bk_deck_t *dk = &s->model.decks[i];
-    bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key, j->dir};
+    bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key,
+                             j->dir,   s->run.threads,       s->run.ranks,
+                             d->hosts};
     bk_buf_reset(&out);
     rc = bk_template_render(dk->tpl, &ctx, &out);
     if (rc == 0)
@@ -573,10 +762,14 @@ static int submit(job_t *j) {
     return rc;
   }
   size_t ne = d->nbase_env;
-  char **env = bk_calloc(ne + 4, sizeof *env);
-  char kv[3][1200];
-  if (!env)
+  char **env = bk_calloc(ne + 5, sizeof *env);
+  char **argv = run_argv(d, j->key);
+  char kv[4][1200];
+  if (!env || !argv) {
+    bk_free(env);
+    free_argv(argv);
     return BK_ENOMEM;
+  }
   memcpy(env, d->base_env, ne * sizeof *env);
   snprintf(kv[0], sizeof kv[0], "BRINK_KEY=%s", j->key);
   snprintf(kv[1], sizeof kv[1], "BRINK_INDEX=%llu",
@@ -585,11 +778,14 @@ static int submit(job_t *j) {
   env[ne] = kv[0];
   env[ne + 1] = kv[1];
   env[ne + 2] = kv[2];
-  env[ne + 3] = NULL;
+  if (d->hosts[0]) {
+    snprintf(kv[3], sizeof kv[3], "BRINK_HOSTS=%s", d->hosts);
+    env[ne + 3] = kv[3];
+  }
   bk_job_t job = {
       .key = j->key,
       .dir = j->dir,
-      .argv = s->model.argv,
+      .argv = argv,
       .env = env,
       .timeout = s->model.timeout,
       .grace = 5,
@@ -599,6 +795,7 @@ static int submit(job_t *j) {
   j->attempts++;
   rc = bk_exec_submit(d->o.exec, &job, on_done, j);
   bk_free(env);
+  free_argv(argv);
   return rc;
 }
 

@@ -69,6 +69,14 @@ const bk_dispatch_stats_t *bk_dispatch_stats(const bk_dispatch_t *d);
  * "lhs-r3-77"). */
 void bk_dispatch_folder_name(const char *key, char *out, size_t cap);
 
+/* Is the inherited variable "NAME=VALUE" left out of the model's
+ * environment (docs/cluster.md, "The model's environment")? brink's own
+ * BRINK_* variables; those of an MPI or Slurm launch (all SLURM_* under
+ * run.launch direct, those of brink's own step under srun) unless
+ * model.inherit names them; glibc's MALLOC_PERTURB_ and MALLOC_CHECK_;
+ * and the thread counts brink sets from run.threads. */
+int bk_dispatch_env_removed(const bk_study_t *s, const char *kv);
+
 /* Removes a folder and everything below it without following symbolic
  * links. Returns 0 or a negative errno. */
 int bk_remove_tree(const char *path);
