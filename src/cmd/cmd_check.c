@@ -406,7 +406,21 @@ int bk__cmd_check(int argc, char **argv) {
   printf("  %g%% confidence intervals\n", 100 * a->ci_level);
   if (a->has_target_beta)
     printf("  target reliability index %.2f\n", a->target_beta);
-  printf("\nRun folder %s (%d slots)\n", s->run.folder, s->run.slots);
+  printf("\nRun folder %s\n", s->run.folder);
+  printf("  %d run%s at a time, %d core%s per run (%d thread%s x %d rank%s), "
+         "%d core%s in all; each run started %s\n",
+         s->run.slots, s->run.slots == 1 ? "" : "s", s->run.cores,
+         s->run.cores == 1 ? "" : "s", s->run.threads,
+         s->run.threads == 1 ? "" : "s", s->run.ranks,
+         s->run.ranks == 1 ? "" : "s", s->run.slots * s->run.cores,
+         s->run.slots * s->run.cores == 1 ? "" : "s",
+         s->run.launch == BK_LAUNCH_SRUN ? "as a Slurm job step (srun)"
+                                         : "directly");
+  int here = bk_study_available_cores(s);
+  if (s->run.slots * s->run.cores > here)
+    printf("  (more than the %d core%s brink may use here: the runs will "
+           "share them)\n",
+           here, here == 1 ? "" : "s");
   int exit_code = BK_EXIT_DONE;
   if (try_it && s->model.present)
     exit_code = try_model(s, med);
