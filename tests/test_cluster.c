@@ -834,3 +834,54 @@ Test(cluster, slurm_steps_job_gives_the_single_rank_records) {
   char *out = read_file("st/work/lhs-r0-0/stdout");
   cr_assert(out && strstr(out, "ranks: 2\nsum: 1\n"), "%s", out ? out : "");
 }
+
+Test(cluster, host_list_is_split_between_concurrent_runs) {
+  /* A PBS job's host list (a line per MPI process), split into chunks of
+   * run.ranks lines: at most one run per chunk at a time. Each run holds
+   * a lock named by its hosts while it runs; a second run on the same
+   * chunk would find it taken and fail. */
+  write_file("nodes", "nA\nnA\nnB\nnC\n");
+  cr_assert_eq(sh("mkdir locks"), 0);
+  write_file("h.sh", "d=\"$LOCKS/$(echo \"$1\" | tr ':,' '__')\"\n"
+                     "mkdir \"$d\" 2>/dev/null || "
+                     "{ echo \"clash on $1\" >&2; exit 5; }\n"
+                     "echo \"hosts: $BRINK_HOSTS arg: $1\"\n"
+                     "sleep 0.2\n"
+                     "rmdir \"$d\"\n"
+                     "echo \"result: g = 1\"\n");
+  write_file("h.yaml",
+             "name: h\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  copy: [h.sh]\n"
+             "  command: [sh, h.sh, '{{ _hosts }}']\n"
+             "  env: {LOCKS: '%s/locks'}\n"
+             "  keep: all\n"
+             "  outputs:\n"
+             "    g: {stdout: true, pattern: 'result: g = (\\S+)'}\n"
+             "limit_state: g - a\n"
+             "analysis: {method: random, samples: 8}\n"
+             "run: {folder: h, ranks: 2}\n",
+             dir);
+  /* Four lines, two ranks per run: two runs at a time. */
+  cr_assert_eq(sh("PBS_NODEFILE=nodes '%s' check h.yaml >out.txt 2>err.txt",
+                  env("BRINK_EXE")),
+               0, "%s", read_file("err.txt"));
+  assert_has(read_file("out.txt"), "2 runs at a time, 2 cores per run");
+  cr_assert_eq(sh("PBS_NODEFILE=nodes '%s' run h.yaml --quiet >out.txt "
+                  "2>err.txt",
+                  env("BRINK_EXE")),
+               0, "%s", read_file("err.txt"));
+  cr_assert_eq(sh("cat h/work/*/stdout | grep '^hosts:' | sort -u "
+                  ">hosts.txt"),
+               0);
+  cr_assert_str_eq(read_file("hosts.txt"), "hosts: nA:2 arg: nA:2\n"
+                                           "hosts: nB:1,nC:1 arg: nB:1,nC:1\n");
+  /* A host list that cannot be read is named. */
+  cr_assert_eq(sh("PBS_NODEFILE=missing '%s' run h.yaml --quiet >out.txt "
+                  "2>err.txt",
+                  env("BRINK_EXE")),
+               1);
+  assert_has(read_file("err.txt"), "host list missing");
+}

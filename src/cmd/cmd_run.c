@@ -291,8 +291,20 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
       .tick = on_tick,
       .tick_data = pr,
   };
+  /* In a PBS job, brink alone (not under --mpi) splits the host list
+   * between its concurrent runs. */
+  const char *nodefile = getenv("PBS_NODEFILE");
+  if (!mode->under_mpi && s->run.launch == BK_LAUNCH_DIRECT && nodefile &&
+      *nodefile)
+    dop.hostfile = nodefile;
   if ((rc = bk_dispatch_new(&m->dispatch, &dop)) != 0) {
-    fprintf(stderr, "brink: out of memory\n");
+    if (rc == BK_EIO)
+      fprintf(stderr,
+              "brink: cannot read a host from the host list %s "
+              "(PBS_NODEFILE)\n",
+              nodefile);
+    else
+      fprintf(stderr, "brink: out of memory\n");
     model_run_close(m, &err);
     return BK_EXIT_RUNTIME;
   }
@@ -492,6 +504,8 @@ static int run_worker(const char *path, int rank) {
   }
   if (!s->model.present)
     goto greet;
+  /* A worker runs on the cores of its rank. */
+  bk_study_default_slots(s, bk_study_machine_cores());
   if (s->run.launch == BK_LAUNCH_SRUN) {
     snprintf(failure, sizeof failure,
              "run.launch: srun does not combine with --mpi (brink runs as "

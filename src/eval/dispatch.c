@@ -62,7 +62,8 @@ typedef struct {
   char *dir;
   int attempts;
   int done;
-  int need; /* to run: not found in the records */
+  int need;  /* to run: not found in the records */
+  int chunk; /* its chunk of the host list while it runs, else -1 */
 } job_t;
 
 struct bk_dispatch {
@@ -74,8 +75,11 @@ struct bk_dispatch {
   size_t nbase_env;
   char res[6][48];  /* the resource variables in base_env */
   char hosts[1100]; /* {{ _hosts }}: HOST:RANKS under run.launch direct */
-  double *vals;     /* x then y, for the limit state */
-  char **spare;     /* folders to reuse (see the top of this file) */
+  char **chunks;    /* the host list split between concurrent runs */
+  int *chunk_busy;
+  size_t nchunks;
+  double *vals; /* x then y, for the limit state */
+  char **spare; /* folders to reuse (see the top of this file) */
   size_t nspare;
   size_t capspare;
   long pid;                /* for spare names */
@@ -296,7 +300,8 @@ static int build_base_env(bk_dispatch_t *d) {
  * {{ _hosts }} (text); blanks inside the braces are optional. Any other
  * text, other placeholders included, is kept as written. Returns a new
  * string or NULL (out of memory). */
-static char *expand_arg(const bk_dispatch_t *d, const char *a) {
+static char *expand_arg(const bk_dispatch_t *d, const char *a,
+                        const char *hosts) {
   const bk_run_t *r = &d->o.study->run;
   int threads = r->threads > 0 ? r->threads : 1;
   int ranks = r->ranks > 0 ? r->ranks : 1;
@@ -332,7 +337,7 @@ static char *expand_arg(const bk_dispatch_t *d, const char *a) {
     }
     bad |= bk_buf_append(&b, p, (size_t)(open - p));
     if (which == 3)
-      bad |= bk_buf_puts(&b, d->hosts);
+      bad |= bk_buf_puts(&b, hosts);
     else
       bad |= bk_buf_printf(&b, "%d",
                            which == 0   ? threads
@@ -350,7 +355,8 @@ static char *expand_arg(const bk_dispatch_t *d, const char *a) {
 /* The argv of one run: model.command with its resource placeholders
  * expanded, after `srun --exact ...` under run.launch srun. NULL when out
  * of memory; free with free_argv. */
-static char **run_argv(const bk_dispatch_t *d, const char *key) {
+static char **run_argv(const bk_dispatch_t *d, const char *key,
+                       const char *hosts) {
   const bk_study_t *s = d->o.study;
   const bk_run_t *r = &s->run;
   size_t pre = r->launch == BK_LAUNCH_SRUN ? 7 : 0;
@@ -370,7 +376,7 @@ static char **run_argv(const bk_dispatch_t *d, const char *key) {
       bad |= !(argv[i] = bk_strdup(a[i]));
   }
   for (size_t i = 0; !bad && i < s->model.argc; i++)
-    bad |= !(argv[pre + i] = expand_arg(d, s->model.argv[i]));
+    bad |= !(argv[pre + i] = expand_arg(d, s->model.argv[i], hosts));
   if (bad) {
     for (size_t i = 0; i < pre + s->model.argc; i++)
       bk_free(argv[i]);
@@ -384,6 +390,81 @@ static void free_argv(char **argv) {
   for (size_t i = 0; argv && argv[i]; i++)
     bk_free(argv[i]);
   bk_free(argv);
+}
+
+/* Reads the host list and splits it into chunks of run.ranks lines (the
+ * last chunk may be short only when the list is shorter than one chunk).
+ * Returns 0, BK_ENOMEM or BK_EIO. */
+static int read_chunks(bk_dispatch_t *d, const char *path) {
+  FILE *f = fopen(path, "r");
+  if (!f)
+    return BK_EIO;
+  int ranks = d->o.study->run.ranks > 0 ? d->o.study->run.ranks : 1;
+  char line[512];
+  char **hosts = NULL;
+  size_t n = 0, cap = 0;
+  int rc = 0;
+  while (rc == 0 && fgets(line, sizeof line, f)) {
+    char *h = line;
+    while (*h == ' ' || *h == '\t')
+      h++;
+    size_t len = strcspn(h, " \t\r\n");
+    if (len == 0)
+      continue;
+    if (n == cap) {
+      size_t nc = cap ? 2 * cap : 64;
+      char **nh = bk_realloc(hosts, nc * sizeof *nh);
+      if (!nh) {
+        rc = BK_ENOMEM;
+        break;
+      }
+      hosts = nh;
+      cap = nc;
+    }
+    if (!(hosts[n] = bk_strndup(h, len)))
+      rc = BK_ENOMEM;
+    else
+      n++;
+  }
+  fclose(f);
+  if (rc == 0 && n == 0)
+    rc = BK_EIO;
+  size_t nch = n >= (size_t)ranks ? n / (size_t)ranks : 1;
+  if (rc == 0) {
+    d->chunks = bk_calloc(nch, sizeof *d->chunks);
+    d->chunk_busy = bk_calloc(nch, sizeof *d->chunk_busy);
+    if (!d->chunks || !d->chunk_busy)
+      rc = BK_ENOMEM;
+  }
+  for (size_t c = 0; rc == 0 && c < nch; c++) {
+    size_t from = c * (size_t)ranks;
+    size_t to = nch == 1 && n < (size_t)ranks ? n : from + (size_t)ranks;
+    bk_buf_t b;
+    bk_buf_init(&b);
+    int bad = bk_buf_puts(&b, "");
+    /* "host:count" for each host, in the order of the list. */
+    for (size_t i = from; i < to; i++) {
+      int seen = 0;
+      for (size_t k = from; k < i; k++)
+        seen |= strcmp(hosts[k], hosts[i]) == 0;
+      if (seen)
+        continue;
+      int count = 0;
+      for (size_t k = i; k < to; k++)
+        count += strcmp(hosts[k], hosts[i]) == 0;
+      bad |= bk_buf_printf(&b, "%s%s:%d", b.len ? "," : "", hosts[i], count);
+    }
+    if (bad) {
+      bk_buf_close(&b);
+      rc = BK_ENOMEM;
+    } else {
+      d->chunks[d->nchunks++] = b.data;
+    }
+  }
+  for (size_t i = 0; i < n; i++)
+    bk_free(hosts[i]);
+  bk_free(hosts);
+  return rc;
 }
 
 int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
@@ -406,6 +487,13 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
     bk_dispatch_free(d);
     return BK_ENOMEM;
   }
+  if (opts->hostfile) {
+    int rc = read_chunks(d, opts->hostfile);
+    if (rc) {
+      bk_dispatch_free(d);
+      return rc;
+    }
+  }
   *out = d;
   return 0;
 }
@@ -418,6 +506,10 @@ void bk_dispatch_free(bk_dispatch_t *d) {
     bk_free(d->spare[i]);
   }
   bk_free(d->spare);
+  for (size_t i = 0; i < d->nchunks; i++)
+    bk_free(d->chunks[i]);
+  bk_free(d->chunks);
+  bk_free(d->chunk_busy);
   bk_free(d->base_env);
   bk_free(d->vals);
   bk_free(d);
@@ -696,6 +788,27 @@ static int reuse_spare(bk_dispatch_t *d, const char *dir) {
   return 0;
 }
 
+/* The host list of a job: its chunk, or this host. */
+static const char *job_hosts(const job_t *j) {
+  return j->chunk >= 0 ? j->d->chunks[j->chunk] : j->d->hosts;
+}
+
+/* Gives the job a free chunk of the host list, when there is one. */
+static void take_chunk(job_t *j) {
+  bk_dispatch_t *d = j->d;
+  for (size_t c = 0; j->chunk < 0 && c < d->nchunks; c++)
+    if (!d->chunk_busy[c]) {
+      d->chunk_busy[c] = 1;
+      j->chunk = (int)c;
+    }
+}
+
+static void give_back_chunk(job_t *j) {
+  if (j->chunk >= 0)
+    j->d->chunk_busy[j->chunk] = 0;
+  j->chunk = -1;
+}
+
 /* Makes a fresh run folder for the job and fills it. Returns 0, or a
  * negative code with the reason in why. */
 static int prepare_folder(job_t *j, char *why, size_t whycap) {
@@ -763,7 +876,7 @@ static int submit(job_t *j) {
   }
   size_t ne = d->nbase_env;
   char **env = bk_calloc(ne + 5, sizeof *env);
-  char **argv = run_argv(d, j->key);
+  char **argv = run_argv(d, j->key, job_hosts(j));
   char kv[4][1200];
   if (!env || !argv) {
     bk_free(env);
@@ -778,8 +891,8 @@ static int submit(job_t *j) {
   env[ne] = kv[0];
   env[ne + 1] = kv[1];
   env[ne + 2] = kv[2];
-  if (d->hosts[0]) {
-    snprintf(kv[3], sizeof kv[3], "BRINK_HOSTS=%s", d->hosts);
+  if (job_hosts(j)[0]) {
+    snprintf(kv[3], sizeof kv[3], "BRINK_HOSTS=%s", job_hosts(j));
     env[ne + 3] = kv[3];
   }
   bk_job_t job = {
@@ -964,8 +1077,15 @@ static void feed(bk_dispatch_t *d) {
     }
     if (d->fatal || bk_exec_stopping(d->o.exec))
       return;
+    if (d->nchunks) {
+      /* With a host list, a run waits for a free chunk of it. */
+      take_chunk(j);
+      if (j->chunk < 0)
+        return;
+    }
     int rc = submit(j);
     if (rc) {
+      give_back_chunk(j);
       if (!d->fatal && rc != BK_ESTOPPED && rc != BK_ECANCELED) {
         bk_error_t e;
         bk_error_clear(&e);
@@ -986,6 +1106,7 @@ static void on_done(void *data, const bk_job_result_t *res) {
   run_done(j, res);
   if (j->done == 0)
     return; /* submitted again */
+  give_back_chunk(j);
   d->inflight--;
   /* Nothing queued behind the running processes while more jobs wait:
    * the folders are not made fast enough, look further ahead. (At the
@@ -1011,6 +1132,7 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
     job_t *j = &jobs[i];
     j->d = d;
     j->pt = &pts[i];
+    j->chunk = -1;
     if (bk_replay_key(j->key, sizeof j->key, prefix, pts[i].index)) {
       rc = bk_error_set(err, BK_ERANGE, NULL, 0, 0,
                         "the key %s/%llu is too long", prefix,

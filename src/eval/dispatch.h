@@ -55,10 +55,18 @@ typedef struct {
   const char *host;         /* recorded with each evaluation */
   bk_dispatch_tick_cb tick; /* after each finished run; may be NULL */
   void *tick_data;
+  const char *hostfile; /* NULL, or a host list, a host per line and per
+                           MPI process ($PBS_NODEFILE): split into chunks
+                           of run.ranks lines, one per concurrent run,
+                           which gets its chunk in {{ _hosts }} and
+                           BRINK_HOSTS ("n1:2,n2:2"); at most as many runs
+                           as chunks run at a time */
 } bk_dispatch_opts_t;
 
 typedef struct bk_dispatch bk_dispatch_t;
 
+/* Returns 0, BK_ENOMEM, or BK_EIO when the host list cannot be read or
+ * holds no host. */
 int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts);
 void bk_dispatch_free(bk_dispatch_t *d);
 /* Makes `ev` evaluate through `d`. */

@@ -89,10 +89,33 @@ int bk_study_allocation_cores(void) {
   return (int)total;
 }
 
+int bk_study_hostfile_lines(const char *path) {
+  FILE *f = path ? fopen(path, "r") : NULL;
+  if (!f)
+    return 0;
+  int n = 0, c, blank = 1;
+  while ((c = getc(f)) != EOF && n < 1 << 24) {
+    if (c == '\n') {
+      n += !blank;
+      blank = 1;
+    } else if (c != ' ' && c != '\t' && c != '\r') {
+      blank = 0;
+    }
+  }
+  n += !blank;
+  fclose(f);
+  return n;
+}
+
 int bk_study_available_cores(const bk_study_t *s) {
   int alloc = bk_study_allocation_cores();
   if (s->run.launch == BK_LAUNCH_SRUN && alloc > 0)
     return alloc;
+  if (s->run.launch == BK_LAUNCH_DIRECT) {
+    int lines = bk_study_hostfile_lines(getenv("PBS_NODEFILE"));
+    if (lines > 0)
+      return lines * (s->run.threads > 0 ? s->run.threads : 1);
+  }
   return bk_study_machine_cores();
 }
 

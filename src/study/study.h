@@ -209,8 +209,12 @@ int bk_study_machine_cores(void);
 /* The CPUs of the Slurm allocation brink runs in, from
  * SLURM_JOB_CPUS_PER_NODE ("4(x2),2" is 10); 0 outside one. */
 int bk_study_allocation_cores(void);
+/* The hosts of a host list ($PBS_NODEFILE: a line per MPI process), 0
+ * when it cannot be read. */
+int bk_study_hostfile_lines(const char *path);
 /* The cores the default run.slots divides: the allocation's for
- * run.launch srun inside one, else the machine's. */
+ * run.launch srun inside one; under run.launch direct in a PBS job, the
+ * lines of $PBS_NODEFILE x run.threads; else the machine's. */
 int bk_study_available_cores(const bk_study_t *s);
 /* Sets run.slots, when the study does not give it, to `cores` divided by
  * the cores per run (at least 1). */
