@@ -504,8 +504,14 @@ static int run_worker(const char *path, int rank) {
   }
   if (!s->model.present)
     goto greet;
-  /* A worker runs on the cores of its rank. */
-  bk_study_default_slots(s, bk_study_machine_cores());
+  /* A worker runs on the cores of its rank: its CPU affinity, and under
+   * srun at most the CPUs of its task (without task binding the
+   * affinity is the whole node). */
+  int cores = bk_study_machine_cores();
+  const char *cpt = getenv("SLURM_CPUS_PER_TASK");
+  if (cpt && atoi(cpt) > 0 && atoi(cpt) < cores)
+    cores = atoi(cpt);
+  bk_study_default_slots(s, cores);
   if (s->run.launch == BK_LAUNCH_SRUN) {
     snprintf(failure, sizeof failure,
              "run.launch: srun does not combine with --mpi (brink runs as "
