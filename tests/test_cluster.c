@@ -885,3 +885,45 @@ Test(cluster, host_list_is_split_between_concurrent_runs) {
                1);
   assert_has(read_file("err.txt"), "host list missing");
 }
+
+Test(cluster, rendered_scripts_request_the_cores_of_each_run) {
+  /* 3 threads x 2 ranks per run: 6 cores a run. */
+  write_study("c.yaml", "c", "lhs", 40, "ok", ", threads: 3, ranks: 2");
+  cr_assert_eq(brink("submit c.yaml --scheduler slurm --ranks 3 --slots 2"), 0,
+               "%s", read_file("err.txt"));
+  char *s = read_file("c/job-slurm-mpi.sh");
+  assert_has(s, "#SBATCH --ntasks=3\n");
+  assert_has(s, "#SBATCH --cpus-per-task=12\n");
+  assert_has(s, "2 model run(s) of 6 core(s) at a time");
+  cr_assert_eq(brink("submit c.yaml --scheduler pbs --mode array --slots 1"),
+               0);
+  assert_has(read_file("c/job-pbs-array.sh"), "#PBS -l select=1:ncpus=6\n");
+  /* Job steps need run.launch: srun on Slurm, direct on PBS. */
+  cr_assert_eq(brink("submit c.yaml --scheduler slurm --mode steps"), 2);
+  assert_has(read_file("err.txt"), "needs run.launch: srun");
+  cr_assert_eq(brink("submit c.yaml --scheduler pbs --mode steps --slots 4 "
+                     "--time 00:20:00"),
+               0, "%s", read_file("err.txt"));
+  s = read_file("c/job-pbs-steps.sh");
+  assert_has(s, "#PBS -l select=4:ncpus=6:mpiprocs=2\n");
+  assert_has(s, "\"$brink\" run --quiet \"$study\" &");
+  assert_has(s, "qsub -v BRINK_ROUND=$((round + 1))");
+  cr_assert(!strstr(s, "{{") && !strstr(s, "--mpi"), "%s", s);
+  cr_assert_eq(sh("bash -n c/job-pbs-steps.sh"), 0);
+  write_study("d.yaml", "d", "lhs", 40, "ok",
+              ", threads: 3, ranks: 2, launch: srun");
+  cr_assert_eq(brink("submit d.yaml --scheduler slurm --mode steps --slots 4 "
+                     "--time 00:20:00"),
+               0, "%s", read_file("err.txt"));
+  s = read_file("d/job-slurm-steps.sh");
+  assert_has(s, "#SBATCH --ntasks=8\n");
+  assert_has(s, "#SBATCH --cpus-per-task=3\n");
+  assert_has(s, "\"$brink\" run --quiet \"$study\" &");
+  assert_has(s, "scontrol requeue \"$SLURM_JOB_ID\"");
+  cr_assert(!strstr(s, "{{") && !strstr(s, "--mpi"), "%s", s);
+  cr_assert_eq(sh("bash -n d/job-slurm-steps.sh"), 0);
+  cr_assert_eq(brink("submit d.yaml --scheduler pbs --mode steps"), 2);
+  /* run.launch: srun with --mpi: refused, with the reason. */
+  cr_assert_eq(brink("run d.yaml --mpi --quiet"), 2);
+  assert_has(read_file("err.txt"), "run it without --mpi");
+}
