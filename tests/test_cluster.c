@@ -841,11 +841,13 @@ Test(cluster, host_list_is_split_between_concurrent_runs) {
    * a lock named by its hosts while it runs; a second run on the same
    * chunk would find it taken and fail. */
   write_file("nodes", "nA\nnA\nnB\nnC\n");
+  write_file("hdeck", "{{ _hosts }}\n");
   cr_assert_eq(sh("mkdir locks"), 0);
   write_file("h.sh", "d=\"$LOCKS/$(echo \"$1\" | tr ':,' '__')\"\n"
                      "mkdir \"$d\" 2>/dev/null || "
                      "{ echo \"clash on $1\" >&2; exit 5; }\n"
-                     "echo \"hosts: $BRINK_HOSTS arg: $1\"\n"
+                     "echo \"hosts: $BRINK_HOSTS arg: $1 deck: $(cat "
+                     "deck)\"\n"
                      "sleep 0.2\n"
                      "rmdir \"$d\"\n"
                      "echo \"result: g = 1\"\n");
@@ -854,6 +856,7 @@ Test(cluster, host_list_is_split_between_concurrent_runs) {
              "variables:\n"
              "  a: {type: normal, mean: 0, sd: 1}\n"
              "model:\n"
+             "  files: [{template: hdeck, to: deck}]\n"
              "  copy: [h.sh]\n"
              "  command: [sh, h.sh, '{{ _hosts }}']\n"
              "  env: {LOCKS: '%s/locks'}\n"

@@ -831,9 +831,13 @@ static int prepare_folder(job_t *j, char *why, size_t whycap) {
   bk_buf_init(&out);
   for (size_t i = 0; i < s->model.ndecks; i++) {
     const bk_deck_t *dk = &s->model.decks[i];
-    bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key,
-                             j->dir,   s->run.threads,       s->run.ranks,
-                             d->hosts};
+    bk_template_ctx_t ctx = {.values = j->pt->x,
+                             .index = (double)j->pt->index,
+                             .key = j->key,
+                             .folder = j->dir,
+                             .threads = s->run.threads,
+                             .ranks = s->run.ranks,
+                             .hosts = job_hosts(j)};
     bk_buf_reset(&out);
     rc = bk_template_render(dk->tpl, &ctx, &out);
     if (rc == 0)
@@ -877,10 +881,15 @@ static int submit(job_t *j) {
   size_t ne = d->nbase_env;
   char **env = bk_calloc(ne + 5, sizeof *env);
   char **argv = run_argv(d, j->key, job_hosts(j));
-  char kv[4][1200];
-  if (!env || !argv) {
+  char kv[3][1200];
+  bk_buf_t hv; /* BRINK_HOSTS: a host list has no length limit */
+  bk_buf_init(&hv);
+  if (job_hosts(j)[0]) /* on failure the fresh buffer stays empty */
+    (void)bk_buf_printf(&hv, "BRINK_HOSTS=%s", job_hosts(j));
+  if (!env || !argv || (job_hosts(j)[0] && !hv.data)) {
     bk_free(env);
     free_argv(argv);
+    bk_buf_close(&hv);
     return BK_ENOMEM;
   }
   memcpy(env, d->base_env, ne * sizeof *env);
@@ -891,10 +900,7 @@ static int submit(job_t *j) {
   env[ne] = kv[0];
   env[ne + 1] = kv[1];
   env[ne + 2] = kv[2];
-  if (job_hosts(j)[0]) {
-    snprintf(kv[3], sizeof kv[3], "BRINK_HOSTS=%s", job_hosts(j));
-    env[ne + 3] = kv[3];
-  }
+  env[ne + 3] = hv.data; /* NULL ends the list when there is none */
   bk_job_t job = {
       .key = j->key,
       .dir = j->dir,
@@ -909,6 +915,7 @@ static int submit(job_t *j) {
   rc = bk_exec_submit(d->o.exec, &job, on_done, j);
   bk_free(env);
   free_argv(argv);
+  bk_buf_close(&hv);
   return rc;
 }
 
