@@ -879,8 +879,9 @@ Test(cluster, host_list_is_split_between_concurrent_runs) {
   cr_assert_eq(sh("cat h/work/*/stdout | grep '^hosts:' | sort -u "
                   ">hosts.txt"),
                0);
-  cr_assert_str_eq(read_file("hosts.txt"), "hosts: nA:2 arg: nA:2\n"
-                                           "hosts: nB:1,nC:1 arg: nB:1,nC:1\n");
+  cr_assert_str_eq(read_file("hosts.txt"),
+                   "hosts: nA:2 arg: nA:2 deck: nA:2\n"
+                   "hosts: nB:1,nC:1 arg: nB:1,nC:1 deck: nB:1,nC:1\n");
   /* A host list that cannot be read is named. */
   cr_assert_eq(sh("PBS_NODEFILE=missing '%s' run h.yaml --quiet >out.txt "
                   "2>err.txt",
