@@ -931,3 +931,37 @@ Test(cluster, rendered_scripts_request_the_cores_of_each_run) {
   cr_assert_eq(brink("run d.yaml --mpi --quiet"), 2);
   assert_has(read_file("err.txt"), "run it without --mpi");
 }
+
+Test(cluster, slurm_steps_job_stopped_before_its_limit_resumes_and_completes) {
+  need_slurm();
+  char *want = single_rank_reference();
+  char cmd[1024];
+  snprintf(cmd, sizeof cmd,
+           "[sh, -c, 'sleep 1; exec \"$0\" {{ _ranks }} in.txt', '%s']",
+           need_mpisum());
+  write_mpi_study("sq.yaml", "sq", 2, cmd, "  env: {SLURM_MPI_TYPE: pmix}\n",
+                  ", launch: srun");
+  char id[64], st[256];
+  submit_go("sq.yaml --scheduler slurm --mode steps --slots 2 "
+            "--time 00:10:00",
+            id, sizeof id);
+  /* The pre-timeout signal once a few runs are recorded: the running
+   * steps end, brink exits 3, the job requeues and resumes. */
+  for (int i = 0; i < 3000; i++) {
+    char *log = read_file("sq/records.log");
+    if (log && strstr(log, "\nlhs/"))
+      break;
+    usleep(20000);
+  }
+  cr_assert_eq(sh("scancel --batch --signal=USR1 %s", id), 0);
+  wait_job(id, st, sizeof st);
+  char name[128];
+  snprintf(name, sizeof name, "sq/slurm-%s.out", id);
+  char *out = read_file(name);
+  cr_assert_str_eq(st, "COMPLETED ", "%s\n%s", st, out ? out : "");
+  assert_has(out, "brink: exit status 3");
+  assert_has(out, "requeueing to resume");
+  assert_has(out, "brink: exit status 0");
+  cr_assert_str_eq(canonical_records("sq"), want);
+  cr_assert_eq(sh("test $(grep -c '^lhs/' sq/records.log) -eq 8"), 0);
+}
