@@ -672,11 +672,28 @@ static void write_mpi_study(const char *name, const char *folder, int ranks,
 }
 
 /* model.command running the test program under its own mpirun. */
+/* OpenMPI 4.1 keeps its session folders in /tmp/ompi.HOST.UID, which each
+ * mpirun removes when it ends: one starting at that moment fails ("A
+ * call to mkdir was unable to create the desired directory ... File
+ * exists", exit 1). Concurrent runs each take their run folder as the
+ * base of theirs (docs/cluster.md). */
 static void mpirun_command(char *out, size_t cap, const char *np) {
   snprintf(out, cap,
-           "[mpirun, -np, '%s', --host, '{{ _hosts }}', '%s', "
-           "'{{ _ranks }}', in.txt]",
+           "[sh, -c, 'exec mpirun --mca orte_tmpdir_base \"$BRINK_FOLDER\" "
+           "-np \"$1\" --host \"$2\" \"$3\" \"$4\" in.txt', sh, '%s', "
+           "'{{ _hosts }}', '%s', '{{ _ranks }}']",
            np, need_mpisum());
+}
+
+/* What the runs of `folder` printed on stderr (for failure messages). */
+static char *run_errors(const char *folder) {
+  sh("for f in %s/work/*/stderr; do [ -s \"$f\" ] && "
+     "{ echo \"== $f\"; head -c 1500 \"$f\"; }; done > %s.errs; true",
+     folder, folder);
+  char name[300];
+  snprintf(name, sizeof name, "%s.errs", folder);
+  char *t = read_file(name);
+  return t ? t : "";
 }
 
 /* The records of the single-rank run (folder one), the reference. */
@@ -685,7 +702,8 @@ static char *single_rank_reference(void) {
   mpirun_command(cmd, sizeof cmd, "{{ _ranks }}");
   write_mpi_study("one.yaml", "one", 1, cmd,
                   "  inherit: ['OMPI_ALLOW_RUN_AS_ROOT*']\n", ", slots: 2");
-  cr_assert_eq(brink("run one.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("run one.yaml --quiet"), 0, "%s\n%s", read_file("err.txt"),
+               run_errors("one"));
   char *want = canonical_records("one");
   cr_assert_eq(count_lines(want), 8);
   return want;
@@ -697,7 +715,8 @@ Test(cluster, mpi_model_of_two_ranks_locally_gives_the_single_rank_records) {
   mpirun_command(cmd, sizeof cmd, "{{ _ranks }}");
   write_mpi_study("two.yaml", "two", 2, cmd,
                   "  inherit: ['OMPI_ALLOW_RUN_AS_ROOT*']\n", "");
-  cr_assert_eq(brink("run two.yaml --quiet"), 0, "%s", read_file("err.txt"));
+  cr_assert_eq(brink("run two.yaml --quiet"), 0, "%s\n%s", read_file("err.txt"),
+               run_errors("two"));
   cr_assert_str_eq(canonical_records("two"), want);
   /* Each run saw two ranks (0 + 1 = 1), and its deck the resources. */
   char *out = read_file("two/work/lhs-r0-0/stdout");
@@ -714,8 +733,8 @@ Test(cluster, mpi_model_launches_its_own_ranks_under_brink_run_mpi) {
   mpirun_command(cmd, sizeof cmd, "{{ _ranks }}");
   write_mpi_study("nest.yaml", "nest", 2, cmd,
                   "  inherit: ['OMPI_ALLOW_RUN_AS_ROOT*']\n", "");
-  cr_assert_eq(mpirun(2, "run --mpi --quiet nest.yaml"), 0, "%s",
-               read_file("err.txt"));
+  cr_assert_eq(mpirun(2, "run --mpi --quiet nest.yaml"), 0, "%s\n%s",
+               read_file("err.txt"), run_errors("nest"));
   cr_assert_str_eq(canonical_records("nest"), want);
   char *out = read_file("nest/work/lhs-r1-3/stdout");
   cr_assert(out && strstr(out, "ranks: 2\nsum: 1\n"), "%s", out ? out : "");
