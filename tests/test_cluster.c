@@ -548,13 +548,17 @@ static int is_final(const char *st) {
 }
 
 /* Waits for the job (all its array tasks) to end; a requeued job waiting
- * for its begin time is started at once. Returns the final states. */
+ * for its begin time is started after 2 s. (Not at once: slurmd refuses a
+ * batch job started in the same second as its requeue, "Job credential
+ * revoked", and the job ends FAILED.) Returns the final states. */
 static void wait_job(const char *id, char *st, size_t cap) {
+  int pending = 0;
   for (int i = 0; i < 3000; i++) {
     job_state(id, st, cap);
     if (is_final(st))
       return;
-    if (strstr(st, "PENDING"))
+    pending = strstr(st, "PENDING") ? pending + 1 : 0;
+    if (pending >= 10)
       sh("scontrol update JobId=%s StartTime=now >/dev/null 2>&1 || true", id);
     usleep(200000);
   }
