@@ -12,7 +12,7 @@
 # shard is done: brink merge {{STUDY}}
 #PBS -N {{NAME}}
 #PBS -J 0-{{LAST}}
-#PBS -l select=1:ncpus={{SLOTS}}
+#PBS -l select=1:ncpus={{CPUS}}
 #PBS -l walltime={{WALLTIME}}
 #PBS -l mem={{MEMORY}}
 #PBS -q {{QUEUE}}

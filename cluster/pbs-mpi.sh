@@ -3,12 +3,13 @@
 # cluster/pbs-mpi.sh for the study {{STUDY}}.
 #
 # Rank 0 coordinates and keeps the records; each other rank runs up to
-# {{SLOTS}} model run(s) at a time. PBS gives no warning before the
-# walltime, so a timer sends USR1 {{LEAD}} s before it: brink stops its
-# models, keeps what finished and exits 3, and the script submits itself
-# again to resume from the records (at most {{MAX_REQUEUE}} times).
+# {{SLOTS}} model run(s) of {{CORES}} core(s) at a time. PBS gives no
+# warning before the walltime, so a timer sends USR1 {{LEAD}} s before it:
+# brink stops its models, keeps what finished and exits 3, and the script
+# submits itself again to resume from the records (at most
+# {{MAX_REQUEUE}} times).
 #PBS -N {{NAME}}
-#PBS -l select={{RANKS}}:ncpus={{SLOTS}}:mpiprocs=1
+#PBS -l select={{RANKS}}:ncpus={{CPUS}}:mpiprocs=1
 #PBS -l walltime={{WALLTIME}}
 #PBS -l mem={{MEMORY}}
 #PBS -q {{QUEUE}}

@@ -12,7 +12,7 @@
 #SBATCH --job-name={{NAME}}
 #SBATCH --array=0-{{LAST}}
 #SBATCH --ntasks=1
-#SBATCH --cpus-per-task={{SLOTS}}
+#SBATCH --cpus-per-task={{CPUS}}
 #SBATCH --time={{TIME}}
 #SBATCH --partition={{PARTITION}}
 #SBATCH --account={{ACCOUNT}}

@@ -3,13 +3,13 @@
 # cluster/slurm-mpi.sh for the study {{STUDY}}.
 #
 # Rank 0 coordinates and keeps the records; each other rank runs up to
-# {{SLOTS}} model run(s) at a time. {{LEAD}} s before the time limit Slurm
-# sends USR1 to this shell, which passes it on: brink stops its models,
+# {{SLOTS}} model run(s) of {{CORES}} core(s) at a time. {{LEAD}} s before
+# the time limit Slurm sends USR1 to this shell, which passes it on: brink stops its models,
 # keeps what finished and exits 3, and the job requeues itself to resume
 # from the records (at most {{MAX_REQUEUE}} times).
 #SBATCH --job-name={{NAME}}
 #SBATCH --ntasks={{RANKS}}
-#SBATCH --cpus-per-task={{SLOTS}}
+#SBATCH --cpus-per-task={{CPUS}}
 #SBATCH --time={{TIME}}
 #SBATCH --partition={{PARTITION}}
 #SBATCH --account={{ACCOUNT}}

@@ -33,7 +33,13 @@ int BK_FUZZ_ENTRY(const uint8_t *data, size_t size) {
     assert(t);
     bk_buf_t out;
     bk_buf_init(&out);
-    bk_template_ctx_t ctx = {values, 42.0, "lhs/r3/77", "/tmp/run/lhs-r3-77"};
+    bk_template_ctx_t ctx = {.values = values,
+                             .index = 42.0,
+                             .key = "lhs/r3/77",
+                             .folder = "/tmp/run/lhs-r3-77",
+                             .threads = 4,
+                             .ranks = 2,
+                             .hosts = "node1:2"};
     rc = bk_template_render(t, &ctx, &out);
     assert(rc == 0);
     bk_buf_close(&out);

@@ -631,9 +631,10 @@ Test(badinput, shard_refusals_write_nothing) {
  * their place in the study file; the program itself cannot hold one. */
 Test(badinput, placeholders_in_the_command_are_checked_at_load) {
   write_study("in.txt]", "in.txt, '--load={{ 2*aa : %.6e }}']");
-  refused_by_both(located(8, "aa",
-                          "model.command argument 2: unknown name 'aa' (did "
-                          "you mean 'a'?); known names: a, b, _index"));
+  refused_by_both(located(
+      8, "aa",
+      "model.command argument 2: unknown name 'aa' (did "
+      "you mean 'a'?); known names: a, b, _index, _threads, _ranks, _cores"));
   write_study("in.txt]", "in.txt, '{{ a : %d }}']");
   refused_by_both(located(8, "%d",
                           "model.command argument 2: format '%d' converts "

@@ -548,13 +548,17 @@ static int is_final(const char *st) {
 }
 
 /* Waits for the job (all its array tasks) to end; a requeued job waiting
- * for its begin time is started at once. Returns the final states. */
+ * for its begin time is started after 2 s. (Not at once: slurmd refuses a
+ * batch job started in the same second as its requeue, "Job credential
+ * revoked", and the job ends FAILED.) Returns the final states. */
 static void wait_job(const char *id, char *st, size_t cap) {
+  int pending = 0;
   for (int i = 0; i < 3000; i++) {
     job_state(id, st, cap);
     if (is_final(st))
       return;
-    if (strstr(st, "PENDING"))
+    pending = strstr(st, "PENDING") ? pending + 1 : 0;
+    if (pending >= 10)
       sh("scontrol update JobId=%s StartTime=now >/dev/null 2>&1 || true", id);
     usleep(200000);
   }
@@ -626,4 +630,361 @@ Test(cluster, slurm_job_stopped_before_its_limit_is_requeued_and_completes) {
   cr_assert_str_eq(canonical_records("q"), canonical_records("loc"));
   cr_assert_eq(sh("test $(grep -c '^lhs/' q/records.log) -eq 120"), 0);
   cr_assert_str_eq(canonical_report("q"), canonical_report("loc"));
+}
+
+/* ---- models of several threads or ranks ------------------------------ */
+
+/* Skips unless the MPI test program was built (meson found MPI). */
+static const char *need_mpisum(void) {
+  need_mpi();
+  const char *p = getenv("BRINK_TEST_MPISUM");
+  if (!p || !*p || access(p, X_OK) != 0)
+    cr_skip_test("bk-test-mpisum was not built (MPI not found by meson)");
+  return p;
+}
+
+/* A study of two standard normal inputs whose model is the MPI test
+ * program on `ranks` ranks: g = 1.5 - (a + b)/sqrt(2), printed by rank 0
+ * when every rank took part. `command` is the model.command list, `run`
+ * more keys of the run section. */
+static void write_mpi_study(const char *name, const char *folder, int ranks,
+                            const char *command, const char *model_extra,
+                            const char *run) {
+  write_file("mdeck.txt", "# {{ _key }}: {{ _ranks }} ranks x {{ _threads }} "
+                          "threads = {{ _cores }} cores on {{ _hosts }}\n"
+                          "x1 = {{ a : %%.17g }}\n"
+                          "x2 = {{ b : %%.17g }}\n"
+                          "beta = 1.5\n");
+  write_file(name,
+             "name: %s\n"
+             "seed: 91\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "  b: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  files: [{template: mdeck.txt, to: in.txt}]\n"
+             "  command: %s\n"
+             "  timeout: 120\n"
+             "  keep: all\n"
+             "%s"
+             "  outputs:\n"
+             "    g: {stdout: true, pattern: 'result: g = (\\S+)'}\n"
+             "limit_state: g\n"
+             "analysis: {method: lhs, samples: 8, replicates: 2}\n"
+             "run: {folder: %s, ranks: %d%s}\n",
+             folder, command, model_extra, folder, ranks, run);
+}
+
+/* model.command running the test program under its own mpirun. */
+/* OpenMPI 4.1 keeps its session folders in /tmp/ompi.HOST.UID, which each
+ * mpirun removes when it ends: one starting at that moment fails ("A
+ * call to mkdir was unable to create the desired directory ... File
+ * exists", exit 1). Concurrent runs each take their run folder as the
+ * base of theirs (docs/cluster.md). */
+static void mpirun_command(char *out, size_t cap, const char *np) {
+  snprintf(out, cap,
+           "[sh, -c, 'exec mpirun --mca orte_tmpdir_base \"$BRINK_FOLDER\" "
+           "-np \"$1\" --host \"$2\" \"$3\" \"$4\" in.txt', sh, '%s', "
+           "'{{ _hosts }}', '%s', '{{ _ranks }}']",
+           np, need_mpisum());
+}
+
+/* What the runs of `folder` printed on stderr (for failure messages). */
+static char *run_errors(const char *folder) {
+  sh("for f in %s/work/*/stderr; do [ -s \"$f\" ] && "
+     "{ echo \"== $f\"; head -c 1500 \"$f\"; }; done > %s.errs; true",
+     folder, folder);
+  char name[300];
+  snprintf(name, sizeof name, "%s.errs", folder);
+  char *t = read_file(name);
+  return t ? t : "";
+}
+
+/* The records of the single-rank run (folder one), the reference. */
+static char *single_rank_reference(void) {
+  char cmd[1024];
+  mpirun_command(cmd, sizeof cmd, "{{ _ranks }}");
+  write_mpi_study("one.yaml", "one", 1, cmd,
+                  "  inherit: ['OMPI_ALLOW_RUN_AS_ROOT*']\n", ", slots: 2");
+  cr_assert_eq(brink("run one.yaml --quiet"), 0, "%s\n%s", read_file("err.txt"),
+               run_errors("one"));
+  char *want = canonical_records("one");
+  cr_assert_eq(count_lines(want), 8);
+  return want;
+}
+
+Test(cluster, mpi_model_of_two_ranks_locally_gives_the_single_rank_records) {
+  char *want = single_rank_reference();
+  char cmd[1024];
+  mpirun_command(cmd, sizeof cmd, "{{ _ranks }}");
+  write_mpi_study("two.yaml", "two", 2, cmd,
+                  "  inherit: ['OMPI_ALLOW_RUN_AS_ROOT*']\n", "");
+  cr_assert_eq(brink("run two.yaml --quiet"), 0, "%s\n%s", read_file("err.txt"),
+               run_errors("two"));
+  cr_assert_str_eq(canonical_records("two"), want);
+  /* Each run saw two ranks (0 + 1 = 1), and its deck the resources. */
+  char *out = read_file("two/work/lhs-r0-0/stdout");
+  cr_assert(out && strstr(out, "ranks: 2\nsum: 1\n"), "%s", out ? out : "");
+  char *deck = read_file("two/work/lhs-r0-0/in.txt");
+  cr_assert(deck && strstr(deck, ": 2 ranks x 1 threads = 2 cores on "), "%s",
+            deck ? deck : "");
+  cr_assert(strstr(deck, ":2\n"), "the host list gives 2 slots: %s", deck);
+}
+
+Test(cluster, mpi_model_launches_its_own_ranks_under_brink_run_mpi) {
+  char *want = single_rank_reference();
+  char cmd[1024];
+  mpirun_command(cmd, sizeof cmd, "{{ _ranks }}");
+  write_mpi_study("nest.yaml", "nest", 2, cmd,
+                  "  inherit: ['OMPI_ALLOW_RUN_AS_ROOT*']\n", "");
+  cr_assert_eq(mpirun(2, "run --mpi --quiet nest.yaml"), 0, "%s\n%s",
+               read_file("err.txt"), run_errors("nest"));
+  cr_assert_str_eq(canonical_records("nest"), want);
+  char *out = read_file("nest/work/lhs-r1-3/stdout");
+  cr_assert(out && strstr(out, "ranks: 2\nsum: 1\n"), "%s", out ? out : "");
+}
+
+Test(cluster, launcher_variables_passed_on_make_model_errors_not_values) {
+  /* With brink's own launcher variables passed on (model.inherit), the
+   * model's mpirun cannot start its ranks under brink run --mpi: each
+   * run is a model error with a reason, never a value. */
+  char cmd[1024];
+  mpirun_command(cmd, sizeof cmd, "{{ _ranks }}");
+  write_mpi_study("leak.yaml", "leak", 2, cmd,
+                  "  inherit: ['OMPI_*', 'PMIX_*']\n  on_error: fail\n", "");
+  cr_assert_eq(mpirun(2, "run --mpi --quiet leak.yaml"), 1, "%s",
+               read_file("err.txt"));
+  assert_has(read_file("err.txt"), "model runs failed");
+  char *recs = canonical_records("leak");
+  cr_assert(!strstr(recs, "\tok\t"), "no run may succeed: %s", recs);
+  cr_assert_eq(count_lines(recs), 8, "%s", recs);
+}
+
+Test(cluster, model_given_fewer_ranks_than_asked_is_a_model_error) {
+  char cmd[1024];
+  mpirun_command(cmd, sizeof cmd, "1");
+  write_mpi_study("few.yaml", "few", 2, cmd,
+                  "  inherit: ['OMPI_ALLOW_RUN_AS_ROOT*']\n  on_error: fail\n",
+                  "");
+  /* Every run fails: the run stops on model.max_error_fraction. */
+  cr_assert_eq(brink("run few.yaml --quiet"), 1, "%s", read_file("err.txt"));
+  assert_has(read_file("err.txt"), "8 of 8 model runs failed");
+  char *recs = canonical_records("few");
+  cr_assert_eq(count_lines(recs), 8, "%s", recs);
+  cr_assert(!strstr(recs, "\tok\t"), "%s", recs);
+  cr_assert(strstr(recs, "exit status"), "the reason names the exit: %s", recs);
+  char *err = read_file("few/work/lhs-r0-0/stderr");
+  cr_assert(err && strstr(err, "1 ranks (sum 0), asked for 2"), "%s",
+            err ? err : "");
+}
+
+Test(cluster, threaded_model_sees_its_threads_and_a_clean_environment) {
+  write_file(
+      "t.sh",
+      "echo \"omp: $OMP_NUM_THREADS\"\n"
+      "echo \"arg: $1 $2\"\n"
+      "echo \"brink: $BRINK_THREADS $BRINK_RANKS $BRINK_CORES\"\n"
+      "echo \"perturb: ${MALLOC_PERTURB_-none}\"\n"
+      "echo \"ompi: ${OMPI_COMM_WORLD_RANK-none} "
+      "${OMPI_MCA_keep_me-none}\"\n"
+      "echo \"pmix: ${PMIX_RANK-none} slurm: ${SLURM_PROCID-none}\"\n"
+      "echo \"blas: ${OPENBLAS_NUM_THREADS-none} ${MKL_NUM_THREADS-x}\"\n"
+      "echo \"result: g = $OMP_NUM_THREADS\"\n");
+  write_file("tdeck.txt", "threads {{ _threads }} cores {{ _cores }}\n");
+  write_file("t.yaml",
+             "name: t\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  files: [{template: tdeck.txt, to: deck.txt}]\n"
+             "  copy: [t.sh]\n"
+             "  command: [sh, t.sh, '{{ _threads }}', 'c={{_cores}}']\n"
+             "  env: {MKL_NUM_THREADS: '1'}\n"
+             "  inherit: ['OMPI_MCA_keep*']\n"
+             "  keep: all\n"
+             "  outputs:\n"
+             "    t: {stdout: true, pattern: 'result: g = (\\S+)'}\n"
+             "limit_state: t - a\n"
+             "analysis: {method: random, samples: 2}\n"
+             "run: {folder: t, threads: 3}\n");
+  cr_assert_eq(sh("MALLOC_PERTURB_=77 OMP_NUM_THREADS=9 OMPI_COMM_WORLD_RANK=1 "
+                  "OMPI_MCA_keep_me=yes PMIX_RANK=1 SLURM_PROCID=4 "
+                  "'%s' run t.yaml --quiet >out.txt 2>err.txt",
+                  env("BRINK_EXE")),
+               0, "%s", read_file("err.txt"));
+  char *out = read_file("t/work/mc-0/stdout");
+  cr_assert(out, "no stdout");
+  assert_has(out, "omp: 3\n");
+  assert_has(out, "arg: 3 c=3\n");
+  assert_has(out, "brink: 3 1 3\n");
+  assert_has(out, "perturb: none\n");
+  assert_has(out, "ompi: none yes\n");
+  assert_has(out, "pmix: none slurm: none\n");
+  assert_has(out, "blas: 3 1\n");
+  char *deck = read_file("t/work/mc-0/deck.txt");
+  cr_assert_str_eq(deck, "threads 3 cores 3\n");
+  /* One run takes 3 cores: the default slots are the machine's cores
+   * over 3, at least 1. */
+  cr_assert_eq(brink("check t.yaml"), 0, "%s", read_file("err.txt"));
+  assert_has(read_file("out.txt"), "3 cores per run");
+}
+
+Test(cluster, slurm_steps_job_gives_the_single_rank_records) {
+  need_slurm();
+  char *want = single_rank_reference();
+  char cmd[1024];
+  snprintf(cmd, sizeof cmd, "['%s', '{{ _ranks }}', in.txt]", need_mpisum());
+  write_mpi_study("st.yaml", "st", 2, cmd, "  env: {SLURM_MPI_TYPE: pmix}\n",
+                  ", launch: srun");
+  /* Outside an allocation, a clear refusal. */
+  cr_assert_eq(sh("env -u SLURM_JOB_ID '%s' run st.yaml --quiet >out.txt "
+                  "2>err.txt",
+                  env("BRINK_EXE")),
+               2);
+  assert_has(read_file("err.txt"), "SLURM_JOB_ID is not set");
+  char id[64], st[256];
+  submit_go("st.yaml --scheduler slurm --mode steps --slots 2 "
+            "--time 00:10:00",
+            id, sizeof id);
+  char *script = read_file("st/job-slurm-steps.sh");
+  assert_has(script, "#SBATCH --ntasks=4\n");
+  assert_has(script, "#SBATCH --cpus-per-task=1\n");
+  wait_job(id, st, sizeof st);
+  char name[128];
+  snprintf(name, sizeof name, "st/slurm-%s.out", id);
+  cr_assert_str_eq(st, "COMPLETED ", "%s\n%s", st, read_file(name));
+  cr_assert_str_eq(canonical_records("st"), want);
+  char *out = read_file("st/work/lhs-r0-0/stdout");
+  cr_assert(out && strstr(out, "ranks: 2\nsum: 1\n"), "%s", out ? out : "");
+}
+
+Test(cluster, host_list_is_split_between_concurrent_runs) {
+  /* A PBS job's host list (a line per MPI process), split into chunks of
+   * run.ranks lines: at most one run per chunk at a time. Each run holds
+   * a lock named by its hosts while it runs; a second run on the same
+   * chunk would find it taken and fail. */
+  write_file("nodes", "nA\nnA\nnB\nnC\n");
+  write_file("hdeck", "{{ _hosts }}\n");
+  cr_assert_eq(sh("mkdir locks"), 0);
+  write_file("h.sh", "d=\"$LOCKS/$(echo \"$1\" | tr ':,' '__')\"\n"
+                     "mkdir \"$d\" 2>/dev/null || "
+                     "{ echo \"clash on $1\" >&2; exit 5; }\n"
+                     "echo \"hosts: $BRINK_HOSTS arg: $1 deck: $(cat "
+                     "deck)\"\n"
+                     "sleep 0.2\n"
+                     "rmdir \"$d\"\n"
+                     "echo \"result: g = 1\"\n");
+  write_file("h.yaml",
+             "name: h\n"
+             "variables:\n"
+             "  a: {type: normal, mean: 0, sd: 1}\n"
+             "model:\n"
+             "  files: [{template: hdeck, to: deck}]\n"
+             "  copy: [h.sh]\n"
+             "  command: [sh, h.sh, '{{ _hosts }}']\n"
+             "  env: {LOCKS: '%s/locks'}\n"
+             "  keep: all\n"
+             "  outputs:\n"
+             "    g: {stdout: true, pattern: 'result: g = (\\S+)'}\n"
+             "limit_state: g - a\n"
+             "analysis: {method: random, samples: 8}\n"
+             "run: {folder: h, ranks: 2}\n",
+             dir);
+  /* Four lines, two ranks per run: two runs at a time. */
+  cr_assert_eq(sh("PBS_NODEFILE=nodes '%s' check h.yaml >out.txt 2>err.txt",
+                  env("BRINK_EXE")),
+               0, "%s", read_file("err.txt"));
+  assert_has(read_file("out.txt"), "2 runs at a time, 2 cores per run");
+  cr_assert_eq(sh("PBS_NODEFILE=nodes '%s' run h.yaml --quiet >out.txt "
+                  "2>err.txt",
+                  env("BRINK_EXE")),
+               0, "%s", read_file("err.txt"));
+  cr_assert_eq(sh("cat h/work/*/stdout | grep '^hosts:' | sort -u "
+                  ">hosts.txt"),
+               0);
+  cr_assert_str_eq(read_file("hosts.txt"),
+                   "hosts: nA:2 arg: nA:2 deck: nA:2\n"
+                   "hosts: nB:1,nC:1 arg: nB:1,nC:1 deck: nB:1,nC:1\n");
+  /* A host list that cannot be read is named. */
+  cr_assert_eq(sh("PBS_NODEFILE=missing '%s' run h.yaml --quiet >out.txt "
+                  "2>err.txt",
+                  env("BRINK_EXE")),
+               1);
+  assert_has(read_file("err.txt"), "host list missing");
+}
+
+Test(cluster, rendered_scripts_request_the_cores_of_each_run) {
+  /* 3 threads x 2 ranks per run: 6 cores a run. */
+  write_study("c.yaml", "c", "lhs", 40, "ok", ", threads: 3, ranks: 2");
+  cr_assert_eq(brink("submit c.yaml --scheduler slurm --ranks 3 --slots 2"), 0,
+               "%s", read_file("err.txt"));
+  char *s = read_file("c/job-slurm-mpi.sh");
+  assert_has(s, "#SBATCH --ntasks=3\n");
+  assert_has(s, "#SBATCH --cpus-per-task=12\n");
+  assert_has(s, "2 model run(s) of 6 core(s) at a time");
+  cr_assert_eq(brink("submit c.yaml --scheduler pbs --mode array --slots 1"),
+               0);
+  assert_has(read_file("c/job-pbs-array.sh"), "#PBS -l select=1:ncpus=6\n");
+  /* Job steps need run.launch: srun on Slurm, direct on PBS. */
+  cr_assert_eq(brink("submit c.yaml --scheduler slurm --mode steps"), 2);
+  assert_has(read_file("err.txt"), "needs run.launch: srun");
+  cr_assert_eq(brink("submit c.yaml --scheduler pbs --mode steps --slots 4 "
+                     "--time 00:20:00"),
+               0, "%s", read_file("err.txt"));
+  s = read_file("c/job-pbs-steps.sh");
+  assert_has(s, "#PBS -l select=4:ncpus=6:mpiprocs=2\n");
+  assert_has(s, "\"$brink\" run --quiet \"$study\" &");
+  assert_has(s, "qsub -v BRINK_ROUND=$((round + 1))");
+  cr_assert(!strstr(s, "{{") && !strstr(s, "--mpi"), "%s", s);
+  cr_assert_eq(sh("bash -n c/job-pbs-steps.sh"), 0);
+  write_study("d.yaml", "d", "lhs", 40, "ok",
+              ", threads: 3, ranks: 2, launch: srun");
+  cr_assert_eq(brink("submit d.yaml --scheduler slurm --mode steps --slots 4 "
+                     "--time 00:20:00"),
+               0, "%s", read_file("err.txt"));
+  s = read_file("d/job-slurm-steps.sh");
+  assert_has(s, "#SBATCH --ntasks=8\n");
+  assert_has(s, "#SBATCH --cpus-per-task=3\n");
+  assert_has(s, "\"$brink\" run --quiet \"$study\" &");
+  assert_has(s, "scontrol requeue \"$SLURM_JOB_ID\"");
+  cr_assert(!strstr(s, "{{") && !strstr(s, "--mpi"), "%s", s);
+  cr_assert_eq(sh("bash -n d/job-slurm-steps.sh"), 0);
+  cr_assert_eq(brink("submit d.yaml --scheduler pbs --mode steps"), 2);
+  /* run.launch: srun with --mpi: refused, with the reason. */
+  cr_assert_eq(brink("run d.yaml --mpi --quiet"), 2);
+  assert_has(read_file("err.txt"), "run it without --mpi");
+}
+
+Test(cluster, slurm_steps_job_stopped_before_its_limit_resumes_and_completes) {
+  need_slurm();
+  char *want = single_rank_reference();
+  char cmd[1024];
+  snprintf(cmd, sizeof cmd,
+           "[sh, -c, 'sleep 1; exec \"$0\" {{ _ranks }} in.txt', '%s']",
+           need_mpisum());
+  write_mpi_study("sq.yaml", "sq", 2, cmd, "  env: {SLURM_MPI_TYPE: pmix}\n",
+                  ", launch: srun");
+  char id[64], st[256];
+  submit_go("sq.yaml --scheduler slurm --mode steps --slots 2 "
+            "--time 00:10:00",
+            id, sizeof id);
+  /* The pre-timeout signal once a few runs are recorded: the running
+   * steps end, brink exits 3, the job requeues and resumes. */
+  for (int i = 0; i < 3000; i++) {
+    char *log = read_file("sq/records.log");
+    if (log && strstr(log, "\nlhs/"))
+      break;
+    usleep(20000);
+  }
+  cr_assert_eq(sh("scancel --batch --signal=USR1 %s", id), 0);
+  wait_job(id, st, sizeof st);
+  char name[128];
+  snprintf(name, sizeof name, "sq/slurm-%s.out", id);
+  char *out = read_file(name);
+  cr_assert_str_eq(st, "COMPLETED ", "%s\n%s", st, out ? out : "");
+  assert_has(out, "brink: exit status 3");
+  assert_has(out, "requeueing to resume");
+  assert_has(out, "brink: exit status 0");
+  cr_assert_str_eq(canonical_records("sq"), want);
+  cr_assert_eq(sh("test $(grep -c '^lhs/' sq/records.log) -eq 8"), 0);
 }

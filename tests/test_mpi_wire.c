@@ -17,18 +17,25 @@
 Test(mpi_wire, hello_round_trips_with_and_without_a_failure) {
   bk_buf_t b;
   bk_buf_init(&b);
-  cr_assert_eq(bk_wire_put_hello(&b, "node03", NULL), 0);
+  cr_assert_eq(bk_wire_put_hello(&b, "node03", NULL, 6), 0);
   bk_wire_reader_t r;
   bk_wire_reader_init(&r, b.data, b.len);
   const char *host, *failure;
-  cr_assert_eq(bk_wire_get_hello(&r, &host, &failure), 0);
+  int slots = 0;
+  cr_assert_eq(bk_wire_get_hello(&r, &host, &failure, &slots), 0);
   cr_assert_str_eq(host, "node03");
   cr_assert_null(failure);
+  cr_assert_eq(slots, 6);
   bk_buf_reset(&b);
-  cr_assert_eq(bk_wire_put_hello(&b, "n", "cannot create /s: denied"), 0);
+  cr_assert_eq(bk_wire_put_hello(&b, "n", "cannot create /s: denied", 1), 0);
   bk_wire_reader_init(&r, b.data, b.len);
-  cr_assert_eq(bk_wire_get_hello(&r, &host, &failure), 0);
+  cr_assert_eq(bk_wire_get_hello(&r, &host, &failure, &slots), 0);
   cr_assert_str_eq(failure, "cannot create /s: denied");
+  /* A slot count out of range is a malformed message. */
+  bk_buf_reset(&b);
+  cr_assert_eq(bk_wire_put_hello(&b, "n", NULL, 0), 0);
+  bk_wire_reader_init(&r, b.data, b.len);
+  cr_assert_eq(bk_wire_get_hello(&r, &host, &failure, &slots), BK_EPROTO);
   bk_buf_close(&b);
 }
 

@@ -635,3 +635,74 @@ Test(study, several_limit_states_refused_with_place_and_reason) {
                     "  b: \"x - yy\"\n",
                     4, 11, "limit_states.b: unknown name 'yy'");
 }
+
+#define SMALL                                                                  \
+  HEAD "variables:\n"                                                          \
+       "  a: {type: normal, mean: 0, sd: 1}\n"                                 \
+       "limit_state: 3 - a\n"                                                  \
+       "analysis: {method: random, samples: 10}\n"
+
+Test(study, run_resources_and_their_defaults) {
+  bk_study_t *s;
+  bk_error_t err;
+  unsetenv("PBS_NODEFILE");
+  cr_assert_eq(load(SMALL, &s, &err), 0, "%s", err.msg);
+  cr_assert_eq(s->run.threads, 1);
+  cr_assert_eq(s->run.ranks, 1);
+  cr_assert_eq(s->run.cores, 1);
+  cr_assert_eq(s->run.launch, BK_LAUNCH_DIRECT);
+  cr_assert_eq(s->run.slots_given, 0);
+  int here = bk_study_machine_cores();
+  cr_assert_eq(s->run.slots, here);
+  bk_study_free(s);
+  /* Slots default to the cores over the cores of one run, at least 1. */
+  cr_assert_eq(
+      load(SMALL "run: {threads: 2, ranks: 3, launch: srun}\n", &s, &err), 0,
+      "%s", err.msg);
+  cr_assert_eq(s->run.cores, 6);
+  cr_assert_eq(s->run.launch, BK_LAUNCH_SRUN);
+  cr_assert_eq(s->run.slots, here / 6 > 0 ? here / 6 : 1);
+  bk_study_default_slots(s, 64);
+  cr_assert_eq(s->run.slots, 10);
+  bk_study_default_slots(s, 5);
+  cr_assert_eq(s->run.slots, 1);
+  bk_study_free(s);
+  /* Given slots stay. */
+  cr_assert_eq(load(SMALL "run: {threads: 16, slots: 3}\n", &s, &err), 0);
+  bk_study_default_slots(s, 64);
+  cr_assert_eq(s->run.slots, 3);
+  bk_study_free(s);
+  /* A PBS host list: its lines x threads. */
+  write_file("nodes", "n1\nn1\n\nn2\nn2\n");
+  char nodes[600];
+  snprintf(nodes, sizeof nodes, "%s/nodes", dir);
+  setenv("PBS_NODEFILE", nodes, 1);
+  cr_assert_eq(load(SMALL "run: {ranks: 2}\n", &s, &err), 0);
+  cr_assert_eq(s->run.slots, 2);
+  bk_study_free(s);
+  unsetenv("PBS_NODEFILE");
+}
+
+Test(study, run_resources_are_checked) {
+  expect_error(SMALL "run: {threads: 0}\n", 7, 16,
+               "run.threads must be a whole number >= 1, got '0'");
+  expect_error(SMALL "run: {ranks: 70000}\n", 7, 14,
+               "run.ranks must be at most 65536");
+  expect_error(SMALL "run: {launch: mpirun}\n", 7, 15,
+               "run.launch must be direct or srun; got 'mpirun'");
+  expect_error_part(SMALL "model:\n  command: [sh, x]\n  inherit: ['A B']\n", 9,
+                    13, "model.inherit takes variable names or prefixes");
+}
+
+Test(study, allocation_cores_from_slurm) {
+  setenv("SLURM_JOB_ID", "12", 1);
+  setenv("SLURM_JOB_CPUS_PER_NODE", "4(x2),2", 1);
+  cr_assert_eq(bk_study_allocation_cores(), 10);
+  setenv("SLURM_JOB_CPUS_PER_NODE", "64", 1);
+  cr_assert_eq(bk_study_allocation_cores(), 64);
+  setenv("SLURM_JOB_CPUS_PER_NODE", "4(x2", 1);
+  cr_assert_eq(bk_study_allocation_cores(), 0);
+  unsetenv("SLURM_JOB_ID");
+  cr_assert_eq(bk_study_allocation_cores(), 0);
+  unsetenv("SLURM_JOB_CPUS_PER_NODE");
+}

@@ -46,7 +46,10 @@ static char *render(const char *text, size_t len, const bk_names_t *names,
 }
 
 static char *render_deck(const char *text) {
-  bk_template_ctx_t ctx = {deck_values, 17, "mc/17", "runs/purlin/mc-17"};
+  bk_template_ctx_t ctx = {.values = deck_values,
+                           .index = 17,
+                           .key = "mc/17",
+                           .folder = "runs/purlin/mc-17"};
   return render(text, strlen(text), &deck, &ctx, NULL);
 }
 
@@ -70,7 +73,8 @@ Test(template, placeholder_free_text_renders_unchanged) {
       "utf-8: \xc3\xa9\xe2\x82\xac and high bytes \xff\xfe",
       "$ % %% %s %n text that looks like formats",
   };
-  bk_template_ctx_t ctx = {deck_values, 0, "k", "f"};
+  bk_template_ctx_t ctx = {
+      .values = deck_values, .index = 0, .key = "k", .folder = "f"};
   for (size_t i = 0; i < sizeof texts / sizeof texts[0]; i++) {
     size_t n;
     char *got = render(texts[i], strlen(texts[i]), &deck, &ctx, &n);
@@ -94,7 +98,8 @@ Test(template, random_placeholder_free_text_renders_unchanged) {
   uint64_t seed = 0x7e3a1ce5d15ea5e5ULL;
   uint64_t s = seed;
   char text[512];
-  bk_template_ctx_t ctx = {deck_values, 0, "k", "f"};
+  bk_template_ctx_t ctx = {
+      .values = deck_values, .index = 0, .key = "k", .folder = "f"};
   int tried = 0;
   for (int c = 0; c < 2000; c++) {
     size_t len = 0, want = 1 + (size_t)(c % 400);
@@ -162,7 +167,8 @@ Test(template, default_format_fits_twenty_columns) {
   static const char *const n[] = {"x"};
   bk_names_t names = {n, 1};
   for (size_t i = 0; i < sizeof xs / sizeof xs[0]; i++) {
-    bk_template_ctx_t ctx = {&xs[i], 0, "", ""};
+    bk_template_ctx_t ctx = {
+        .values = &xs[i], .index = 0, .key = "", .folder = ""};
     size_t len;
     char *got = render("{{ x }}", 7, &names, &ctx, &len);
     cr_expect_leq(len, 20, "%.17g renders as %s", xs[i], got);
@@ -185,7 +191,8 @@ Test(template, key_folder_and_index) {
                  "** run mc/17 in runs/purlin/mc-17, evaluation 17\n");
   EXPECT_RENDERS("{{ _index : %06.0f }} {{ 2*_index + 1 }}", "000017 35");
   /* NULL texts render as nothing. */
-  bk_template_ctx_t ctx = {deck_values, 1, NULL, NULL};
+  bk_template_ctx_t ctx = {
+      .values = deck_values, .index = 1, .key = NULL, .folder = NULL};
   const char *tpl = "[{{ _key }}][{{ _folder }}]";
   char *got = render(tpl, strlen(tpl), &deck, &ctx, NULL);
   cr_expect_str_eq(got, "[][]");
@@ -193,7 +200,8 @@ Test(template, key_folder_and_index) {
 }
 
 Test(template, index_works_without_study_variables) {
-  bk_template_ctx_t ctx = {NULL, 4, "lhs/r1/4", "."};
+  bk_template_ctx_t ctx = {
+      .values = NULL, .index = 4, .key = "lhs/r1/4", .folder = "."};
   const char *tpl = "seed {{ 1000 + _index }} key {{ _key }}";
   char *got = render(tpl, strlen(tpl), NULL, &ctx, NULL);
   cr_expect_str_eq(got, "seed 1004 key lhs/r1/4");
@@ -220,7 +228,8 @@ Test(template, render_appends_to_the_buffer) {
   bk_buf_t b;
   bk_buf_init(&b);
   cr_assert_eq(bk_buf_puts(&b, "head;"), 0);
-  bk_template_ctx_t ctx = {deck_values, 0, "", ""};
+  bk_template_ctx_t ctx = {
+      .values = deck_values, .index = 0, .key = "", .folder = ""};
   cr_assert_eq(bk_template_render(t, &ctx, &b), 0);
   double other[] = {0, 1.5, 0, 0, 0};
   ctx.values = other;
@@ -241,7 +250,7 @@ Test(template, many_variables) {
     vals[i] = i * 0.5;
   }
   bk_names_t names = {names_v, N};
-  bk_template_ctx_t ctx = {vals, 3, "", ""};
+  bk_template_ctx_t ctx = {.values = vals, .index = 3, .key = "", .folder = ""};
   const char *tpl = "{{ v0 }} {{ v199 + _index }} {{ v100 : %.2f }}";
   char *got = render(tpl, strlen(tpl), &names, &ctx, NULL);
   cr_expect_str_eq(got, "0 102.5 50.00");
@@ -259,10 +268,11 @@ typedef struct {
 
 static const terr_t errs[] = {
     {"*ELASTIC\n  {{ E_mod : %.12E }}, 0.3\n", BK_ENOTFOUND, 2, 6,
-     "unknown name 'E_mod'; known names: E, fy, t, span, load, _index"},
+     "unknown name 'E_mod'; known names: E, fy, t, span, load, _index, "
+     "_threads, _ranks, ... (9 in all)"},
     {"*ELASTIC\n{{ E * fY }}", BK_ENOTFOUND, 2, 8,
      "unknown name 'fY' (did you mean 'fy'?); known names: E, fy, t, span, "
-     "load, _index"},
+     "load, _index, _threads, _ranks, ... (9 in all)"},
     {"a\nb\n\t{{ fy * }}\n", BK_EPARSE, 3, 10,
      "expected a number, a name or '(' after '*', found the end of the "
      "expression"},
@@ -317,7 +327,8 @@ static const terr_t errs[] = {
     {"x {{ 2 * _folder }}", BK_EPARSE, 1, 10,
      "'_folder' is text and can only stand alone, as {{ _folder }}"},
     {"{{ _keys }}", BK_ENOTFOUND, 1, 4,
-     "unknown name '_keys'; known names: E, fy, t, span, load, _index"},
+     "unknown name '_keys'; known names: E, fy, t, span, load, _index, "
+     "_threads, _ranks, ... (9 in all)"},
 };
 
 Test(template, errors_carry_path_line_and_column) {
@@ -364,7 +375,7 @@ Test(template, error_print_puts_the_caret_under_the_token) {
   char want[512];
   snprintf(want, sizeof want,
            "%s:2:22: unknown name 'nu'; known names: E, fy, t, span, load, "
-           "_index\n"
+           "_index, _threads, _ranks, ... (9 in all)\n"
            "  \t{{ E : %%.12E }}, {{ nu }}\n"
            "  \t                    ^\n",
            path);
@@ -376,7 +387,8 @@ Test(template, error_print_puts_the_caret_under_the_token) {
 
 Test(template, every_failed_allocation_gives_enomem) {
   const char *tpl = "*NODE\n1, {{ span : %.4f }}\n*KEY {{ _key }} {{ E*fy }}\n";
-  bk_template_ctx_t ctx = {deck_values, 2, "mc/2", "runs/mc-2"};
+  bk_template_ctx_t ctx = {
+      .values = deck_values, .index = 2, .key = "mc/2", .folder = "runs/mc-2"};
   char *want = render(tpl, strlen(tpl), &deck, &ctx, NULL);
   for (long n = 1;; n++) {
     bk_template_t *t = NULL;

@@ -196,7 +196,12 @@ static int try_model(const bk_study_t *s, const double *med) {
     printf("  deck        %s/%s (from %s)\n", rd.data, s->model.decks[i].to,
            s->model.decks[i].template_name);
   /* As run: the placeholders of the arguments rendered. */
-  bk_template_ctx_t tctx = {x, 0, "try/0", rd.data};
+  bk_template_ctx_t tctx = {.values = x,
+                            .index = 0,
+                            .key = "try/0",
+                            .folder = rd.data,
+                            .threads = s->run.threads,
+                            .ranks = s->run.ranks};
   char **args = bk_study_render_argv(s, &tctx);
   printf("  command     ");
   for (size_t i = 0; i < s->model.argc; i++)
@@ -358,7 +363,12 @@ int bk__cmd_check(int argc, char **argv) {
     for (size_t i = 0; i < m->ndecks; i++) {
       bk_buf_t deck;
       bk_buf_init(&deck);
-      bk_template_ctx_t ctx = {med, 0, "check/0", "(run folder)"};
+      bk_template_ctx_t ctx = {.values = med,
+                               .index = 0,
+                               .key = "check/0",
+                               .folder = "(run folder)",
+                               .threads = s->run.threads,
+                               .ranks = s->run.ranks};
       bk_template_render(m->decks[i].tpl, &ctx, &deck);
       printf("\n%s rendered at the medians (from %s):\n", m->decks[i].to,
              m->decks[i].template_name);
@@ -436,7 +446,21 @@ int bk__cmd_check(int argc, char **argv) {
   printf("  %g%% confidence intervals\n", 100 * a->ci_level);
   if (a->has_target_beta)
     printf("  target reliability index %.2f\n", a->target_beta);
-  printf("\nRun folder %s (%d slots)\n", s->run.folder, s->run.slots);
+  printf("\nRun folder %s\n", s->run.folder);
+  printf("  %d run%s at a time, %d core%s per run (%d thread%s x %d rank%s), "
+         "%d core%s in all; each run started %s\n",
+         s->run.slots, s->run.slots == 1 ? "" : "s", s->run.cores,
+         s->run.cores == 1 ? "" : "s", s->run.threads,
+         s->run.threads == 1 ? "" : "s", s->run.ranks,
+         s->run.ranks == 1 ? "" : "s", s->run.slots * s->run.cores,
+         s->run.slots * s->run.cores == 1 ? "" : "s",
+         s->run.launch == BK_LAUNCH_SRUN ? "as a Slurm job step (srun)"
+                                         : "directly");
+  int here = bk_study_available_cores(s);
+  if (s->run.slots * s->run.cores > here)
+    printf("  (more than the %d core%s brink may use here: the runs will "
+           "share them)\n",
+           here, here == 1 ? "" : "s");
   int exit_code = BK_EXIT_DONE;
   if (try_it && s->model.present)
     exit_code = try_model(s, med);

@@ -26,12 +26,13 @@
 
 static const char plan_help[] =
     "usage: brink plan STUDY.yaml [--pf P] [--seconds S] [--cov C]\n"
-    "                  [--slots N] [--json]\n"
+    "                  [--cores N | --slots N] [--json]\n"
     "\n"
     "Prints, for each method, the evaluations and the wall time needed to\n"
     "reach the coefficient of variation C (default: the study's target_cov,\n"
-    "else 0.1) at failure probability P with S seconds per model run on N\n"
-    "slots (default run.slots). Without --pf or --seconds the figures come\n"
+    "else 0.1) at failure probability P with S seconds per model run, N\n"
+    "cores over the cores of one run (run.threads x run.ranks) at a time\n"
+    "(default run.slots). Without --pf or --seconds the figures come\n"
     "from a pilot run in the study's run folder: Pf from report.json, the\n"
     "mean seconds per evaluation from records.log. The figures are\n"
     "estimates from each estimator's variance formula (see docs/methods.md),\n"
@@ -41,6 +42,7 @@ static const char plan_help[] =
     "  --pf P        expected failure probability (0 < P < 1)\n"
     "  --seconds S   seconds per model run\n"
     "  --cov C       target coefficient of variation\n"
+    "  --cores N     cores to run on (64 cores, 16 per run: 4 runs at once)\n"
     "  --slots N     concurrent model runs\n"
     "  --json        print JSON instead of a table\n";
 
@@ -148,7 +150,7 @@ static void print_duration(double s) {
 
 int bk__cmd_plan(int argc, char **argv) {
   const char *path = NULL;
-  double pf = NAN, seconds = NAN, cov = NAN, slots = NAN;
+  double pf = NAN, seconds = NAN, cov = NAN, slots = NAN, cores = NAN;
   int json = 0, rc;
   for (int i = 0; i < argc; i++) {
     const char *a = argv[i];
@@ -158,10 +160,12 @@ int bk__cmd_plan(int argc, char **argv) {
     } else if (strcmp(a, "--json") == 0) {
       json = 1;
     } else if (strcmp(a, "--pf") == 0 || strcmp(a, "--seconds") == 0 ||
-               strcmp(a, "--cov") == 0 || strcmp(a, "--slots") == 0) {
+               strcmp(a, "--cov") == 0 || strcmp(a, "--slots") == 0 ||
+               strcmp(a, "--cores") == 0) {
       double *dst = a[2] == 'p'   ? &pf
                     : a[3] == 'e' ? &seconds
-                    : a[3] == 'o' ? &cov
+                    : a[4] == 'v' ? &cov
+                    : a[3] == 'o' ? &cores
                                   : &slots;
       if ((rc = want_number(a, i + 1 < argc ? argv[i + 1] : NULL, dst)))
         return rc;
@@ -182,9 +186,27 @@ int bk__cmd_plan(int argc, char **argv) {
     fprintf(stderr, "brink: plan: --pf must lie between 0 and 1\n");
     return BK_EXIT_USAGE;
   }
+  if (!isnan(slots) && !isnan(cores))
+    return bk__cli_usage_error("plan: %s", "give --cores or --slots, not "
+                                           "both");
+  if ((!isnan(slots) && !(slots >= 1)) || (!isnan(cores) && !(cores >= 1))) {
+    fprintf(stderr, "brink: plan: --cores and --slots take a number >= 1\n");
+    return BK_EXIT_USAGE;
+  }
   bk_study_t *s;
   if ((rc = bk__cli_load_study(path, &s)))
     return rc;
+  /* Runs at a time: --slots, or --cores over the cores of one run, or
+   * run.slots (given, or the cores brink may use over those of a run). */
+  int per_run = s->run.cores > 0 ? s->run.cores : 1;
+  if (!isnan(cores)) {
+    double n = floor(cores / per_run);
+    slots = n < 1 ? 1 : n;
+  }
+  int ncores = !isnan(cores)        ? (int)cores
+               : !isnan(slots)      ? (int)slots * per_run
+               : s->run.slots_given ? s->run.slots * per_run
+                                    : bk_study_available_cores(s);
   const char *pf_from = "--pf", *sec_from = "--seconds";
   pilot_t pilot;
   pilot_read(s->run.folder, &pilot);
@@ -247,8 +269,10 @@ int bk__cmd_plan(int argc, char **argv) {
     bk_json_number(&b, seconds);
     bk_buf_puts(&b, ",\n  \"seconds_from\": ");
     bk_json_string(&b, sec_from);
-    bk_buf_printf(&b, ",\n  \"slots\": %d,\n  \"random_variables\": %zu",
-                  o.slots, o.nu);
+    bk_buf_printf(&b,
+                  ",\n  \"slots\": %d,\n  \"cores\": %d,\n  "
+                  "\"cores_per_run\": %d,\n  \"random_variables\": %zu",
+                  o.slots, ncores, per_run, o.nu);
     bk_buf_puts(&b, ",\n  \"methods\": [");
     for (int i = 0; i < BK_PLAN_ROWS; i++) {
       bk_buf_puts(&b, i ? ",\n    {\"method\": " : "\n    {\"method\": ");
@@ -268,9 +292,11 @@ int bk__cmd_plan(int argc, char **argv) {
     printf("Plan for %s: Pf %.3g (%s), target cov %g, ", s->name, pf, pf_from,
            cov);
     if (isfinite(seconds))
-      printf("%.3g s per run (%s), %d slots\n", seconds, sec_from, o.slots);
+      printf("%.3g s per run (%s)\n", seconds, sec_from);
     else
       printf("seconds per run %s\n", sec_from);
+    printf("%d core%s, %d per run: %d run%s at a time\n", ncores,
+           ncores == 1 ? "" : "s", per_run, o.slots, o.slots == 1 ? "" : "s");
     printf("%zu random variables, beta %.2f\n\n", o.nu, -bk_norm_icdf(pf));
     printf("  %-14s %14s %12s  %s\n", "method", "evaluations", "wall time",
            "assumes");
@@ -279,7 +305,8 @@ int bk__cmd_plan(int argc, char **argv) {
       print_duration(rows[i].seconds);
       printf("  %s\n", rows[i].note);
     }
-    printf("\nWall time = evaluations x seconds per run / slots (FORM: "
+    printf("\nWall time = evaluations x seconds per run / runs at a time "
+           "(FORM: "
            "iterations run one\nbatch after another). Estimates for "
            "choosing a method, not promises.\n");
   }

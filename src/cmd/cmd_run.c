@@ -51,6 +51,7 @@ static const char run_help[] =
     "  -q, --quiet    no progress display and no report on stdout\n"
     "  --mpi          under mpirun or srun: rank 0 coordinates and keeps the\n"
     "                 records, the other ranks run run.slots models each\n"
+    "                 (by default the rank's cores over the cores per run)\n"
     "  --shard I/N    evaluate shard I of N (0 <= I < N) of a random, lhs or\n"
     "                 sobol study into records-shard-I-of-N.log, for job\n"
     "                 arrays; `brink merge` then makes the report\n"
@@ -115,6 +116,7 @@ static int model_run_close(model_run_t *m, bk_error_t *err) {
 /* How this process takes part in the run. */
 typedef struct {
   int mpi;          /* rank 0 of an MPI run with workers */
+  int under_mpi;    /* brink run --mpi, whatever the number of ranks */
   bk_shard_t shard; /* count 0 = not sharded */
 } run_mode_t;
 
@@ -226,8 +228,20 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
       .tick = on_tick,
       .tick_data = pr,
   };
+  /* In a PBS job, brink alone (not under --mpi) splits the host list
+   * between its concurrent runs. */
+  const char *nodefile = getenv("PBS_NODEFILE");
+  if (!mode->under_mpi && s->run.launch == BK_LAUNCH_DIRECT && nodefile &&
+      *nodefile)
+    dop.hostfile = nodefile;
   if ((rc = bk_dispatch_new(&m->dispatch, &dop)) != 0) {
-    fprintf(stderr, "brink: out of memory\n");
+    if (rc == BK_EIO)
+      fprintf(stderr,
+              "brink: cannot read a host from the host list %s "
+              "(PBS_NODEFILE)\n",
+              nodefile);
+    else
+      fprintf(stderr, "brink: out of memory\n");
     model_run_close(m, &err);
     return BK_EXIT_RUNTIME;
   }
@@ -253,6 +267,23 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
             bk_method_name(s->analysis.method));
     bk_study_free(s);
     return BK_EXIT_USAGE;
+  }
+  if (s->model.present && s->run.launch == BK_LAUNCH_SRUN) {
+    const char *why = NULL;
+    if (mode->under_mpi)
+      why = "run.launch: srun makes brink one process that starts each "
+            "model run as a job step of its allocation; run it without "
+            "--mpi (brink submit --mode steps writes such a job)";
+    else if (!getenv("SLURM_JOB_ID"))
+      why = "run.launch: srun starts each model run as a job step of a "
+            "Slurm allocation, and SLURM_JOB_ID is not set: run brink "
+            "inside one (sbatch, salloc, or brink submit --mode steps), or "
+            "set run.launch: direct";
+    if (why) {
+      fprintf(stderr, "brink: %s\n", why);
+      bk_study_free(s);
+      return BK_EXIT_USAGE;
+    }
   }
   if (mode->shard.count && !s->model.present) {
     fprintf(stderr, "brink: --shard needs a study with a model section "
@@ -449,6 +480,20 @@ static int run_worker(const char *path, int rank) {
   }
   if (!s->model.present)
     goto greet;
+  /* A worker runs on the cores of its rank: its CPU affinity, and under
+   * srun at most the CPUs of its task (without task binding the
+   * affinity is the whole node). */
+  int cores = bk_study_machine_cores();
+  const char *cpt = getenv("SLURM_CPUS_PER_TASK");
+  if (cpt && atoi(cpt) > 0 && atoi(cpt) < cores)
+    cores = atoi(cpt);
+  bk_study_default_slots(s, cores);
+  if (s->run.launch == BK_LAUNCH_SRUN) {
+    snprintf(failure, sizeof failure,
+             "run.launch: srun does not combine with --mpi (brink runs as "
+             "one process in the allocation; brink submit --mode steps)");
+    goto greet;
+  }
   /* Rank 0 may not have made the run folder yet. */
   bk__cli_make_dirs(s->run.folder);
   char *abs_folder = realpath(s->run.folder, NULL);
@@ -542,6 +587,7 @@ int bk__cmd_run(int argc, char **argv) {
     return BK_EXIT_RUNTIME;
   }
   int code;
+  mode.under_mpi = 1;
   if (rank > 0) {
     code = run_worker(path, rank);
   } else {

@@ -384,8 +384,11 @@ int bk__cmd_status(int argc, char **argv) {
           snprintf(rb, sizeof rb, "%.1f runs/min", rate * 60);
         else
           snprintf(rb, sizeof rb, "%.2g runs/h", rate * 3600);
-        printf("  rate           about %s with %d slot%s\n", rb, slots,
-               slots == 1 ? "" : "s");
+        int per = s->run.cores > 0 ? s->run.cores : 1;
+        printf("  rate           about %s with %d run%s at a time (%d "
+               "core%s, %d per run)\n",
+               rb, slots, slots == 1 ? "" : "s", slots * per,
+               slots * per == 1 ? "" : "s", per);
       }
       if (exact && plan > t->n && held == 1) {
         char eta[32];

@@ -38,13 +38,18 @@ static const char submit_help[] =
     "exits 3, so the study resumes from its records.\n"
     "\n"
     "  --scheduler S     slurm or pbs\n"
-    "  --mode M          mpi (default: brink run --mpi over --ranks ranks) or\n"
+    "  --mode M          mpi (default: brink run --mpi over --ranks ranks),\n"
     "                    array (--tasks shards, brink run --shard I/N;\n"
     "                    random, lhs and sobol studies; then brink merge)\n"
+    "                    or steps (one brink in an allocation of --slots\n"
+    "                    runs x run.ranks x run.threads CPUs; Slurm: each\n"
+    "                    run a job step, needs run.launch: srun; PBS: the\n"
+    "                    host list split between the runs)\n"
     "  --ranks N         MPI ranks, rank 0 coordinating (default 4)\n"
     "  --tasks N         array tasks (default 4)\n"
-    "  --slots N         model runs at a time per rank or task (default\n"
-    "                    run.slots)\n"
+    "  --slots N         model runs at a time per rank or task, or in the\n"
+    "                    allocation with --mode steps (default run.slots);\n"
+    "                    each run takes run.threads x run.ranks CPUs\n"
     "  --time T          time limit HH:MM:SS or D-HH:MM:SS (default 01:00:00)\n"
     "  --signal-lead S   seconds before the limit to stop brink (default 120)\n"
     "  --partition P     Slurm partition (also --queue, the PBS queue)\n"
@@ -82,6 +87,11 @@ enum {
   V_LAUNCH,
   V_MAX_REQUEUE,
   V_SCRIPT,
+  V_CPUS,
+  V_CORES,
+  V_THREADS,
+  V_RUN_RANKS,
+  V_STEP_TASKS,
   V__COUNT
 };
 
@@ -89,7 +99,8 @@ static const char *const var_names[V__COUNT] = {
     "STUDY",    "STUDYDIR", "FOLDER",     "BRINK",       "NAME",
     "RANKS",    "TASKS",    "LAST",       "SLOTS",       "TIME",
     "WALLTIME", "LEAD",     "STOP_AFTER", "PARTITION",   "QUEUE",
-    "ACCOUNT",  "MEMORY",   "LAUNCH",     "MAX_REQUEUE", "SCRIPT"};
+    "ACCOUNT",  "MEMORY",   "LAUNCH",     "MAX_REQUEUE", "SCRIPT",
+    "CPUS",     "CORES",    "THREADS",    "RUN_RANKS",   "STEP_TASKS"};
 
 /* Parses HH:MM:SS, MM:SS, SS or D-HH:MM:SS into seconds; -1 when bad. */
 static long parse_time(const char *t) {
@@ -371,9 +382,9 @@ int bk__cmd_submit(int argc, char **argv) {
   if (!sched || (strcmp(sched, "slurm") && strcmp(sched, "pbs")))
     return bk__cli_usage_error("submit: %s",
                                "--scheduler slurm or --scheduler pbs");
-  if (strcmp(mode, "mpi") && strcmp(mode, "array"))
-    return bk__cli_usage_error("submit: --mode is mpi or array, not '%s'",
-                               mode);
+  if (strcmp(mode, "mpi") && strcmp(mode, "array") && strcmp(mode, "steps"))
+    return bk__cli_usage_error(
+        "submit: --mode is mpi, array or steps, not '%s'", mode);
   long secs = parse_time(time_s);
   if (secs <= 0)
     return bk__cli_usage_error("submit: --time takes HH:MM:SS or "
@@ -409,6 +420,24 @@ int bk__cmd_submit(int argc, char **argv) {
             "a study with a model section (without one, a study runs in "
             "process and keeps no records to merge): use --mode mpi, or run "
             "it on one node\n");
+    bk_study_free(s);
+    return BK_EXIT_USAGE;
+  }
+  int steps = strcmp(mode, "steps") == 0;
+  if (steps && strcmp(sched, "slurm") == 0 && s->run.launch != BK_LAUNCH_SRUN) {
+    fprintf(stderr,
+            "brink: submit: --mode steps runs brink as one process that "
+            "starts each model run as a job step; the study needs "
+            "run.launch: srun (with model.command the program each rank "
+            "runs)\n");
+    bk_study_free(s);
+    return BK_EXIT_USAGE;
+  }
+  if (steps && strcmp(sched, "pbs") == 0 && s->run.launch != BK_LAUNCH_DIRECT) {
+    fprintf(stderr, "brink: submit: PBS has no job steps: with --scheduler "
+                    "pbs --mode steps the study needs run.launch: direct, "
+                    "and each run starts its ranks on its share of the "
+                    "host list ({{ _hosts }}, BRINK_HOSTS)\n");
     bk_study_free(s);
     return BK_EXIT_USAGE;
   }
@@ -456,8 +485,17 @@ int bk__cmd_submit(int argc, char **argv) {
   snprintf(vars[V_RANKS].value, sizeof vars[0].value, "%ld", ranks);
   snprintf(vars[V_TASKS].value, sizeof vars[0].value, "%ld", tasks);
   snprintf(vars[V_LAST].value, sizeof vars[0].value, "%ld", tasks - 1);
-  snprintf(vars[V_SLOTS].value, sizeof vars[0].value, "%ld",
-           slots ? slots : (long)s->run.slots);
+  long nslots = slots ? slots : (long)s->run.slots;
+  long cores = s->run.cores > 0 ? s->run.cores : 1;
+  snprintf(vars[V_SLOTS].value, sizeof vars[0].value, "%ld", nslots);
+  snprintf(vars[V_CPUS].value, sizeof vars[0].value, "%ld", nslots * cores);
+  snprintf(vars[V_CORES].value, sizeof vars[0].value, "%ld", cores);
+  snprintf(vars[V_THREADS].value, sizeof vars[0].value, "%d",
+           s->run.threads > 0 ? s->run.threads : 1);
+  snprintf(vars[V_RUN_RANKS].value, sizeof vars[0].value, "%d",
+           s->run.ranks > 0 ? s->run.ranks : 1);
+  snprintf(vars[V_STEP_TASKS].value, sizeof vars[0].value, "%ld",
+           nslots * (s->run.ranks > 0 ? s->run.ranks : 1));
   snprintf(vars[V_TIME].value, sizeof vars[0].value, "%ld:%02ld:%02ld",
            secs / 3600, secs / 60 % 60, secs % 60);
   snprintf(vars[V_WALLTIME].value, sizeof vars[0].value, "%s",

@@ -62,15 +62,22 @@ typedef struct {
   char *dir;
   int attempts;
   int done;
-  int need; /* to run: not found in the records */
+  int need;  /* to run: not found in the records */
+  int chunk; /* its chunk of the host list while it runs, else -1 */
 } job_t;
 
 struct bk_dispatch {
   bk_dispatch_opts_t o;
   bk_dispatch_stats_t st;
   bk_sink_t records_sink; /* when no sink is given */
-  char **base_env;        /* environ + model.env, without BRINK_* */
+  char **base_env; /* environ without what the model does not inherit, the
+                      run's resources, model.env */
   size_t nbase_env;
+  char res[6][48];  /* the resource variables in base_env */
+  char hosts[1100]; /* {{ _hosts }}: HOST:RANKS under run.launch direct */
+  char **chunks;    /* the host list split between concurrent runs */
+  int *chunk_busy;
+  size_t nchunks;
   double *vals; /* x then y, for the limit state */
   char **spare; /* folders to reuse (see the top of this file) */
   size_t nspare;
@@ -180,16 +187,84 @@ static int env_name_eq(const char *a, const char *b) {
   return (*a == '=' || !*a) && (*b == '=' || !*b);
 }
 
+/* Does the variable "NAME=VALUE" match `pat`: a name, or a prefix ending
+ * in '*'? */
+static int env_match(const char *kv, const char *pat) {
+  size_t n = strlen(pat);
+  if (n > 0 && pat[n - 1] == '*')
+    return strncmp(kv, pat, n - 1) == 0;
+  return strncmp(kv, pat, n) == 0 && kv[n] == '=';
+}
+
+/* The variables a model does not inherit from brink (docs/cluster.md,
+ * "The model's environment"): brink's own, those of the launcher that
+ * started brink (mpirun, srun, a PMI), which would make a model's own
+ * mpirun join brink's job or fail, glibc's allocation checks, which slow
+ * every program, and the thread counts brink sets itself. */
+static const char *const removed_always[] = {
+    "BRINK_*",         "OMPI_*",          "PMIX_*",        "PMI_*",
+    "PRTE_*",          "ORTE_*",          "HYDRA_*",       "MPI_LOCALRANKID",
+    "MPI_LOCALNRANKS", "MALLOC_PERTURB_", "MALLOC_CHECK_", NULL};
+/* Under run.launch direct, every Slurm variable: a model's mpirun then
+ * starts its ranks on this node as it would outside Slurm. */
+static const char *const removed_direct[] = {"SLURM_*", NULL};
+/* Under run.launch srun, the variables of brink's own step and task,
+ * which srun would take for options of the model's step; the job's stay,
+ * so that srun finds the allocation. */
+static const char *const removed_srun[] = {"SLURM_STEP*",
+                                           "SLURM_PROCID",
+                                           "SLURM_LOCALID",
+                                           "SLURM_NODEID",
+                                           "SLURM_TASK_PID",
+                                           "SLURM_GTIDS",
+                                           "SLURM_CPU_BIND*",
+                                           "SLURM_LAUNCH_NODE_IPADDR",
+                                           "SLURM_SRUN_COMM_*",
+                                           "SLURM_PTY_*",
+                                           "SLURM_DISTRIBUTION",
+                                           "SLURM_CPUS_PER_TASK",
+                                           "SLURM_NTASKS*",
+                                           "SLURM_NPROCS",
+                                           "SLURM_NNODES",
+                                           "SLURM_TASKS_PER_NODE",
+                                           "SLURM_EXACT",
+                                           "SLURM_OVERLAP",
+                                           NULL};
+/* Set from run.threads (model.env overrides them). */
+static const char *const thread_vars[] = {
+    "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", NULL};
+
+static int in_list(const char *kv, const char *const *list) {
+  for (; *list; list++)
+    if (env_match(kv, *list))
+      return 1;
+  return 0;
+}
+
+int bk_dispatch_env_removed(const bk_study_t *s, const char *kv) {
+  const bk_model_t *m = &s->model;
+  int gone = in_list(kv, removed_always) ||
+             in_list(kv, s->run.launch == BK_LAUNCH_SRUN ? removed_srun
+                                                         : removed_direct);
+  if (gone && strncmp(kv, "BRINK_", 6) != 0)
+    for (size_t i = 0; i < m->ninherit; i++)
+      if (env_match(kv, m->inherit[i]))
+        return 0;
+  return gone || in_list(kv, thread_vars);
+}
+
 static int build_base_env(bk_dispatch_t *d) {
-  const bk_model_t *m = &d->o.study->model;
+  const bk_study_t *s = d->o.study;
+  const bk_model_t *m = &s->model;
   size_t n = 0;
   while (environ && environ[n])
     n++;
-  d->base_env = bk_calloc(n + m->nenv + 1, sizeof *d->base_env);
+  size_t nres = sizeof d->res / sizeof d->res[0];
+  d->base_env = bk_calloc(n + m->nenv + nres + 1, sizeof *d->base_env);
   if (!d->base_env)
     return BK_ENOMEM;
   for (size_t i = 0; i < n; i++) {
-    if (strncmp(environ[i], "BRINK_", 6) == 0)
+    if (bk_dispatch_env_removed(s, environ[i]))
       continue;
     int overridden = 0;
     for (size_t j = 0; j < m->nenv; j++)
@@ -198,9 +273,154 @@ static int build_base_env(bk_dispatch_t *d) {
     if (!overridden)
       d->base_env[d->nbase_env++] = environ[i];
   }
+  /* The run's resources, unless model.env sets them. */
+  int threads = s->run.threads > 0 ? s->run.threads : 1;
+  int ranks = s->run.ranks > 0 ? s->run.ranks : 1;
+  snprintf(d->res[0], sizeof d->res[0], "BRINK_THREADS=%d", threads);
+  snprintf(d->res[1], sizeof d->res[1], "BRINK_RANKS=%d", ranks);
+  snprintf(d->res[2], sizeof d->res[2], "BRINK_CORES=%d", threads * ranks);
+  for (int k = 0; thread_vars[k]; k++)
+    snprintf(d->res[3 + k], sizeof d->res[3 + k], "%s=%d", thread_vars[k],
+             threads);
+  for (size_t k = 0; k < nres; k++) {
+    int overridden = 0;
+    for (size_t j = 0; j < m->nenv; j++)
+      if (env_name_eq(d->res[k], m->env[j]))
+        overridden = 1;
+    if (!overridden)
+      d->base_env[d->nbase_env++] = d->res[k];
+  }
   for (size_t j = 0; j < m->nenv; j++)
     d->base_env[d->nbase_env++] = m->env[j];
   return 0;
+}
+
+static const char *job_hosts(const job_t *j);
+
+/* The argv of one run: model.command with its placeholders rendered like
+ * a deck (the values, _index, _key, _folder and the run's resources
+ * _threads, _ranks, _cores, _hosts), after `srun --exact ...` under
+ * run.launch srun. NULL when out of memory; free with free_argv. */
+static char **run_argv(const bk_dispatch_t *d, const job_t *j) {
+  const bk_study_t *s = d->o.study;
+  const bk_run_t *r = &s->run;
+  bk_template_ctx_t ctx = {.values = j->pt->x,
+                           .index = (double)j->pt->index,
+                           .key = j->key,
+                           .folder = j->dir,
+                           .threads = r->threads,
+                           .ranks = r->ranks,
+                           .hosts = job_hosts(j)};
+  char **cmd = bk_study_render_argv(s, &ctx);
+  size_t pre = r->launch == BK_LAUNCH_SRUN ? 7 : 0;
+  char **argv = cmd ? bk_calloc(pre + s->model.argc + 1, sizeof *argv) : NULL;
+  if (!argv) {
+    bk_free(cmd);
+    return NULL;
+  }
+  int bad = 0;
+  if (pre) {
+    char t[3][BK_REPLAY_KEY_MAX + 32];
+    snprintf(t[0], sizeof t[0], "--ntasks=%d", r->ranks > 0 ? r->ranks : 1);
+    snprintf(t[1], sizeof t[1], "--cpus-per-task=%d",
+             r->threads > 0 ? r->threads : 1);
+    snprintf(t[2], sizeof t[2], "--job-name=%s", j->key);
+    const char *a[7] = {
+        "srun", "--exact", t[0], t[1], t[2], "--kill-on-bad-exit=1", "--quiet"};
+    for (size_t i = 0; i < pre; i++)
+      bad |= !(argv[i] = bk_strdup(a[i]));
+  }
+  for (size_t i = 0; !bad && i < s->model.argc; i++)
+    bad |= !(argv[pre + i] = bk_strdup(cmd[i]));
+  bk_free(cmd);
+  if (bad) {
+    for (size_t i = 0; i < pre + s->model.argc; i++)
+      bk_free(argv[i]);
+    bk_free(argv);
+    return NULL;
+  }
+  return argv;
+}
+
+static void free_argv(char **argv) {
+  for (size_t i = 0; argv && argv[i]; i++)
+    bk_free(argv[i]);
+  bk_free(argv);
+}
+
+/* Reads the host list and splits it into chunks of run.ranks lines (the
+ * last chunk may be short only when the list is shorter than one chunk).
+ * Returns 0, BK_ENOMEM or BK_EIO. */
+static int read_chunks(bk_dispatch_t *d, const char *path) {
+  FILE *f = fopen(path, "r");
+  if (!f)
+    return BK_EIO;
+  int ranks = d->o.study->run.ranks > 0 ? d->o.study->run.ranks : 1;
+  char line[512];
+  char **hosts = NULL;
+  size_t n = 0, cap = 0;
+  int rc = 0;
+  while (rc == 0 && fgets(line, sizeof line, f)) {
+    char *h = line;
+    while (*h == ' ' || *h == '\t')
+      h++;
+    size_t len = strcspn(h, " \t\r\n");
+    if (len == 0)
+      continue;
+    if (n == cap) {
+      size_t nc = cap ? 2 * cap : 64;
+      char **nh = bk_realloc(hosts, nc * sizeof *nh);
+      if (!nh) {
+        rc = BK_ENOMEM;
+        break;
+      }
+      hosts = nh;
+      cap = nc;
+    }
+    if (!(hosts[n] = bk_strndup(h, len)))
+      rc = BK_ENOMEM;
+    else
+      n++;
+  }
+  fclose(f);
+  if (rc == 0 && n == 0)
+    rc = BK_EIO;
+  size_t nch = n >= (size_t)ranks ? n / (size_t)ranks : 1;
+  if (rc == 0) {
+    d->chunks = bk_calloc(nch, sizeof *d->chunks);
+    d->chunk_busy = bk_calloc(nch, sizeof *d->chunk_busy);
+    if (!d->chunks || !d->chunk_busy)
+      rc = BK_ENOMEM;
+  }
+  for (size_t c = 0; rc == 0 && c < nch; c++) {
+    size_t from = c * (size_t)ranks;
+    size_t to = nch == 1 && n < (size_t)ranks ? n : from + (size_t)ranks;
+    bk_buf_t b;
+    bk_buf_init(&b);
+    int bad = bk_buf_puts(&b, "");
+    /* "host:count" for each host, in the order of the list. */
+    for (size_t i = from; i < to; i++) {
+      int seen = 0;
+      for (size_t k = from; k < i; k++)
+        seen |= strcmp(hosts[k], hosts[i]) == 0;
+      if (seen)
+        continue;
+      int count = 0;
+      for (size_t k = i; k < to; k++)
+        count += strcmp(hosts[k], hosts[i]) == 0;
+      bad |= bk_buf_printf(&b, "%s%s:%d", b.len ? "," : "", hosts[i], count);
+    }
+    if (bad) {
+      bk_buf_close(&b);
+      rc = BK_ENOMEM;
+    } else {
+      d->chunks[d->nchunks++] = b.data;
+    }
+  }
+  for (size_t i = 0; i < n; i++)
+    bk_free(hosts[i]);
+  bk_free(hosts);
+  return rc;
 }
 
 int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
@@ -209,6 +429,10 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
     return BK_ENOMEM;
   d->o = *opts;
   d->pid = (long)getpid();
+  if (opts->study->run.launch == BK_LAUNCH_DIRECT)
+    snprintf(d->hosts, sizeof d->hosts, "%s:%d",
+             opts->host && *opts->host ? opts->host : "localhost",
+             opts->study->run.ranks > 0 ? opts->study->run.ranks : 1);
   if (!d->o.sink) {
     bk_sink_records(&d->records_sink, opts->records);
     d->o.sink = &d->records_sink;
@@ -218,6 +442,13 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
   if (!d->vals || build_base_env(d)) {
     bk_dispatch_free(d);
     return BK_ENOMEM;
+  }
+  if (opts->hostfile) {
+    int rc = read_chunks(d, opts->hostfile);
+    if (rc) {
+      bk_dispatch_free(d);
+      return rc;
+    }
   }
   *out = d;
   return 0;
@@ -231,6 +462,10 @@ void bk_dispatch_free(bk_dispatch_t *d) {
     bk_free(d->spare[i]);
   }
   bk_free(d->spare);
+  for (size_t i = 0; i < d->nchunks; i++)
+    bk_free(d->chunks[i]);
+  bk_free(d->chunks);
+  bk_free(d->chunk_busy);
   bk_free(d->base_env);
   bk_free(d->vals);
   bk_free(d);
@@ -509,6 +744,27 @@ static int reuse_spare(bk_dispatch_t *d, const char *dir) {
   return 0;
 }
 
+/* The host list of a job: its chunk, or this host. */
+static const char *job_hosts(const job_t *j) {
+  return j->chunk >= 0 ? j->d->chunks[j->chunk] : j->d->hosts;
+}
+
+/* Gives the job a free chunk of the host list, when there is one. */
+static void take_chunk(job_t *j) {
+  bk_dispatch_t *d = j->d;
+  for (size_t c = 0; j->chunk < 0 && c < d->nchunks; c++)
+    if (!d->chunk_busy[c]) {
+      d->chunk_busy[c] = 1;
+      j->chunk = (int)c;
+    }
+}
+
+static void give_back_chunk(job_t *j) {
+  if (j->chunk >= 0)
+    j->d->chunk_busy[j->chunk] = 0;
+  j->chunk = -1;
+}
+
 /* Makes a fresh run folder for the job and fills it. Returns 0, or a
  * negative code with the reason in why. */
 static int prepare_folder(job_t *j, char *why, size_t whycap) {
@@ -531,7 +787,13 @@ static int prepare_folder(job_t *j, char *why, size_t whycap) {
   bk_buf_init(&out);
   for (size_t i = 0; i < s->model.ndecks; i++) {
     const bk_deck_t *dk = &s->model.decks[i];
-    bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key, j->dir};
+    bk_template_ctx_t ctx = {.values = j->pt->x,
+                             .index = (double)j->pt->index,
+                             .key = j->key,
+                             .folder = j->dir,
+                             .threads = s->run.threads,
+                             .ranks = s->run.ranks,
+                             .hosts = job_hosts(j)};
     bk_buf_reset(&out);
     rc = bk_template_render(dk->tpl, &ctx, &out);
     if (rc == 0)
@@ -573,10 +835,19 @@ static int submit(job_t *j) {
     return rc;
   }
   size_t ne = d->nbase_env;
-  char **env = bk_calloc(ne + 4, sizeof *env);
+  char **env = bk_calloc(ne + 5, sizeof *env);
+  char **argv = run_argv(d, j);
   char kv[3][1200];
-  if (!env)
+  bk_buf_t hv; /* BRINK_HOSTS: a host list has no length limit */
+  bk_buf_init(&hv);
+  if (job_hosts(j)[0]) /* on failure the fresh buffer stays empty */
+    (void)bk_buf_printf(&hv, "BRINK_HOSTS=%s", job_hosts(j));
+  if (!env || !argv || (job_hosts(j)[0] && !hv.data)) {
+    bk_free(env);
+    free_argv(argv);
+    bk_buf_close(&hv);
     return BK_ENOMEM;
+  }
   memcpy(env, d->base_env, ne * sizeof *env);
   snprintf(kv[0], sizeof kv[0], "BRINK_KEY=%s", j->key);
   snprintf(kv[1], sizeof kv[1], "BRINK_INDEX=%llu",
@@ -585,18 +856,11 @@ static int submit(job_t *j) {
   env[ne] = kv[0];
   env[ne + 1] = kv[1];
   env[ne + 2] = kv[2];
-  env[ne + 3] = NULL;
-  /* Arguments with placeholders are rendered like the decks. */
-  bk_template_ctx_t ctx = {j->pt->x, (double)j->pt->index, j->key, j->dir};
-  char **argv = s->model.argt ? bk_study_render_argv(s, &ctx) : NULL;
-  if (s->model.argt && !argv) {
-    bk_free(env);
-    return BK_ENOMEM;
-  }
+  env[ne + 3] = hv.data; /* NULL ends the list when there is none */
   bk_job_t job = {
       .key = j->key,
       .dir = j->dir,
-      .argv = argv ? argv : s->model.argv,
+      .argv = argv,
       .env = env,
       .timeout = s->model.timeout,
       .grace = 5,
@@ -606,7 +870,8 @@ static int submit(job_t *j) {
   j->attempts++;
   rc = bk_exec_submit(d->o.exec, &job, on_done, j);
   bk_free(env);
-  bk_free(argv);
+  free_argv(argv);
+  bk_buf_close(&hv);
   return rc;
 }
 
@@ -777,8 +1042,15 @@ static void feed(bk_dispatch_t *d) {
     }
     if (d->fatal || bk_exec_stopping(d->o.exec))
       return;
+    if (d->nchunks) {
+      /* With a host list, a run waits for a free chunk of it. */
+      take_chunk(j);
+      if (j->chunk < 0)
+        return;
+    }
     int rc = submit(j);
     if (rc) {
+      give_back_chunk(j);
       if (!d->fatal && rc != BK_ESTOPPED && rc != BK_ECANCELED) {
         bk_error_t e;
         bk_error_clear(&e);
@@ -799,6 +1071,7 @@ static void on_done(void *data, const bk_job_result_t *res) {
   run_done(j, res);
   if (j->done == 0)
     return; /* submitted again */
+  give_back_chunk(j);
   d->inflight--;
   /* Nothing queued behind the running processes while more jobs wait:
    * the folders are not made fast enough, look further ahead. (At the
@@ -825,6 +1098,7 @@ static int dispatch_batch(bk_evaluator_t *ev, const char *prefix,
     job_t *j = &jobs[i];
     j->d = d;
     j->pt = &pts[i];
+    j->chunk = -1;
     if (bk_replay_key(j->key, sizeof j->key, prefix, pts[i].index)) {
       rc = bk_error_set(err, BK_ERANGE, NULL, 0, 0,
                         "the key %s/%llu is too long", prefix,

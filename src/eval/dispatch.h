@@ -53,10 +53,18 @@ typedef struct {
   bk_dispatch_tick_cb tick; /* after each finished run and after the
                                replayed keys of a batch; may be NULL */
   void *tick_data;
+  const char *hostfile; /* NULL, or a host list, a host per line and per
+                           MPI process ($PBS_NODEFILE): split into chunks
+                           of run.ranks lines, one per concurrent run,
+                           which gets its chunk in {{ _hosts }} and
+                           BRINK_HOSTS ("n1:2,n2:2"); at most as many runs
+                           as chunks run at a time */
 } bk_dispatch_opts_t;
 
 typedef struct bk_dispatch bk_dispatch_t;
 
+/* Returns 0, BK_ENOMEM, or BK_EIO when the host list cannot be read or
+ * holds no host. */
 int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts);
 void bk_dispatch_free(bk_dispatch_t *d);
 /* Makes `ev` evaluate through `d`. */
@@ -66,6 +74,14 @@ const bk_dispatch_stats_t *bk_dispatch_stats(const bk_dispatch_t *d);
 /* The run-folder name of a key: '/' becomes '-' ("lhs/r3/77" ->
  * "lhs-r3-77"). */
 void bk_dispatch_folder_name(const char *key, char *out, size_t cap);
+
+/* Is the inherited variable "NAME=VALUE" left out of the model's
+ * environment (docs/cluster.md, "The model's environment")? brink's own
+ * BRINK_* variables; those of an MPI or Slurm launch (all SLURM_* under
+ * run.launch direct, those of brink's own step under srun) unless
+ * model.inherit names them; glibc's MALLOC_PERTURB_ and MALLOC_CHECK_;
+ * and the thread counts brink sets from run.threads. */
+int bk_dispatch_env_removed(const bk_study_t *s, const char *kv);
 
 /* Removes a folder and everything below it without following symbolic
  * links. Returns 0 or a negative errno. */

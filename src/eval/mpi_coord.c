@@ -45,6 +45,7 @@ typedef struct {
   int busy;
   size_t *pos;
   size_t n;
+  int slots; /* its run.slots, from its HELLO */
   int stop_sent;
   char host[256];
 } worker_t;
@@ -54,8 +55,7 @@ struct bk_mpi_coord {
   bk_dispatch_stats_t st;
   int nworkers;
   worker_t *w; /* index rank - 1 */
-  int slots;
-  double *rx; /* a received record's inputs and outputs */
+  double *rx;  /* a received record's inputs and outputs */
   double *ry;
 };
 
@@ -75,14 +75,10 @@ int bk_mpi_coord_new(bk_mpi_coord_t **out, const bk_mpi_coord_opts_t *opts,
     return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
   c->o = *opts;
   c->nworkers = bk_mpi_size() - 1;
-  c->slots = s->run.slots > 0 ? s->run.slots : 1;
   c->w = bk_calloc((size_t)(c->nworkers > 0 ? c->nworkers : 1), sizeof *c->w);
   c->rx = bk_calloc(s->nvars + 1, sizeof *c->rx);
   c->ry = bk_calloc(s->model.noutputs + 1, sizeof *c->ry);
   int rc = c->w && c->rx && c->ry ? 0 : BK_ENOMEM;
-  for (int i = 0; rc == 0 && i < c->nworkers; i++)
-    if (!(c->w[i].pos = bk_calloc((size_t)c->slots, sizeof *c->w[i].pos)))
-      rc = BK_ENOMEM;
   if (rc) {
     bk_mpi_coord_free(c);
     return bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
@@ -108,8 +104,13 @@ int bk_mpi_coord_new(bk_mpi_coord_t **out, const bk_mpi_coord_opts_t *opts,
     bk_wire_reader_t r;
     bk_wire_reader_init(&r, data, m.len);
     const char *host, *failure;
-    int prc = bk_wire_get_hello(&r, &host, &failure);
-    snprintf(w->host, sizeof w->host, "%s", host);
+    int prc = bk_wire_get_hello(&r, &host, &failure, &w->slots);
+    snprintf(w->host, sizeof w->host, "%s", host ? host : "");
+    /* Each worker holds at most its own run.slots evaluations: the
+     * slots follow the cores of its rank. */
+    if (!prc && !w->pos &&
+        !(w->pos = bk_calloc((size_t)w->slots, sizeof *w->pos)) && rc == 0)
+      rc = bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
     if (prc && rc == 0)
       rc = malformed(err, m.source, NULL);
     else if (failure && rc == 0)
@@ -157,6 +158,8 @@ static int send_chunk(bk_mpi_coord_t *c, int wi, const char *prefix,
                       size_t per) {
   worker_t *w = &c->w[wi];
   size_t nv = c->o.study->nvars;
+  if (per > (size_t)w->slots)
+    per = (size_t)w->slots;
   size_t n = *npending < per ? *npending : per;
   bk_buf_t b;
   bk_buf_init(&b);
@@ -309,11 +312,10 @@ static int coord_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
     goto out;
   }
   /* Spread small batches over all workers rather than filling the first. */
-  size_t per = (size_t)c->slots;
+  size_t per = 0;
   if (c->nworkers > 0) {
     size_t even = (npending + (size_t)c->nworkers - 1) / (size_t)c->nworkers;
-    if (even < per)
-      per = even > 0 ? even : 1;
+    per = even > 0 ? even : 1;
   }
   int busy = 0, stopping = 0, failed = 0;
   double stop_at = 0;

@@ -100,19 +100,23 @@ static int done(const bk_wire_reader_t *r) {
 
 /* ---- messages ---------------------------------------------------------- */
 
-int bk_wire_put_hello(bk_buf_t *b, const char *host, const char *failure) {
+int bk_wire_put_hello(bk_buf_t *b, const char *host, const char *failure,
+                      int slots) {
   int rc = put_i32(b, failure ? 0 : 1);
   rc = rc ? rc : put_str(b, host);
-  return rc ? rc : put_str(b, failure);
+  rc = rc ? rc : put_str(b, failure);
+  return rc ? rc : put_i32(b, slots);
 }
 
 int bk_wire_get_hello(bk_wire_reader_t *r, const char **host,
-                      const char **failure) {
+                      const char **failure, int *slots) {
   int32_t ok = get_i32(r);
   *host = get_str(r);
   const char *why = get_str(r);
-  if (ok != 0 && ok != 1)
+  int32_t n = get_i32(r);
+  if ((ok != 0 && ok != 1) || n < 1 || n > 4096)
     r->bad = 1;
+  *slots = r->bad ? 1 : (int)n;
   *failure = ok ? NULL : why;
   return done(r);
 }

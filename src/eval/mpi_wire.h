@@ -7,7 +7,8 @@
  * BK_EPROTO, never a crash; the run then ends with exit 1 (not 3: a job
  * script must not requeue a run that would fail the same way).
  *
- *   worker -> 0  HELLO   i32 ok, str host, str why
+ *   worker -> 0  HELLO   i32 ok, str host, str why, i32 slots (models the
+ *                        worker runs at a time, 1 .. 4096)
  *   0 -> worker  WORK    str prefix, u32 n, n x (u64 index, f64 x[nx])
  *   worker -> 0  RESULT  i32 status, str why, str host, u32 n,
  *                        n x record
@@ -65,10 +66,11 @@ void bk_wire_reader_init(bk_wire_reader_t *r, const void *data, size_t n);
 /* Each put appends to b and returns 0 or BK_ENOMEM. Each get returns 0 or
  * BK_EPROTO; strings it gives point into the message. */
 
-int bk_wire_put_hello(bk_buf_t *b, const char *host, const char *failure);
+int bk_wire_put_hello(bk_buf_t *b, const char *host, const char *failure,
+                      int slots);
 /* *failure is NULL when the worker can run models. */
 int bk_wire_get_hello(bk_wire_reader_t *r, const char **host,
-                      const char **failure);
+                      const char **failure, int *slots);
 
 int bk_wire_put_work(bk_buf_t *b, const char *prefix, uint32_t n);
 int bk_wire_put_point(bk_buf_t *b, uint64_t index, const double *x, size_t nx);

@@ -167,10 +167,10 @@ static void watch_stop(void *data, bk_exec_t *ex) {
   bk_exec_cancel(ex);
 }
 
-static void send_hello(const char *host, const char *failure) {
+static void send_hello(const char *host, const char *failure, int slots) {
   bk_buf_t b;
   bk_buf_init(&b);
-  if (bk_wire_put_hello(&b, host, failure) == 0)
+  if (bk_wire_put_hello(&b, host, failure, slots) == 0)
     bk_mpi_send(0, BK_WIRE_HELLO, b.data, b.len);
   bk_buf_close(&b);
 }
@@ -270,7 +270,8 @@ int bk_mpi_worker_run(const bk_mpi_worker_opts_t *opts, const char *failure) {
   }
   if (!failure && why[0])
     failure = why;
-  send_hello(host, failure);
+  send_hello(host, failure,
+             opts && opts->study->run.slots > 0 ? opts->study->run.slots : 1);
   bk_evaluator_t local;
   if (d)
     bk_dispatch_evaluator(d, &local);

@@ -15,6 +15,7 @@
 #include <ctype.h>
 #include <errno.h>
 #include <math.h>
+#include <sched.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -45,6 +46,87 @@ const char *bk_method_name(bk_method_kind_t m) {
   return m < BK_METHOD__COUNT ? method_names[m] : "unknown";
 }
 
+const char *bk_launch_name(bk_launch_t l) {
+  return l == BK_LAUNCH_SRUN ? "srun" : "direct";
+}
+
+int bk_study_machine_cores(void) {
+#ifdef CPU_COUNT
+  cpu_set_t set;
+  if (sched_getaffinity(0, sizeof set, &set) == 0 && CPU_COUNT(&set) > 0)
+    return CPU_COUNT(&set);
+#endif
+  long n = sysconf(_SC_NPROCESSORS_ONLN);
+  return n > 0 ? (int)n : 1;
+}
+
+int bk_study_allocation_cores(void) {
+  const char *v = getenv("SLURM_JOB_CPUS_PER_NODE");
+  if (!v || !getenv("SLURM_JOB_ID"))
+    return 0;
+  long total = 0;
+  while (*v) {
+    char *end;
+    long c = strtol(v, &end, 10);
+    if (end == v || c < 0)
+      return 0;
+    long times = 1;
+    if (strncmp(end, "(x", 2) == 0) {
+      times = strtol(end + 2, &end, 10);
+      if (*end != ')' || times < 1)
+        return 0;
+      end++;
+    }
+    total += c * times;
+    if (total > 1L << 24)
+      return 0;
+    if (*end == ',')
+      end++;
+    else if (*end)
+      return 0;
+    v = end;
+  }
+  return (int)total;
+}
+
+int bk_study_hostfile_lines(const char *path) {
+  FILE *f = path ? fopen(path, "r") : NULL;
+  if (!f)
+    return 0;
+  int n = 0, c, blank = 1;
+  while ((c = getc(f)) != EOF && n < 1 << 24) {
+    if (c == '\n') {
+      n += !blank;
+      blank = 1;
+    } else if (c != ' ' && c != '\t' && c != '\r') {
+      blank = 0;
+    }
+  }
+  n += !blank;
+  fclose(f);
+  return n;
+}
+
+int bk_study_available_cores(const bk_study_t *s) {
+  int alloc = bk_study_allocation_cores();
+  if (s->run.launch == BK_LAUNCH_SRUN && alloc > 0)
+    return alloc;
+  if (s->run.launch == BK_LAUNCH_DIRECT) {
+    int lines = bk_study_hostfile_lines(getenv("PBS_NODEFILE"));
+    if (lines > 0)
+      return lines * (s->run.threads > 0 ? s->run.threads : 1);
+  }
+  return bk_study_machine_cores();
+}
+
+void bk_study_default_slots(bk_study_t *s, int cores) {
+  if (s->run.slots_given)
+    return;
+  int per = s->run.cores > 0 ? s->run.cores : 1;
+  int n = cores / per;
+  s->run.slots = n < 1 ? 1 : n > 4096 ? 4096 : n;
+}
+
 /* ---- the keys a study file may hold --------------------------------- */
 
 /* One list per mapping, NULL-terminated; check_keys refuses any other key,
@@ -58,7 +140,7 @@ static const char *const keys_model[] = {
     "files",   "copy",    "command",  "env",
     "timeout", "retries", "on_error", "max_error_fraction",
     "outputs", "keep",    "watch",    "version_command",
-    NULL};
+    "inherit", NULL};
 static const char *const keys_deck[] = {"template", "to", NULL};
 static const char *const keys_output[] = {"file", "stdout", "pattern", "match",
                                           NULL};
@@ -75,7 +157,8 @@ static const char *const keys_subset[] = {"p0", "max_levels", NULL};
 static const char *const keys_surrogate[] = {
     "batch",   "start_points", "trend",          "noisy",
     "pick_by", "spread",       "training_share", NULL};
-static const char *const keys_run[] = {"folder", "slots", "scratch", NULL};
+static const char *const keys_run[] = {"folder", "slots",  "scratch", "threads",
+                                       "ranks",  "launch", NULL};
 
 static const struct {
   const char *prefix; /* the mapping's path; NAME stands for any name */
@@ -1142,6 +1225,26 @@ static int load_model(loader_t *L, yaml_node_t *mn) {
       m->env[m->nenv++] = b.data;
     }
   }
+  if ((n = lookup(L, mn, "inherit"))) {
+    if ((rc = load_string_list(L, n, "model.inherit", &m->inherit,
+                               &m->ninherit)))
+      return rc;
+    for (size_t i = 0; i < m->ninherit; i++) {
+      char *name = m->inherit[i];
+      size_t len = strlen(name);
+      int star = len > 1 && name[len - 1] == '*';
+      if (star)
+        name[len - 1] = '\0';
+      int ok = is_identifier(name);
+      if (star)
+        name[len - 1] = '*';
+      if (!ok)
+        return FAIL(L, node_at(L, n->data.sequence.items.start[i]),
+                    "model.inherit takes variable names or prefixes ending "
+                    "in '*' (e.g. OMPI_MCA_*); got '%s'",
+                    name);
+    }
+  }
   if ((n = lookup(L, mn, "timeout"))) {
     if ((rc = want_number(L, n, "model.timeout", &m->timeout)))
       return rc;
@@ -1772,16 +1875,42 @@ static int load_run(loader_t *L, yaml_node_t *rn) {
   if (rn && ((rc = want_mapping(L, rn, "run")) ||
              (rc = check_keys(L, rn, "run", keys_run))))
     return rc;
-  long ncpu = sysconf(_SC_NPROCESSORS_ONLN);
-  r->slots = ncpu > 0 ? (int)ncpu : 1;
-  if (rn && (n = lookup(L, rn, "slots"))) {
+  r->threads = r->ranks = 1;
+  static const struct {
+    const char *key;
+    const char *what;
+    int most;
+  } counts[] = {{"slots", "run.slots", 4096},
+                {"threads", "run.threads", 4096},
+                {"ranks", "run.ranks", 65536}};
+  int *into[] = {&r->slots, &r->threads, &r->ranks};
+  for (int i = 0; i < 3; i++) {
+    if (!rn || !(n = lookup(L, rn, counts[i].key)))
+      continue;
     uint64_t v;
-    if ((rc = want_count(L, n, "run.slots", 1, &v)))
+    if ((rc = want_count(L, n, counts[i].what, 1, &v)))
       return rc;
-    if (v > 4096)
-      return FAIL(L, n, "run.slots must be at most 4096");
-    r->slots = (int)v;
+    if (v > (uint64_t)counts[i].most)
+      return FAIL(L, n, "%s must be at most %d", counts[i].what,
+                  counts[i].most);
+    *into[i] = (int)v;
+    if (i == 0)
+      r->slots_given = 1;
   }
+  if ((long)r->threads * r->ranks > 65536)
+    return FAIL(L, rn, "run.threads x run.ranks must be at most 65536");
+  r->cores = r->threads * r->ranks;
+  r->launch = BK_LAUNCH_DIRECT;
+  if (rn && (n = lookup(L, rn, "launch"))) {
+    const char *t;
+    if ((rc = want_text(L, n, "run.launch", &t)))
+      return rc;
+    if (strcmp(t, "srun") == 0)
+      r->launch = BK_LAUNCH_SRUN;
+    else if (strcmp(t, "direct") != 0)
+      return FAIL(L, n, "run.launch must be direct or srun; got '%s'", t);
+  }
+  bk_study_default_slots(L->s, bk_study_available_cores(L->s));
   const char *folder = NULL;
   if (rn && (n = lookup(L, rn, "folder")) &&
       (rc = want_text(L, n, "run.folder", &folder)))
@@ -2373,6 +2502,9 @@ void bk_study_free(bk_study_t *s) {
   for (size_t i = 0; i < m->nenv; i++)
     bk_free(m->env[i]);
   bk_free(m->env);
+  for (size_t i = 0; m->inherit && i < m->ninherit; i++)
+    bk_free(m->inherit[i]);
+  bk_free(m->inherit);
   for (size_t i = 0; i < m->noutputs; i++) {
     bk_free(m->outputs[i].name);
     bk_free(m->outputs[i].file);

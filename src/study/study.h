@@ -75,6 +75,10 @@ typedef struct {
   bk_template_t **argt;
   char **env; /* "NAME=VALUE", NULL-terminated */
   size_t nenv;
+  char **inherit; /* model.inherit: names, or prefixes ending in '*', of
+                     variables kept although brink removes them from the
+                     model's environment (dispatch.c); NULL-terminated */
+  size_t ninherit;
   double timeout; /* 0 = none */
   int retries;
   bk_on_error_t on_error;
@@ -162,9 +166,21 @@ typedef struct {
   bk_surrogate_opts_t surrogate;
 } bk_analysis_t;
 
+/* How each model run is started (run.launch). */
+typedef enum {
+  BK_LAUNCH_DIRECT, /* model.command as it is, in the run folder */
+  BK_LAUNCH_SRUN    /* as a Slurm job step of ranks x threads CPUs inside
+                       brink's allocation: srun --exact ... model.command */
+} bk_launch_t;
+
 typedef struct {
   char *folder; /* resolved */
-  int slots;
+  int slots;    /* model runs at a time */
+  int slots_given;
+  int threads; /* run.threads: threads (cores) per rank; 1 */
+  int ranks;   /* run.ranks: MPI ranks per run; 1 */
+  int cores;   /* threads * ranks: cores one run uses */
+  bk_launch_t launch;
   char *scratch; /* "" when not given */
 } bk_run_t;
 
@@ -227,6 +243,24 @@ void bk_study_free(bk_study_t *s);
 char **bk_study_render_argv(const bk_study_t *s, const bk_template_ctx_t *ctx);
 
 const char *bk_method_name(bk_method_kind_t m);
+const char *bk_launch_name(bk_launch_t l);
+
+/* The cores brink may use on this machine: the CPUs of its affinity mask
+ * (which a launcher or a Slurm step restricts), at least 1. */
+int bk_study_machine_cores(void);
+/* The CPUs of the Slurm allocation brink runs in, from
+ * SLURM_JOB_CPUS_PER_NODE ("4(x2),2" is 10); 0 outside one. */
+int bk_study_allocation_cores(void);
+/* The hosts of a host list ($PBS_NODEFILE: a line per MPI process), 0
+ * when it cannot be read. */
+int bk_study_hostfile_lines(const char *path);
+/* The cores the default run.slots divides: the allocation's for
+ * run.launch srun inside one; under run.launch direct in a PBS job, the
+ * lines of $PBS_NODEFILE x run.threads; else the machine's. */
+int bk_study_available_cores(const bk_study_t *s);
+/* Sets run.slots, when the study does not give it, to `cores` divided by
+ * the cores per run (at least 1). */
+void bk_study_default_slots(bk_study_t *s, int cores);
 
 /* Calls cb once for every key a study file may hold, as a dotted path from
  * the top ("analysis.form.step"); "NAME" stands for a name the user

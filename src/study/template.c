@@ -27,7 +27,7 @@
  * and a double has no more digits to show. */
 #define MAX_FIELD 99
 
-enum { SEG_TEXT, SEG_NUMBER, SEG_KEY, SEG_FOLDER };
+enum { SEG_TEXT, SEG_NUMBER, SEG_KEY, SEG_FOLDER, SEG_HOSTS };
 
 /* A segment. SEG_TEXT is text[off..off+len) of the template; SEG_NUMBER
  * owns `expr` and prints it with `fmt`, a validated single double
@@ -40,7 +40,7 @@ typedef struct {
 } seg_t;
 
 /* Invariant: expressions index values[0..nnames) as the parse-time names
- * and values[nnames] as _index. */
+ * and values[nnames..nnames+NRESERVED) as the reserved numeric names. */
 struct bk_template {
   char *text;
   seg_t *segs;
@@ -57,6 +57,11 @@ void bk_template_free(bk_template_t *t) {
   bk_free(t->text);
   bk_free(t);
 }
+
+/* The numeric names every template may use, after the caller's. */
+static const char *const reserved[] = {"_index", "_threads", "_ranks",
+                                       "_cores"};
+#define NRESERVED (sizeof reserved / sizeof reserved[0])
 
 /* ---- Parsing ---- */
 
@@ -210,10 +215,11 @@ static int check_format(tparse_t *p, const char *f, size_t n, size_t off,
   return 0;
 }
 
-/* If src[off..end) starts with the name _key or _folder, returns it. */
+/* If src[off..end) starts with the name _key, _folder or _hosts, returns
+ * it. */
 static const char *text_name_at(const char *s, size_t off, size_t end) {
-  static const char *const text_names[] = {"_key", "_folder"};
-  for (int k = 0; k < 2; k++) {
+  static const char *const text_names[] = {"_key", "_folder", "_hosts"};
+  for (int k = 0; k < 3; k++) {
     size_t n = strlen(text_names[k]);
     if (end - off >= n && memcmp(s + off, text_names[k], n) == 0) {
       char c = off + n < end ? s[off + n] : ' ';
@@ -261,7 +267,9 @@ static int parse_placeholder(tparse_t *p, size_t open, size_t close) {
   if (tn && e1 - e0 == strlen(tn)) {
     if (colon)
       return fail_at(p, BK_EPARSE, f0, "'%s' is text and takes no format", tn);
-    seg_t *seg = add_seg(p, tn[1] == 'k' ? SEG_KEY : SEG_FOLDER);
+    seg_t *seg = add_seg(p, tn[1] == 'k'   ? SEG_KEY
+                            : tn[1] == 'f' ? SEG_FOLDER
+                                           : SEG_HOSTS);
     if (!seg)
       return fail_at(p, BK_ENOMEM, open, "out of memory");
     return 0;
@@ -344,16 +352,17 @@ int bk_template_parse(const char *path, const char *text, size_t len,
 
   int rc = 0;
   bk_template_t *t = NULL;
-  const char **all = bk_malloc((nnames + 1) * sizeof *all);
+  const char **all = bk_malloc((nnames + NRESERVED) * sizeof *all);
   if (!all) {
     rc = bk_error_set(err, BK_ENOMEM, path, 0, 0, "out of memory");
     goto done;
   }
   for (size_t i = 0; i < nnames; i++)
     all[i] = names->names[i];
-  all[nnames] = "_index";
+  for (size_t i = 0; i < NRESERVED; i++)
+    all[nnames + i] = reserved[i];
   p.names.names = all;
-  p.names.n = nnames + 1;
+  p.names.n = nnames + NRESERVED;
 
   rc = parse_all(&p);
   if (rc)
@@ -394,17 +403,23 @@ done:
 int bk_template_render(const bk_template_t *t, const bk_template_ctx_t *ctx,
                        bk_buf_t *out) {
   size_t len0 = out->len;
-  /* The expressions see the caller's values followed by _index. */
+  /* The expressions see the caller's values followed by the reserved
+   * names (resources not given count as 1). */
   double small[64];
   double *vals = small;
-  if (t->nnames + 1 > sizeof small / sizeof small[0]) {
-    vals = bk_malloc((t->nnames + 1) * sizeof *vals);
+  if (t->nnames + NRESERVED > sizeof small / sizeof small[0]) {
+    vals = bk_malloc((t->nnames + NRESERVED) * sizeof *vals);
     if (!vals)
       return BK_ENOMEM;
   }
   if (t->nnames)
     memcpy(vals, ctx->values, t->nnames * sizeof *vals);
+  int threads = ctx->threads > 0 ? ctx->threads : 1;
+  int ranks = ctx->ranks > 0 ? ctx->ranks : 1;
   vals[t->nnames] = ctx->index;
+  vals[t->nnames + 1] = threads;
+  vals[t->nnames + 2] = ranks;
+  vals[t->nnames + 3] = (double)threads * ranks;
 
   int rc = 0;
   for (size_t i = 0; i < t->nsegs && rc == 0; i++) {
@@ -418,6 +433,9 @@ int bk_template_render(const bk_template_t *t, const bk_template_ctx_t *ctx,
       break;
     case SEG_KEY:
       rc = bk_buf_puts(out, ctx->key ? ctx->key : "");
+      break;
+    case SEG_HOSTS:
+      rc = bk_buf_puts(out, ctx->hosts ? ctx->hosts : "");
       break;
     default:
       rc = bk_buf_puts(out, ctx->folder ? ctx->folder : "");

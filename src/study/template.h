@@ -5,8 +5,10 @@
  *   {{ expr : %12.5e }}   the value with a printf double conversion
  *                         (flags, width, precision; one of e E f F g G)
  * Names in expr are the study variables plus _index (the evaluation's
- * number); {{ _key }} and {{ _folder }} insert the evaluation key and the
- * run folder as text. A backslash before two braces writes them literally:
+ * number) and the run's resources _threads, _ranks and _cores (threads x
+ * ranks); {{ _key }}, {{ _folder }} and {{ _hosts }} insert the evaluation
+ * key, the run folder and the run's MPI host list as text. A backslash before
+ * two braces writes them literally:
  * "\{{" renders "{{" and "\}}" renders "}}"; a backslash anywhere else is
  * plain text. A placeholder ends on the line where it starts. See
  * docs/templates.md.
@@ -28,7 +30,8 @@ typedef struct bk_template bk_template_t;
 
 /* Parses `text` (len bytes) read from `path` (used in error messages).
  * `names` (may be NULL) are the numeric names an expression may use;
- * "_index" is always available in addition. Nothing passed is kept. Returns
+ * "_index", "_threads", "_ranks" and "_cores" are always available in
+ * addition. Nothing passed is kept. Returns
  * 0 and *out (free with bk_template_free()), or BK_EPARSE/BK_ENOTFOUND/
  * BK_ENOMEM with err filled as path:line:col (1-based line, byte column of
  * the offending token) and *out NULL. */
@@ -42,6 +45,9 @@ typedef struct {
   double index;         /* _index */
   const char *key;      /* _key */
   const char *folder;   /* _folder */
+  int threads;          /* _threads; 0 counts as 1 */
+  int ranks;            /* _ranks; 0 counts as 1 */
+  const char *hosts;    /* _hosts; NULL renders "" */
 } bk_template_ctx_t;
 
 /* Appends the rendered text to `out`. Returns 0, or BK_ENOMEM with `out`
