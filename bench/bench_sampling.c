@@ -68,7 +68,7 @@ int main(int argc, char **argv) {
   double ne = (double)r.evaluations;
   printf("%s %llu evaluations %.3f s %.2f M/s peak_rss_kb %ld pf %.6e "
          "cpu %.3f s %.2f M/s\n",
-         bk_method_name(s->analysis.method), (unsigned long long)r.evaluations,
+         bk_study_method_name(s->analysis.method), (unsigned long long)r.evaluations,
          sec, ne / sec / 1e6, peak_kb(), r.est.pf, cpu, ne / cpu / 1e6);
   bk_result_close(&r);
   bk_study_free(s);

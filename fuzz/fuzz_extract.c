@@ -33,7 +33,7 @@ static int fx_each(const char *s, size_t len, size_t offset, void *d) {
   (void)offset;
   (void)d;
   double v;
-  if (bk_number_parse(s, len, &v) == 0)
+  if (bk_extract_number(s, len, &v) == 0)
     assert(isfinite(v));
   return 0;
 }
@@ -51,10 +51,10 @@ int BK_FUZZ_ENTRY(const uint8_t *data, size_t size) {
   bk_pattern_t *p = NULL;
   char msg[256];
   size_t off;
-  int rc = bk_pattern_compile(re, &p, msg, sizeof msg, &off);
+  int rc = bk_extract_pattern_compile(re, &p, msg, sizeof msg, &off);
   free(re);
   double v;
-  (void)bk_number_parse(text, tlen, &v);
+  (void)bk_extract_number(text, tlen, &v);
   if (rc) {
     assert(!p);
     return 0;
@@ -83,6 +83,6 @@ int BK_FUZZ_ENTRY(const uint8_t *data, size_t size) {
     }
   }
   bk__extract_set_chunk(0);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
   return 0;
 }

@@ -35,7 +35,7 @@ static bk_dist_spec_t spec_of(const char *name, ...) {
   va_list ap;
   va_start(ap, name);
   for (const char *n = name; n != NULL; n = va_arg(ap, const char *)) {
-    int p = bk_param_from_name(n);
+    int p = bk_dist_param_from_name(n);
     cr_assert_geq(p, 0, "unknown parameter %s", n);
     s.has |= BIT(p);
     s.v[p] = va_arg(ap, double);
@@ -84,7 +84,7 @@ Test(dist, matches_scipy_reference_table) {
     bk_dist_spec_t s;
     memset(&s, 0, sizeof s);
     for (int i = 0; i < np; i++) {
-      int p = bk_param_from_name(strtok_r(NULL, " \n", &save));
+      int p = bk_dist_param_from_name(strtok_r(NULL, " \n", &save));
       cr_assert_geq(p, 0, "%s:%d: unknown parameter", path, lineno);
       s.has |= BIT(p);
       s.v[p] = strtod(strtok_r(NULL, " \n", &save), NULL);
@@ -394,13 +394,13 @@ Test(dist, names_round_trip) {
   for (int k = 0; k < BK_DIST__COUNT; k++)
     cr_expect_eq(bk_dist_kind_from_name(bk_dist_name(k)), k);
   for (int p = 0; p < BK_PARAM__COUNT; p++)
-    cr_expect_eq(bk_param_from_name(bk_param_name(p)), p);
+    cr_expect_eq(bk_dist_param_from_name(bk_dist_param_name(p)), p);
   cr_expect_str_eq(bk_dist_name(BK_DIST_GUMBEL_MIN), "gumbel-min");
   cr_expect_str_eq(bk_dist_name(BK_DIST_TRUNCATED_NORMAL), "truncated-normal");
   cr_expect_eq(bk_dist_kind_from_name("Normal"), -1);
   cr_expect_eq(bk_dist_kind_from_name("gauss"), -1);
-  cr_expect_eq(bk_param_from_name("stdev"), -1);
-  cr_expect_eq(bk_param_from_name(NULL), -1);
+  cr_expect_eq(bk_dist_param_from_name("stdev"), -1);
+  cr_expect_eq(bk_dist_param_from_name(NULL), -1);
 }
 
 /* ---------------------------------------------------------------------- */

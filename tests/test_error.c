@@ -31,7 +31,7 @@ Test(error, exit_code_table) {
   for (size_t i = 0; i < sizeof table / sizeof table[0]; i++)
     cr_expect_eq(bk_error_exit(table[i].code), table[i].exit,
                  "%s (%d) gives exit %d, expected %d",
-                 bk_err_name(table[i].code), table[i].code,
+                 bk_error_name(table[i].code), table[i].code,
                  bk_error_exit(table[i].code), table[i].exit);
 }
 
@@ -45,7 +45,7 @@ Test(error, system_codes_are_negative_errno) {
   cr_expect_eq(BK_ENOTFOUND, -ENOENT);
   cr_expect_eq(BK_EPROTO, -EPROTO);
   cr_expect_str_eq(bk_strerror(-ENOSPC), "no space left on device");
-  cr_expect_str_eq(bk_err_name(-ENOSPC), "ENOSPC");
+  cr_expect_str_eq(bk_error_name(-ENOSPC), "ENOSPC");
   /* A system errno brink has no name for reads as the system's text. */
   cr_expect_str_eq(bk_strerror(-EBADF), strerror(EBADF));
 }
@@ -63,7 +63,7 @@ Test(error, own_codes_are_distinct) {
     cr_expect_str_neq(bk_strerror(codes[i]), "unknown error");
     for (size_t j = i + 1; j < n; j++)
       cr_expect_neq(codes[i], codes[j], "%s and %s share a value",
-                    bk_err_name(codes[i]), bk_err_name(codes[j]));
+                    bk_error_name(codes[i]), bk_error_name(codes[j]));
   }
 }
 

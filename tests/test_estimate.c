@@ -44,8 +44,8 @@ Test(estimate, intervals_match_scipy) {
       cr_assert(fscanf(f, "%llu %llu %lf %lf %lf %lf %lf", &n, &k, &level, &wl,
                        &wh, &cl, &ch) == 7);
       double w[2], c[2];
-      bk_wilson(n, k, level, w);
-      bk_clopper_pearson(n, k, level, c);
+      bk_estimate_wilson(n, k, level, w);
+      bk_estimate_clopper_pearson(n, k, level, c);
       char what[96];
       snprintf(what, sizeof what, "wilson n=%llu k=%llu level=%g", n, k, level);
       assert_rel(w[0], wl, 1e-11, what);
@@ -93,9 +93,9 @@ Test(estimate, beta_matches_en1990_table_c1) {
   const double pf[] = {1e-1, 1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7};
   const double beta[] = {1.28, 2.32, 3.09, 3.72, 4.27, 4.75, 5.20};
   for (int i = 0; i < 7; i++) {
-    cr_assert(fabs(bk_beta_from_pf(pf[i]) - beta[i]) < 0.01, "Pf %g: beta %.4f",
-              pf[i], bk_beta_from_pf(pf[i]));
-    cr_assert_float_eq(bk_pf_from_beta(bk_beta_from_pf(pf[i])), pf[i],
+    cr_assert(fabs(bk_estimate_beta_from_pf(pf[i]) - beta[i]) < 0.01, "Pf %g: beta %.4f",
+              pf[i], bk_estimate_beta_from_pf(pf[i]));
+    cr_assert_float_eq(bk_estimate_pf_from_beta(bk_estimate_beta_from_pf(pf[i])), pf[i],
                        pf[i] * 1e-12);
   }
 }
@@ -147,7 +147,7 @@ Test(estimate, wilson_interval_covers_about_95_percent) {
     for (uint64_t i = 0; i < n; i++)
       k += bk_rng_u01(77, (uint64_t)r, i, 0) < pf;
     double ci[2];
-    bk_wilson(n, k, 0.95, ci);
+    bk_estimate_wilson(n, k, 0.95, ci);
     covered += ci[0] <= pf && pf <= ci[1];
   }
   double c = (double)covered / reps;
@@ -175,7 +175,7 @@ Test(estimate, clopper_pearson_bounds_solve_their_defining_equations) {
   for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
     unsigned long long n = cases[i][0], k = cases[i][1];
     double ci[2];
-    bk_clopper_pearson(n, k, 0.9, ci);
+    bk_estimate_clopper_pearson(n, k, 0.9, ci);
     long double lo_tail = binom_upper_tail(n, k, ci[0]);
     long double hi_tail = 1 - binom_upper_tail(n, k + 1, ci[1]);
     cr_assert(fabsl(lo_tail - 0.05L) < 1e-12L, "n=%llu k=%llu: %.17Lg", n, k,
@@ -396,8 +396,8 @@ Test(estimate, lognormal_interval_matches_scipy) {
     assert_rel(e.ci[1], hi, 1e-12, "lognormal hi");
     cr_assert_eq(e.cov, cov);
     cr_assert_str_eq(e.ci_method, "lognormal");
-    assert_rel(e.beta, bk_beta_from_pf(pf), 1e-15, "beta");
-    assert_rel(e.beta_ci[0], bk_beta_from_pf(hi), 1e-11, "beta lo");
+    assert_rel(e.beta, bk_estimate_beta_from_pf(pf), 1e-15, "beta");
+    assert_rel(e.beta_ci[0], bk_estimate_beta_from_pf(hi), 1e-11, "beta lo");
     cases++;
   }
   fclose(f);
@@ -413,6 +413,6 @@ Test(estimate, set_beta_follows_the_interval) {
   bk_estimate_t e = {.pf = 1e-4, .ci = {5e-5, 2e-4}};
   bk_estimate_set_beta(&e);
   cr_assert(fabs(e.beta - 3.72) < 0.005);
-  cr_assert_eq(e.beta_ci[0], bk_beta_from_pf(2e-4));
-  cr_assert_eq(e.beta_ci[1], bk_beta_from_pf(5e-5));
+  cr_assert_eq(e.beta_ci[0], bk_estimate_beta_from_pf(2e-4));
+  cr_assert_eq(e.beta_ci[1], bk_estimate_beta_from_pf(5e-5));
 }

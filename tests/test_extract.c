@@ -46,7 +46,7 @@ static bk_pattern_t *compile(const char *re) {
   bk_pattern_t *p = NULL;
   char msg[256] = "";
   size_t off = 0;
-  int rc = bk_pattern_compile(re, &p, msg, sizeof msg, &off);
+  int rc = bk_extract_pattern_compile(re, &p, msg, sizeof msg, &off);
   cr_assert_eq(rc, 0, "pattern %s: %s at %zu", re, msg, off);
   return p;
 }
@@ -83,7 +83,7 @@ static int text_value(const char *re, const char *text, bk_match_t sel,
                       double *v, char *why, size_t whycap) {
   bk_pattern_t *p = compile(re);
   int rc = bk_extract_text(p, text, strlen(text), sel, v, why, whycap);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
   return rc;
 }
 
@@ -168,7 +168,7 @@ Test(extract, c_notation_reads_as_strtod) {
   for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
     const char *s = cases[i].text;
     double v = NAN;
-    cr_assert_eq(bk_number_parse(s, strlen(s), &v), 0, "'%s' refused", s);
+    cr_assert_eq(bk_extract_number(s, strlen(s), &v), 0, "'%s' refused", s);
     double ref = strtod(s, NULL);
     cr_assert(v == ref && signbit(v) == signbit(ref),
               "'%s': %.17g, strtod %.17g", s, v, ref);
@@ -205,7 +205,7 @@ Test(extract, fortran_notation_is_read) {
   for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
     const char *s = cases[i].text;
     double v = NAN;
-    cr_assert_eq(bk_number_parse(s, strlen(s), &v), 0, "'%s' refused", s);
+    cr_assert_eq(bk_extract_number(s, strlen(s), &v), 0, "'%s' refused", s);
     cr_assert(v == cases[i].want, "'%s': %.17g, want %.17g", s, v,
               cases[i].want);
   }
@@ -224,7 +224,7 @@ Test(extract, numbers_written_by_gfortran_are_read) {
   int n = 0, three_digit = 0;
   while (fscanf(f, "%63s %63s", a, b) == 2) {
     double v = NAN;
-    cr_assert_eq(bk_number_parse(a, strlen(a), &v), 0, "'%s' refused", a);
+    cr_assert_eq(bk_extract_number(a, strlen(a), &v), 0, "'%s' refused", a);
     double ref = strtod(b, NULL);
     cr_assert(v == ref, "'%s' read as %.17g, but '%s' is %.17g", a, v, b, ref);
     if (!strpbrk(a, "EeDd"))
@@ -247,21 +247,21 @@ Test(extract, non_numbers_are_refused) {
   };
   for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
     double v = 12345;
-    cr_assert_eq(bk_number_parse(cases[i], strlen(cases[i]), &v), -1,
+    cr_assert_eq(bk_extract_number(cases[i], strlen(cases[i]), &v), -1,
                  "'%s' accepted as %.17g", cases[i], v);
     cr_assert_eq(v, 12345, "'%s' changed *out", cases[i]);
   }
   double v;
-  cr_assert_eq(bk_number_parse("1\0002", 3, &v), -1, "embedded NUL accepted");
+  cr_assert_eq(bk_extract_number("1\0002", 3, &v), -1, "embedded NUL accepted");
 }
 
 Test(extract, number_ends_at_the_given_length) {
   double v = 0;
-  cr_assert_eq(bk_number_parse("123", 2, &v), 0);
+  cr_assert_eq(bk_extract_number("123", 2, &v), 0);
   cr_assert_eq(v, 12);
-  cr_assert_eq(bk_number_parse("1.5E+03xyz", 7, &v), 0);
+  cr_assert_eq(bk_extract_number("1.5E+03xyz", 7, &v), 0);
   cr_assert_eq(v, 1500);
-  cr_assert_eq(bk_number_parse("1.5E+03", 5, &v), -1); /* "1.5E+" */
+  cr_assert_eq(bk_extract_number("1.5E+03", 5, &v), -1); /* "1.5E+" */
 }
 
 /* ---- CalculiX output ---- */
@@ -316,7 +316,7 @@ Test(extract, calculix_dat_file_gives_tip_deflection_and_stress_extremes) {
     int rc = bk_extract_file(p, path, BK_MATCH_LAST, &v, why, sizeof why);
     cr_assert_eq(rc, BK_FAULT_NONE, "pattern %d: %s", i, why);
     cr_assert_eq(v, -1.456286E-02);
-    bk_pattern_free(p);
+    bk_extract_pattern_free(p);
   }
   bk_pattern_t *p = compile("^ +\\d+ +\\d+ +(\\S+)");
   static const struct {
@@ -341,7 +341,7 @@ Test(extract, calculix_dat_file_gives_tip_deflection_and_stress_extremes) {
     lines += b.data[i] == '\n';
   cr_assert_eq(lines, 200);
   bk_buf_close(&b);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 /* ---- selection and pattern semantics ---- */
@@ -382,7 +382,7 @@ Test(extract, pattern_matching_twice_on_one_line_gives_two_matches) {
       bk_extract_text(p, text, strlen(text), BK_MATCH_MAX, &v, NULL, 0), 0);
   cr_assert_eq(v, 3.0);
   bk_buf_close(&b);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 Test(extract, whole_match_is_the_value_without_group) {
@@ -430,7 +430,7 @@ Test(extract, crlf_line_ends_bound_lines) {
       bk_extract_text_each(p, text, strlen(text), collect_cb, &b, NULL, 0), 0);
   cr_assert_str_eq(b.data, "4:1.5\n13:2.5\n30:4\n");
   bk_buf_close(&b);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 Test(extract, empty_matches_advance) {
@@ -445,7 +445,7 @@ Test(extract, empty_matches_advance) {
    * (the end). */
   cr_assert_str_eq(b.data, "0:\n1:1\n2:\n4:\n6:\n7:22\n9:\n10:\n");
   bk_buf_close(&b);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 /* The examples of docs/outputs.md give what the page says. */
@@ -519,7 +519,7 @@ Test(extract, examples_of_the_outputs_page_work) {
   }
   bk_buf_close(&all);
   bk_buf_close(&want);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 /* ---- faults and their reasons ---- */
@@ -541,7 +541,7 @@ Test(extract, missing_file_is_no_output) {
   cr_assert_eq(bk_extract_file(p, tmpdir, BK_MATCH_FIRST, &v, why, sizeof why),
                BK_FAULT_NO_OUTPUT);
   cr_assert(strstr(why, "is a folder, not a file"), "%s", why);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 Test(extract, unreadable_file_is_no_output_with_reason) {
@@ -557,7 +557,7 @@ Test(extract, unreadable_file_is_no_output_with_reason) {
   cr_assert_eq(bk_extract_file(p, path, BK_MATCH_FIRST, &v, why, sizeof why),
                BK_FAULT_NO_OUTPUT);
   cr_assert_str_eq(why, "cannot open locked.dat: Permission denied");
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 Test(extract, empty_file_is_no_match) {
@@ -577,7 +577,7 @@ Test(extract, empty_file_is_no_match) {
                                      why, sizeof why),
                BK_FAULT_NO_MATCH);
   cr_assert_str_eq(why, "no match in stdout (empty)");
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 Test(extract, no_match_names_file_and_size) {
@@ -606,7 +606,7 @@ Test(extract, no_match_names_file_and_size) {
                  BK_FAULT_NO_MATCH);
     cr_assert_str_eq(why, cases[i].why);
   }
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 Test(extract, nan_match_is_not_a_number) {
@@ -682,7 +682,7 @@ Test(extract, invalid_pattern_reports_message_and_offset) {
     bk_pattern_t *p = (bk_pattern_t *)1;
     char msg[128] = "";
     size_t off = 99;
-    cr_assert_eq(bk_pattern_compile(cases[i].re, &p, msg, sizeof msg, &off),
+    cr_assert_eq(bk_extract_pattern_compile(cases[i].re, &p, msg, sizeof msg, &off),
                  BK_EPARSE, "%s", cases[i].re);
     cr_assert_null(p);
     cr_assert_str_eq(msg, cases[i].msg, "%s", cases[i].re);
@@ -795,8 +795,8 @@ Test(extract, large_file_matches_across_chunk_edges_in_bounded_memory) {
   cr_log_info("peak memory grew by %ld kB at most in one scan of 30 MB", worst);
   cr_assert_lt(worst, 16 * 1024,
                "peak memory grew by %ld kB while scanning 30 MB", worst);
-  bk_pattern_free(tip);
-  bk_pattern_free(block);
+  bk_extract_pattern_free(tip);
+  bk_extract_pattern_free(block);
   cr_assert_eq(unlink(path), 0);
 }
 
@@ -858,7 +858,7 @@ Test(extract, chunked_scan_equals_whole_text_scan_for_any_chunk_size) {
       bk__extract_set_chunk(0);
       bk_buf_close(&whole);
       bk_buf_close(&part);
-      bk_pattern_free(p);
+      bk_extract_pattern_free(p);
     }
   }
   bk_buf_close(&lf);
@@ -930,7 +930,7 @@ Test(extract, chunked_scan_equals_whole_text_scan_on_random_texts) {
     }
   }
   for (size_t k = 0; k < npat; k++)
-    bk_pattern_free(pats[k]);
+    bk_extract_pattern_free(pats[k]);
   bk_buf_close(&whole);
   bk_buf_close(&part);
 }
@@ -956,7 +956,7 @@ Test(extract, match_longer_than_window_is_no_match_with_reason) {
                BK_FAULT_NONE, "%s", why);
   cr_assert_eq(v, 7);
   free(text);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }
 
 /* Each allocation in turn fails; every failure gives BK_ENOMEM and leaks
@@ -967,14 +967,14 @@ Test(extract, out_of_memory_is_reported_at_every_allocation) {
     char msg[128] = "";
     size_t off;
     bk_alloc_fail_at(n);
-    int rc = bk_pattern_compile(ccx_header_re, &p, msg, sizeof msg, &off);
+    int rc = bk_extract_pattern_compile(ccx_header_re, &p, msg, sizeof msg, &off);
     bk_alloc_fail_at(0);
     if (rc) {
       cr_assert_eq(rc, BK_ENOMEM, "allocation %ld: %d %s", n, rc, msg);
       cr_assert_str_eq(msg, "out of memory");
       cr_assert_null(p);
     }
-    bk_pattern_free(p);
+    bk_extract_pattern_free(p);
   }
   char path[512];
   fixture_path(path, sizeof path, "extract_ccx_cantilever.dat");
@@ -995,5 +995,5 @@ Test(extract, out_of_memory_is_reported_at_every_allocation) {
     cr_assert_str_eq(why, "out of memory");
   }
   cr_assert_gt(ok, 50);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
 }

@@ -172,9 +172,9 @@ Test(fingerprint, streaming_digest_equals_one_shot) {
   bk_error_t err;
   bk_error_clear(&err);
   cr_assert_eq(bk_fingerprint_file(p, "big.bin", a, &err), 0, "%s", err.msg);
-  bk_digest_hex(data, n, b);
+  bk_study_digest_hex(data, n, b);
   cr_assert_str_eq(a, b);
-  bk_digest_hex("", 0, b);
+  bk_study_digest_hex("", 0, b);
   snprintf(p, sizeof p, "%s/empty.bin", dir);
   f = fopen(p, "wb");
   fclose(f);

@@ -215,21 +215,21 @@ Test(progress, methods_report_totals_and_stages_in_process) {
 /* Runs the study's method through a dispatcher on records.log; returns
  * the result's failures and fills the last tick's counts. */
 static uint64_t run_dispatched(bk_study_t *s, seen_t *seen) {
-  bk_study_ident_t id;
+  bk_shard_ident_t id;
   bk_error_t ierr;
   bk_error_clear(&ierr);
-  cr_assert_eq(bk_study_ident_init(&id, s, &ierr), 0, "%s", ierr.msg);
+  cr_assert_eq(bk_shard_ident_init(&id, s, &ierr), 0, "%s", ierr.msg);
   char lp[600], wd[600];
   snprintf(lp, sizeof lp, "%s/records.log", dir);
   snprintf(wd, sizeof wd, "%s/work", dir);
   mkdir(wd, 0777);
   bk_records_opts_t ro;
-  bk_study_ident_opts(&id, s, lp, &ro);
+  bk_shard_ident_opts(&id, s, lp, &ro);
   bk_records_t *rec;
   bk_error_t err;
   bk_error_clear(&err);
   cr_assert_eq(bk_records_open(&rec, &ro, &err), 0, "%s", err.msg);
-  bk_study_ident_close(&id);
+  bk_shard_ident_close(&id);
   bk_exec_t *ex;
   cr_assert_eq(bk_exec_local_new(&ex, 2), 0);
   bk_dispatch_opts_t dop = {.study = s,

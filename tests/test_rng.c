@@ -33,7 +33,7 @@ Test(rng, philox4x32_10_matches_known_answers) {
   };
   for (size_t i = 0; i < sizeof kat / sizeof kat[0]; i++) {
     uint32_t out[4];
-    bk_philox4x32_10(kat[i].ctr, kat[i].key, out);
+    bk_rng_philox4x32_10(kat[i].ctr, kat[i].key, out);
     for (int j = 0; j < 4; j++)
       cr_expect_eq(out[j], kat[i].out[j], "vector %zu word %d: %08x", i, j,
                    out[j]);
@@ -83,7 +83,7 @@ Test(rng, bits_follow_the_documented_layout) {
           uint32_t ctr[4] = {(uint32_t)indices[c], (uint32_t)(indices[c] >> 32),
                              dims[d] >> 1, 0};
           uint32_t out[4];
-          bk_philox4x32_10(ctr, key, out);
+          bk_rng_philox4x32_10(ctr, key, out);
           int h = dims[d] & 1;
           uint64_t want = (uint64_t)out[2 * h] | (uint64_t)out[2 * h + 1] << 32;
           cr_expect_eq(bk_rng_bits(seeds[a], streams[b], indices[c], dims[d]),

@@ -46,7 +46,7 @@ Test(sampler, sobol_raw_matches_scipy_bit_for_bit) {
       uint32_t count = (uint32_t)strtoul(end, &end, 10);
       for (uint32_t k = 0; k < count; k++) {
         uint32_t want = (uint32_t)strtoull(end, &end, 10);
-        uint32_t got = bk_sobol_raw(pos ^ (pos >> 1), first + k);
+        uint32_t got = bk_sampler_sobol_raw(pos ^ (pos >> 1), first + k);
         cr_assert_eq(got, want, "position %" PRIu64 " dim %u: %u, scipy %u",
                      pos, first + k, got, want);
       }
@@ -55,7 +55,7 @@ Test(sampler, sobol_raw_matches_scipy_bit_for_bit) {
       uint32_t dim = (uint32_t)strtoul(p + 10, &end, 10);
       for (int j = 0; j < 32; j++) {
         uint32_t want = (uint32_t)strtoull(end, &end, 10);
-        uint32_t got = bk_sobol_raw(UINT64_C(1) << j, dim);
+        uint32_t got = bk_sampler_sobol_raw(UINT64_C(1) << j, dim);
         cr_assert_eq(got, want, "dim %u v_%d: %u, scipy %u", dim, j, got, want);
       }
       ndirection++;
@@ -73,8 +73,8 @@ Test(sampler, sobol_raw_is_linear_in_the_index) {
   for (size_t d = 0; d < 6; d++)
     for (uint64_t a = 1; a < 5000000000u; a = a * 7 + 3) {
       uint64_t b = a * 2654435761u & 0xffffffffu;
-      cr_assert_eq(bk_sobol_raw(a ^ b, dims[d]),
-                   bk_sobol_raw(a, dims[d]) ^ bk_sobol_raw(b, dims[d]));
+      cr_assert_eq(bk_sampler_sobol_raw(a ^ b, dims[d]),
+                   bk_sampler_sobol_raw(a, dims[d]) ^ bk_sampler_sobol_raw(b, dims[d]));
     }
 }
 
@@ -85,14 +85,14 @@ Test(sampler, unscrambled_sobol_points_are_raw_values_off_the_edge) {
   for (uint64_t i = 0; i < 64; i++) {
     bk_sampler_point(&s, i, x);
     for (uint32_t d = 0; d < 5; d++)
-      cr_expect_eq(x[d], bk_sobol_raw(i, d) * 0x1p-32 + 0x1p-53);
+      cr_expect_eq(x[d], bk_sampler_sobol_raw(i, d) * 0x1p-32 + 0x1p-53);
   }
   bk_sampler_point(&s, 0, x);
   cr_expect_eq(x[0], 0x1p-53, "the origin moved just inside");
 }
 
 /* Points of a sampler use byte tables for the first 256 dimensions and
- * the bit loop above: both agree with bk_sobol_raw, including the chunk
+ * the bit loop above: both agree with bk_sampler_sobol_raw, including the chunk
  * that straddles dimension 256. */
 Test(sampler, sobol_points_agree_with_raw_values_in_every_dimension) {
   enum { ND = 300 };
@@ -104,10 +104,10 @@ Test(sampler, sobol_points_agree_with_raw_values_in_every_dimension) {
   for (size_t a = 0; a < 8; a++) {
     bk_sampler_point(&s, idx[a], x);
     for (uint32_t d = 0; d < ND; d++)
-      cr_assert_eq(x[d], bk_sobol_raw(idx[a], d) * 0x1p-32 + 0x1p-53,
+      cr_assert_eq(x[d], bk_sampler_sobol_raw(idx[a], d) * 0x1p-32 + 0x1p-53,
                    "index %" PRIu64 " dim %u", idx[a], d);
   }
-  cr_expect_eq(bk_sobol_raw((UINT64_C(1) << 32) + 5, 7), bk_sobol_raw(5, 7),
+  cr_expect_eq(bk_sampler_sobol_raw((UINT64_C(1) << 32) + 5, 7), bk_sampler_sobol_raw(5, 7),
                "the index is taken modulo 2^32");
 }
 
@@ -118,7 +118,7 @@ static void check_bijection(uint64_t n, uint64_t key) {
   cr_assert_leq(n, sizeof seen);
   memset(seen, 0, n);
   for (uint64_t i = 0; i < n; i++) {
-    uint64_t p = bk_permute(i, n, key);
+    uint64_t p = bk_sampler_permute(i, n, key);
     cr_assert_lt(p, n, "n %" PRIu64 " key %" PRIx64 ": %" PRIu64, n, key, p);
     cr_assert_eq(seen[p], 0, "n %" PRIu64 " key %" PRIx64 ": %" PRIu64 " twice",
                  n, key, p);
@@ -155,7 +155,7 @@ Test(sampler, permute_handles_64_bit_sizes) {
   for (size_t a = 0; a < 4; a++) {
     for (size_t i = 0; i < 4096; i++) {
       uint64_t idx = i < 2048 ? i : ns[a] - 1 - (i - 2048) * 977;
-      img[i] = bk_permute(idx, ns[a], 99);
+      img[i] = bk_sampler_permute(idx, ns[a], 99);
       cr_assert_lt(img[i], ns[a]);
     }
     qsort(img, 4096, sizeof img[0], cmp_u64);
@@ -177,9 +177,9 @@ Test(sampler, permute_gives_uniform_triples_over_keys) {
     cr_assert(count);
     for (long key = 0; key < N; key++) {
       uint64_t i = (uint64_t)key * 2654435761u % (uint64_t)(n - 2);
-      uint64_t x = bk_permute(i, n, (uint64_t)key);
-      uint64_t y = bk_permute(i + 1, n, (uint64_t)key);
-      uint64_t z = bk_permute(i + 2, n, (uint64_t)key);
+      uint64_t x = bk_sampler_permute(i, n, (uint64_t)key);
+      uint64_t y = bk_sampler_permute(i + 1, n, (uint64_t)key);
+      uint64_t z = bk_sampler_permute(i + 2, n, (uint64_t)key);
       count[(x * n + y) * n + z]++;
     }
     double e = (double)N / t, chi2 = 0;
@@ -367,11 +367,11 @@ Test(sampler, lhs_values_are_pinned) {
                    x[d], c[a].x[d]);
   }
   /* Pinned images of the permutation itself (same origin). */
-  cr_expect_eq(bk_permute(1, 37, 12345), 14);
-  cr_expect_eq(bk_permute(36, 37, UINT64_MAX), 24);
-  cr_expect_eq(bk_permute(1, 131073, 12345), 11650);
-  cr_expect_eq(bk_permute(131072, 131073, UINT64_MAX), 51639);
-  cr_expect_eq(bk_permute(1, UINT64_C(1) << 53, 12345),
+  cr_expect_eq(bk_sampler_permute(1, 37, 12345), 14);
+  cr_expect_eq(bk_sampler_permute(36, 37, UINT64_MAX), 24);
+  cr_expect_eq(bk_sampler_permute(1, 131073, 12345), 11650);
+  cr_expect_eq(bk_sampler_permute(131072, 131073, UINT64_MAX), 51639);
+  cr_expect_eq(bk_sampler_permute(1, UINT64_C(1) << 53, 12345),
                UINT64_C(1864413280473036));
 }
 

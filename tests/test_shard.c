@@ -174,7 +174,7 @@ Test(shard, serve_answers_from_the_logs_and_counts_missing_keys) {
   char first[2][96] = {"", ""};
   bk_serve_t sv = {&s, &r, 1, 2, missing, first, 0, 0};
   bk_evaluator_t ev;
-  bk_serve_evaluator(&sv, &ev);
+  bk_shard_serve_evaluator(&sv, &ev);
   bk_point_t pts[6];
   for (int i = 0; i < 6; i++)
     pts[i] = (bk_point_t){(uint64_t)i, &xs[i], NULL, NAN, -1, NULL};

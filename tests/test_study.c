@@ -409,7 +409,7 @@ Test(study, every_key_is_documented) {
   bk_study_keys(check_key, &c);
   cr_assert_gt(c.nkeys, 50);
   for (int m = 0; m < BK_METHOD__COUNT; m++)
-    check_key(bk_method_name((bk_method_kind_t)m), &c);
+    check_key(bk_study_method_name((bk_method_kind_t)m), &c);
   for (int d = 0; d < BK_DIST__COUNT; d++)
     check_key(bk_dist_name((bk_dist_kind_t)d), &c);
   cr_assert_str_eq(c.missing, "", "not in docs/study-file.md:%s", c.missing);

@@ -117,7 +117,7 @@ Test(transform, gauss_hermite_rule_integrates_normal_moments_exactly) {
   for (size_t t = 0; t < sizeof ns / sizeof ns[0]; t++) {
     int n = ns[t];
     double x[256], w[256];
-    bk__gauss_hermite(n, x, w);
+    bk__transform_gauss_hermite(n, x, w);
     double want = 1; /* (2k-1)!! */
     for (int k = 0; 2 * k <= 2 * n - 1 && k <= 30; k++) {
       double got = 0, odd = 0;
@@ -136,7 +136,7 @@ Test(transform, gauss_hermite_rule_integrates_normal_moments_exactly) {
   }
   /* He_5(x) = x^5 - 10 x^3 + 15 x: nodes 0 and +-sqrt(5 +- sqrt(10)). */
   double x[5], w[5];
-  bk__gauss_hermite(5, x, w);
+  bk__transform_gauss_hermite(5, x, w);
   cr_assert(fabs(x[4] - sqrt(5 + sqrt(10))) < 1e-14);
   cr_assert(fabs(x[3] - sqrt(5 - sqrt(10))) < 1e-14);
   cr_assert(fabs(x[2]) < 1e-15);
@@ -147,11 +147,11 @@ Test(transform, closed_forms_of_liu_der_kiureghian_are_used) {
    * normal-lognormal rho0 = rho cov / sqrt(ln(1 + cov^2)); lognormal pair
    * rho0 = ln(1 + rho c1 c2) / sqrt(ln(1 + c1^2) ln(1 + c2^2)). */
   bk_dist_t n = normal(3, 2), l1 = lognormal(10, 0.3), l2 = lognormal(2, 0.8);
-  cr_assert_eq(bk_nataf_rho0(&n, &n, 0.37), 0.37);
+  cr_assert_eq(bk_transform_nataf_rho0(&n, &n, 0.37), 0.37);
   double c = 0.3, want = 0.6 * c / sqrt(log(1 + c * c));
-  cr_assert(fabs(bk_nataf_rho0(&n, &l1, 0.6) - want) < 1e-14);
-  cr_assert(fabs(bk_nataf_rho0(&l1, &n, 0.6) - want) < 1e-14);
-  cr_assert(fabs(bk_nataf_rho0(&l1, &l2, -0.5) -
+  cr_assert(fabs(bk_transform_nataf_rho0(&n, &l1, 0.6) - want) < 1e-14);
+  cr_assert(fabs(bk_transform_nataf_rho0(&l1, &n, 0.6) - want) < 1e-14);
+  cr_assert(fabs(bk_transform_nataf_rho0(&l1, &l2, -0.5) -
                  lognormal_rho0(0.3, 0.8, -0.5)) < 1e-14);
 }
 
@@ -166,7 +166,7 @@ Test(transform, numeric_solution_reproduces_the_exact_cases) {
     for (size_t r = 0; r < 5; r++) {
       double rho = rhos[r], c = covs[i];
       double want = rho * c / sqrt(log(1 + c * c));
-      double got = bk__nataf_rho0_numeric(&n, &li, rho);
+      double got = bk__transform_nataf_rho0_numeric(&n, &li, rho);
       if (fabs(want) < 1) {
         cr_assert(fabs(got - want) < 1e-7, "N-LN cov %g rho %g: %.12g vs %.12g",
                   c, rho, got, want);
@@ -177,7 +177,7 @@ Test(transform, numeric_solution_reproduces_the_exact_cases) {
         bk_dist_t lj = lognormal(1, covs[j]);
         double d = covs[j];
         double w2 = lognormal_rho0(c, d, rho);
-        double g2 = bk__nataf_rho0_numeric(&li, &lj, rho);
+        double g2 = bk__transform_nataf_rho0_numeric(&li, &lj, rho);
         if (1 + rho * c * d > 0 && fabs(w2) < 1)
           cr_assert(fabs(g2 - w2) < 1e-7, "LN-LN %g %g rho %g: %.12g vs %.12g",
                     c, d, rho, g2, w2);
@@ -186,7 +186,7 @@ Test(transform, numeric_solution_reproduces_the_exact_cases) {
       }
     }
   }
-  cr_assert(fabs(bk__nataf_rho0_numeric(&n, &n, 0.7) - 0.7) < 1e-12);
+  cr_assert(fabs(bk__transform_nataf_rho0_numeric(&n, &n, 0.7) - 0.7) < 1e-12);
 }
 
 Test(transform, uniform_pair_follows_the_arcsine_law) {
@@ -198,7 +198,7 @@ Test(transform, uniform_pair_follows_the_arcsine_law) {
       dist(BK_DIST_UNIFORM, BK_PARAM_LOWER, -3.0, BK_PARAM_UPPER, 7.0, -1);
   for (double rho = -0.9; rho < 0.95; rho += 0.3) {
     double want = 2 * sin(M_PI * rho / 6);
-    cr_assert(fabs(bk_nataf_rho0(&u, &v, rho) - want) < 1e-10, "rho %g", rho);
+    cr_assert(fabs(bk_transform_nataf_rho0(&u, &v, rho) - want) < 1e-10, "rho %g", rho);
   }
 }
 
@@ -207,11 +207,11 @@ Test(transform, normal_with_uniform_scales_by_sqrt_pi_over_3) {
    * rho = rho0 sqrt(3 / pi): F = sqrt(pi / 3) = 1.0233, the constant of
    * Liu and Der Kiureghian (1986) table 1 (1.023). */
   bk_dist_t n = normal(1, 2), u = uniform01();
-  cr_assert(fabs(bk_nataf_rho0(&n, &u, 0.5) - 0.5 * sqrt(M_PI / 3)) < 1e-12);
-  cr_assert(fabs(bk__nataf_rho0_numeric(&u, &n, -0.5) + 0.5 * sqrt(M_PI / 3)) <
+  cr_assert(fabs(bk_transform_nataf_rho0(&n, &u, 0.5) - 0.5 * sqrt(M_PI / 3)) < 1e-12);
+  cr_assert(fabs(bk__transform_nataf_rho0_numeric(&u, &n, -0.5) + 0.5 * sqrt(M_PI / 3)) <
             1e-10);
   double lo, hi;
-  bk_nataf_range(&n, &u, &lo, &hi);
+  bk_transform_nataf_range(&n, &u, &lo, &hi);
   cr_assert(fabs(hi - sqrt(3 / M_PI)) < 1e-12 && fabs(lo + hi) < 1e-12);
 }
 
@@ -220,11 +220,11 @@ Test(transform, exponential_pair_cannot_go_below_one_minus_pi2_over_6) {
    * (Moran 1967, from memory); the comonotone one is 1. */
   bk_dist_t e1 = exponential(1), e2 = exponential(3);
   double lo, hi;
-  bk_nataf_range(&e1, &e2, &lo, &hi);
+  bk_transform_nataf_range(&e1, &e2, &lo, &hi);
   cr_assert(fabs(lo - (1 - M_PI * M_PI / 6)) < 1e-9, "lo %.15g", lo);
   cr_assert(fabs(hi - 1) < 1e-12, "hi %.15g", hi);
-  cr_assert(isnan(bk_nataf_rho0(&e1, &e2, -0.65)));
-  cr_assert(!isnan(bk_nataf_rho0(&e1, &e2, -0.64)));
+  cr_assert(isnan(bk_transform_nataf_rho0(&e1, &e2, -0.65)));
+  cr_assert(!isnan(bk_transform_nataf_rho0(&e1, &e2, -0.64)));
 }
 
 Test(transform, rho0_matches_the_scipy_reference_table) {
@@ -247,19 +247,19 @@ Test(transform, rho0_matches_the_scipy_reference_table) {
     lines++;
     if (!strcmp(tag, "range")) {
       double lo, hi;
-      bk_nataf_range(&da, &db, &lo, &hi);
+      bk_transform_nataf_range(&da, &db, &lo, &hi);
       cr_assert(fabs(lo - v1) < 1e-7 && fabs(hi - v2) < 1e-7,
                 "range %s %s: [%.12g, %.12g], scipy [%.12g, %.12g]", ka, kb, lo,
                 hi, v1, v2);
       continue;
     }
-    double r0 = bk_nataf_rho0(&da, &db, v1);
+    double r0 = bk_transform_nataf_rho0(&da, &db, v1);
     cr_assert(fabs(r0 - v2) < 1e-7, "%s %s rho %g: rho0 %.12g, scipy %.12g", ka,
               kb, v1, r0, v2);
-    double back = bk__nataf_rho(&da, &db, v2);
+    double back = bk__transform_nataf_rho(&da, &db, v2);
     cr_assert(fabs(back - v1) < 1e-7, "%s %s rho0 %.12g: rho %.12g, want %g",
               ka, kb, v2, back, v1);
-    cr_assert(fabs(bk__nataf_rho(&db, &da, v2) - back) < 1e-9,
+    cr_assert(fabs(bk__transform_nataf_rho(&db, &da, v2) - back) < 1e-9,
               "%s %s symmetric", ka, kb);
   }
   fclose(f);
@@ -284,12 +284,12 @@ Test(transform, liu_der_kiureghian_approximations_agree_to_one_percent) {
   };
   for (size_t i = 0; i < sizeof t / sizeof t[0]; i++) {
     double lo, hi;
-    bk_nataf_range(t[i].a, t[i].b, &lo, &hi);
+    bk_transform_nataf_range(t[i].a, t[i].b, &lo, &hi);
     for (int k = -9; k <= 9; k++) {
       double rho = k / 10.0;
       if (k == 0 || rho <= lo || rho >= hi)
         continue;
-      double F = bk_nataf_rho0(t[i].a, t[i].b, rho) / rho;
+      double F = bk_transform_nataf_rho0(t[i].a, t[i].b, rho) / rho;
       double approx = t[i].c0 + t[i].c1 * rho + t[i].c2 * rho * rho;
       cr_assert(fabs(approx / F - 1) < 0.01, "%s-%s rho %g: F %.5f, table %.5f",
                 bk_dist_name(t[i].a->kind), bk_dist_name(t[i].b->kind), rho, F,
@@ -367,9 +367,9 @@ Test(transform, correlated_normals_use_the_cholesky_factor) {
 Test(transform, rho0_is_reported_for_each_given_pair) {
   bk_dist_t d[6];
   bk_transform_t *t = mixed(d, 0.5, -0.3, 0.4);
-  cr_assert_eq(bk_transform_rho0(t, 0, 2), bk_nataf_rho0(&d[0], &d[2], 0.5));
+  cr_assert_eq(bk_transform_rho0(t, 0, 2), bk_transform_nataf_rho0(&d[0], &d[2], 0.5));
   cr_assert_eq(bk_transform_rho0(t, 2, 0), bk_transform_rho0(t, 0, 2));
-  cr_assert_eq(bk_transform_rho0(t, 0, 4), bk_nataf_rho0(&d[4], &d[0], -0.3));
+  cr_assert_eq(bk_transform_rho0(t, 0, 4), bk_transform_nataf_rho0(&d[4], &d[0], -0.3));
   cr_assert_eq(bk_transform_rho0(t, 0, 3), 0);
   cr_assert_eq(bk_transform_rho0(t, 3, 3), 1);
   cr_assert(isnan(bk_transform_rho0(t, 0, 6)));
@@ -493,7 +493,7 @@ Test(transform, unreachable_correlation_names_the_limit) {
                         "exponential marginal (smallest reachable about "
                         "-0.644)");
   cr_assert_eq(bad, 0);
-  cr_assert(isnan(bk_nataf_rho0(&d[1], &d[2], 0.99)));
+  cr_assert(isnan(bk_transform_nataf_rho0(&d[1], &d[2], 0.99)));
 }
 
 Test(transform, invalid_pairs_are_reported_with_their_index) {
@@ -612,9 +612,9 @@ Test(transform, identical_pairs_share_one_solution) {
   bk_corr_t c[] = {{0, 2, 0.5}, {2, 1, 0.5}, {3, 2, 0.4}};
   bk_transform_t *t;
   cr_assert_eq(bk_transform_new(&t, 4, d, 3, c, NULL, 0, NULL), 0);
-  double want = bk_nataf_rho0(&d[0], &d[2], 0.5);
+  double want = bk_transform_nataf_rho0(&d[0], &d[2], 0.5);
   cr_assert_eq(bk_transform_rho0(t, 0, 2), want);
   cr_assert(fabs(bk_transform_rho0(t, 1, 2) - want) < 1e-12);
-  cr_assert_eq(bk_transform_rho0(t, 2, 3), bk_nataf_rho0(&d[3], &d[2], 0.4));
+  cr_assert_eq(bk_transform_rho0(t, 2, 3), bk_transform_nataf_rho0(&d[3], &d[2], 0.4));
   bk_transform_free(t);
 }

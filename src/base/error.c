@@ -24,7 +24,7 @@ const char *bk_strerror(int code) {
   }
 }
 
-const char *bk_err_name(int code) {
+const char *bk_error_name(int code) {
   switch (code) {
   case BK_OK:
     return "OK";

@@ -2,7 +2,7 @@
  * Error codes, the exit code each one gives, and the located error record
  * that user-facing failures fill. Codes are negative: a negative errno where
  * the system has one, else one of brink's own. One X-macro list generates
- * the enum, bk_strerror() and bk_err_name(), so a code and its text cannot
+ * the enum, bk_strerror() and bk_error_name(), so a code and its text cannot
  * drift apart.
  *
  * SPDX-License-Identifier: MIT
@@ -72,7 +72,7 @@ typedef struct {
 } bk_error_t;
 
 const char *bk_strerror(int code);
-const char *bk_err_name(int code);
+const char *bk_error_name(int code);
 
 void bk_error_clear(bk_error_t *err);
 /* Sets the error (if not already set) and returns `code`. `path` may be

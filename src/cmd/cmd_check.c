@@ -387,7 +387,7 @@ int bk__cmd_check(int argc, char **argv) {
     }
   }
   const bk_analysis_t *a = &s->analysis;
-  printf("\nMethod %s, seed %llu\n", bk_method_name(a->method),
+  printf("\nMethod %s, seed %llu\n", bk_study_method_name(a->method),
          (unsigned long long)s->seed);
   if (a->method == BK_METHOD_LHS || a->method == BK_METHOD_SOBOL) {
     uint64_t per = a->samples / a->replicates;

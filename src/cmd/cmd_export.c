@@ -97,42 +97,42 @@ static int on_record(void *data, const bk_record_t *r) {
   int failed = r->fault == BK_FAULT_NONE && r->g <= 0;
   if (e->json) {
     bk_buf_puts(b, "{\"key\": ");
-    bk_json_string(b, r->key);
+    bk_report_json_string(b, r->key);
     for (size_t i = 0; i < e->nx; i++) {
       bk_buf_puts(b, ", ");
-      bk_json_string(b, e->xn[i]);
+      bk_report_json_string(b, e->xn[i]);
       bk_buf_puts(b, ": ");
-      bk_json_number(b, i < r->nx ? r->x[i] : NAN);
+      bk_report_json_number(b, i < r->nx ? r->x[i] : NAN);
     }
     for (size_t i = 0; i < e->ny; i++) {
       bk_buf_puts(b, ", ");
-      bk_json_string(b, e->yn[i]);
+      bk_report_json_string(b, e->yn[i]);
       bk_buf_puts(b, ": ");
-      bk_json_number(b, i < r->ny ? r->y[i] : NAN);
+      bk_report_json_number(b, i < r->ny ? r->y[i] : NAN);
     }
     bk_buf_puts(b, ", ");
-    bk_json_string(b, e->gname);
+    bk_report_json_string(b, e->gname);
     bk_buf_puts(b, ": ");
-    bk_json_number(b, r->g);
+    bk_report_json_number(b, r->g);
     for (size_t k = 0; k < nm; k++) {
       bk_buf_puts(b, ", ");
-      bk_json_string(b, e->s->modes[k].name);
+      bk_report_json_string(b, e->s->modes[k].name);
       bk_buf_puts(b, ": ");
-      bk_json_number(b, e->gc[k]);
+      bk_report_json_number(b, e->gc[k]);
     }
     bk_buf_printf(b, ", \"failed\": %s, \"status\": ",
                   r->fault ? "null"
                   : failed ? "true"
                            : "false");
-    bk_json_string(b, bk_fault_name(r->fault));
+    bk_report_json_string(b, bk_fault_name(r->fault));
     bk_buf_printf(b, ", \"attempts\": %d, \"seconds\": ", r->attempts);
-    bk_json_number(b, r->seconds);
+    bk_report_json_number(b, r->seconds);
     bk_buf_puts(b, ", \"host\": ");
-    bk_json_string(b, r->host ? r->host : "");
+    bk_report_json_string(b, r->host ? r->host : "");
     bk_buf_puts(b, ", \"reason\": ");
-    bk_json_string(b, r->reason ? r->reason : "");
+    bk_report_json_string(b, r->reason ? r->reason : "");
     bk_buf_puts(b, ", \"folder\": ");
-    bk_json_string(b, r->folder ? r->folder : "");
+    bk_report_json_string(b, r->folder ? r->folder : "");
     bk_buf_puts(b, "}\n");
   } else {
     csv_text(b, r->key);

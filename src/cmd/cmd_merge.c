@@ -41,7 +41,7 @@ typedef struct {
   bk_records_t **logs;
   size_t nlogs;
   uint32_t count;
-  bk_study_ident_t id; /* made once: it runs model.version_command */
+  bk_shard_ident_t id; /* made once: it runs model.version_command */
   int has_id;
 } shard_set_t;
 
@@ -65,7 +65,7 @@ static void shard_set_close(shard_set_t *ss) {
     bk_records_close(ss->logs[i]);
   bk_free(ss->logs);
   if (ss->has_id)
-    bk_study_ident_close(&ss->id);
+    bk_shard_ident_close(&ss->id);
   memset(ss, 0, sizeof *ss);
 }
 
@@ -145,7 +145,7 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
   ss->logs = bk_calloc(ss->count, sizeof *ss->logs);
   bk_error_t ierr;
   bk_error_clear(&ierr);
-  int irc = ss->logs ? bk_study_ident_init(&ss->id, s, &ierr) : BK_ENOMEM;
+  int irc = ss->logs ? bk_shard_ident_init(&ss->id, s, &ierr) : BK_ENOMEM;
   ss->has_id = irc == 0;
   if (irc) {
     if (ss->logs)
@@ -163,7 +163,7 @@ static int open_shards(const bk_study_t *s, shard_set_t *ss) {
     bk_buf_init(&p);
     bk_buf_printf(&p, "%s/%s", s->run.folder, name);
     bk_records_opts_t ro;
-    bk_study_ident_opts(&ss->id, s, p.data, &ro);
+    bk_shard_ident_opts(&ss->id, s, p.data, &ro);
     ro.read_only = 1;
     bk_error_t err;
     bk_error_clear(&err);
@@ -205,7 +205,7 @@ static int write_merged(const bk_study_t *s, shard_set_t *ss, bk_error_t *err) {
   bk_buf_init(&p);
   bk_buf_printf(&p, "%s/records.log", s->run.folder);
   bk_records_opts_t ro;
-  bk_study_ident_opts(&ss->id, s, p.data, &ro);
+  bk_shard_ident_opts(&ss->id, s, p.data, &ro);
   bk_records_t *out = NULL;
   int rc = bk_records_open(&out, &ro, err);
   bk_buf_close(&p);
@@ -259,7 +259,7 @@ int bk__cmd_merge(int argc, char **argv) {
   char(*first)[96] = bk_calloc(ss.count, sizeof *first);
   bk_serve_t sv = {s, ss.logs, ss.nlogs, ss.count, missing, first, 0, 0};
   bk_evaluator_t ev;
-  bk_serve_evaluator(&sv, &ev);
+  bk_shard_serve_evaluator(&sv, &ev);
   bk_method_opts_t opts = {NULL, NULL, shard_reason, &ss};
   bk_result_t res;
   memset(&res, 0, sizeof res);

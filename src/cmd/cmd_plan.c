@@ -260,15 +260,15 @@ int bk__cmd_plan(int argc, char **argv) {
     bk_buf_t b;
     bk_buf_init(&b);
     bk_buf_puts(&b, "{\n  \"pf\": ");
-    bk_json_number(&b, pf);
+    bk_report_json_number(&b, pf);
     bk_buf_puts(&b, ",\n  \"pf_from\": ");
-    bk_json_string(&b, pf_from);
+    bk_report_json_string(&b, pf_from);
     bk_buf_puts(&b, ",\n  \"cov\": ");
-    bk_json_number(&b, cov);
+    bk_report_json_number(&b, cov);
     bk_buf_puts(&b, ",\n  \"seconds_per_run\": ");
-    bk_json_number(&b, seconds);
+    bk_report_json_number(&b, seconds);
     bk_buf_puts(&b, ",\n  \"seconds_from\": ");
-    bk_json_string(&b, sec_from);
+    bk_report_json_string(&b, sec_from);
     bk_buf_printf(&b,
                   ",\n  \"slots\": %d,\n  \"cores\": %d,\n  "
                   "\"cores_per_run\": %d,\n  \"random_variables\": %zu",
@@ -276,13 +276,13 @@ int bk__cmd_plan(int argc, char **argv) {
     bk_buf_puts(&b, ",\n  \"methods\": [");
     for (int i = 0; i < BK_PLAN_ROWS; i++) {
       bk_buf_puts(&b, i ? ",\n    {\"method\": " : "\n    {\"method\": ");
-      bk_json_string(&b, rows[i].method);
+      bk_report_json_string(&b, rows[i].method);
       bk_buf_puts(&b, ", \"evaluations\": ");
-      bk_json_number(&b, rows[i].evaluations);
+      bk_report_json_number(&b, rows[i].evaluations);
       bk_buf_puts(&b, ", \"wall_seconds\": ");
-      bk_json_number(&b, rows[i].seconds);
+      bk_report_json_number(&b, rows[i].seconds);
       bk_buf_puts(&b, ", \"note\": ");
-      bk_json_string(&b, rows[i].note);
+      bk_report_json_string(&b, rows[i].note);
       bk_buf_putc(&b, '}');
     }
     bk_buf_puts(&b, "\n  ]\n}\n");

@@ -182,7 +182,7 @@ static int reanalyse(const char *folder, const char *study_path, int json,
             "values of g, so its evaluations say nothing reliable about "
             "another limit state. Run the study again with the changed "
             "limit state (a new run.folder)\n",
-            bk_method_name(m));
+            bk_study_method_name(m));
     goto done;
   }
   bk_buf_printf(&jp, "%s/report.json", folder);
@@ -244,7 +244,7 @@ static int reanalyse(const char *folder, const char *study_path, int json,
       goto done;
     }
     sv = (bk_serve_t){s, &rec, 1, 1, &missing, &first, 0, 1};
-    bk_serve_evaluator(&sv, &ev);
+    bk_shard_serve_evaluator(&sv, &ev);
   } else {
     bk_evaluator_inprocess(&ev, s);
   }

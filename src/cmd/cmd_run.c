@@ -138,8 +138,8 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
                           int quiet, const run_mode_t *mode) {
   bk_error_t err;
   bk_error_clear(&err);
-  bk_study_ident_t id;
-  int irc = bk_study_ident_init(&id, s, &err);
+  bk_shard_ident_t id;
+  int irc = bk_shard_ident_init(&id, s, &err);
   if (irc) {
     bk__cli_print_error(&err);
     return bk_error_exit(irc);
@@ -151,9 +151,9 @@ static int model_run_open(const bk_study_t *s, model_run_t *m, progress_t *pr,
   bk_buf_init(&lp);
   bk_buf_printf(&lp, "%s/%s", s->run.folder, logname);
   bk_records_opts_t ro;
-  bk_study_ident_opts(&id, s, lp.data, &ro);
+  bk_shard_ident_opts(&id, s, lp.data, &ro);
   int rc = bk_records_open(&m->records, &ro, &err);
-  bk_study_ident_close(&id);
+  bk_shard_ident_close(&id);
   if (rc) {
     bk__cli_print_error(&err);
     bk_buf_close(&lp);
@@ -264,7 +264,7 @@ static int run_study(const char *path, int quiet, const run_mode_t *mode) {
             "sobol) only: %s chooses each batch from the responses to the "
             "earlier ones, so its keys cannot be split in advance. Run it "
             "with --mpi to use several nodes\n",
-            bk_method_name(s->analysis.method));
+            bk_study_method_name(s->analysis.method));
     bk_study_free(s);
     return BK_EXIT_USAGE;
   }

@@ -323,7 +323,7 @@ int bk__cmd_status(int argc, char **argv) {
     else if (plan)
       printf("  evaluations    %llu recorded (%s stops on its own evidence; "
              "max_evaluations %llu)\n",
-             (unsigned long long)t->n, bk_method_name(s->analysis.method),
+             (unsigned long long)t->n, bk_study_method_name(s->analysis.method),
              (unsigned long long)plan);
     else
       printf("  evaluations    %llu recorded\n", (unsigned long long)t->n);

@@ -410,7 +410,7 @@ int bk__cmd_submit(int argc, char **argv) {
             "brink: submit: --mode array shards the keys, which only the "
             "sampling methods (random, lhs, sobol) allow; %s chooses its "
             "batches from earlier responses: use --mode mpi\n",
-            bk_method_name(s->analysis.method));
+            bk_study_method_name(s->analysis.method));
     bk_study_free(s);
     return BK_EXIT_USAGE;
   }

@@ -100,7 +100,7 @@ static int records_put(bk_sink_t *sk, const bk_record_t *rec, bk_error_t *err) {
   return bk_records_append(sk->data, rec, err);
 }
 
-void bk_sink_records(bk_sink_t *sk, bk_records_t *r) {
+void bk_dispatch_sink_records(bk_sink_t *sk, bk_records_t *r) {
   sk->put = records_put;
   sk->data = r;
 }
@@ -131,7 +131,7 @@ static int remove_entry(const char *p, const struct stat *sb, int flag,
   return remove(p) == 0 || errno == ENOENT ? 0 : -1;
 }
 
-int bk_remove_tree(const char *path) {
+int bk_dispatch_remove_tree(const char *path) {
   struct stat st;
   if (lstat(path, &st) != 0)
     return errno == ENOENT ? 0 : -errno;
@@ -434,7 +434,7 @@ int bk_dispatch_new(bk_dispatch_t **out, const bk_dispatch_opts_t *opts) {
              opts->host && *opts->host ? opts->host : "localhost",
              opts->study->run.ranks > 0 ? opts->study->run.ranks : 1);
   if (!d->o.sink) {
-    bk_sink_records(&d->records_sink, opts->records);
+    bk_dispatch_sink_records(&d->records_sink, opts->records);
     d->o.sink = &d->records_sink;
   }
   const bk_study_t *s = opts->study;
@@ -458,7 +458,7 @@ void bk_dispatch_free(bk_dispatch_t *d) {
   if (!d)
     return;
   for (size_t i = 0; i < d->nspare; i++) {
-    bk_remove_tree(d->spare[i]);
+    bk_dispatch_remove_tree(d->spare[i]);
     bk_free(d->spare[i]);
   }
   bk_free(d->spare);
@@ -658,7 +658,7 @@ static void add_spare(bk_dispatch_t *d, char *path) {
     d->spare[d->nspare++] = path;
     return;
   }
-  bk_remove_tree(path);
+  bk_dispatch_remove_tree(path);
   bk_free(path);
 }
 
@@ -678,7 +678,7 @@ static void retire_work(void *data) {
   retiring_t *r = data;
   r->ok = tidy_for_reuse(r->study, r->dir) && rename(r->dir, r->spare) == 0;
   if (!r->ok)
-    bk_remove_tree(r->dir);
+    bk_dispatch_remove_tree(r->dir);
 }
 
 static void retire_done(void *data) {
@@ -708,7 +708,7 @@ static void retire_folder(bk_dispatch_t *d, const char *dir) {
     p.data = NULL;
   }
   if (!r || !r->dir || !r->spare) {
-    bk_remove_tree(dir);
+    bk_dispatch_remove_tree(dir);
   } else if (bk_exec_work(d->o.exec, retire_work, retire_done, r) == 0) {
     return;
   } else {
@@ -733,10 +733,10 @@ static int reuse_spare(bk_dispatch_t *d, const char *dir) {
                 errno == ENOTDIR)) {
       /* An old folder of this key, left by a crash or an earlier attempt:
        * remove it (now, before the folder is made again) and try again. */
-      ok = bk_remove_tree(dir) == 0 && rename(sp, dir) == 0;
+      ok = bk_dispatch_remove_tree(dir) == 0 && rename(sp, dir) == 0;
     }
     if (!ok)
-      bk_remove_tree(sp);
+      bk_dispatch_remove_tree(sp);
     bk_free(sp);
     if (ok)
       return 1;
@@ -774,7 +774,7 @@ static int prepare_folder(job_t *j, char *why, size_t whycap) {
   int reused = reuse_spare(d, j->dir);
   if (!reused && mkdir(j->dir, 0777) != 0) {
     /* An old folder of this key: remove it first. */
-    rc = errno == EEXIST ? bk_remove_tree(j->dir) : -errno;
+    rc = errno == EEXIST ? bk_dispatch_remove_tree(j->dir) : -errno;
     if (rc == 0 && mkdir(j->dir, 0777) != 0)
       rc = -errno;
   }

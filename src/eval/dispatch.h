@@ -34,7 +34,7 @@ struct bk_sink {
 };
 
 /* A sink appending to an open record log. */
-void bk_sink_records(bk_sink_t *sk, bk_records_t *r);
+void bk_dispatch_sink_records(bk_sink_t *sk, bk_records_t *r);
 
 /* The dispatcher's counts (evaluator.h): completed are model runs
  * finished in this process; the tick comes after each of them, and once
@@ -85,7 +85,7 @@ int bk_dispatch_env_removed(const bk_study_t *s, const char *kv);
 
 /* Removes a folder and everything below it without following symbolic
  * links. Returns 0 or a negative errno. */
-int bk_remove_tree(const char *path);
+int bk_dispatch_remove_tree(const char *path);
 
 /* Kills (SIGKILL, with their process groups) the processes of this user
  * whose working folder lies below `work_dir`: models left running by a

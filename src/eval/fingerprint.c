@@ -19,7 +19,7 @@
 
 #include "base/buf.h"
 
-/* The lanes of bk_digest_hex (study.h), one byte at a time. */
+/* The lanes of bk_study_digest_hex (study.h), one byte at a time. */
 static uint64_t mix64(uint64_t z) {
   z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ULL;
   z = (z ^ (z >> 27)) * 0x94d049bb133111ebULL;

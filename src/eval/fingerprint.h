@@ -1,9 +1,9 @@
 /*
  * Fingerprints of what the model reads: file contents, hashed as a stream
  * (a model file of hundreds of MB is never read whole), and the output of
- * a version command. The digests equal bk_digest_hex of the same bytes,
+ * a version command. The digests equal bk_study_digest_hex of the same bytes,
  * 32 hex digits; they go into the records header as fingerprint parts
- * (shard.h, bk_study_ident_init), so that a resume after a change is
+ * (shard.h, bk_shard_ident_init), so that a resume after a change is
  * refused naming what changed.
  *
  * SPDX-License-Identifier: MIT
@@ -23,7 +23,7 @@ typedef struct {
 } bk_fingerprint_t;
 
 /* Starts a digest of `len` bytes in all (the length seeds one lane, as in
- * bk_digest_hex, so it must be known first). */
+ * bk_study_digest_hex, so it must be known first). */
 void bk_fingerprint_init(bk_fingerprint_t *f, uint64_t len);
 void bk_fingerprint_update(bk_fingerprint_t *f, const void *data, size_t n);
 /* The digest as 32 hex digits into hex[33]. */

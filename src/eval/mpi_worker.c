@@ -93,7 +93,7 @@ static int copy_entry(const char *p, const struct stat *sb, int flag,
 
 /* Copies src to dst (dst replaced). Returns 0 or a positive errno. */
 static int copy_tree(const char *src, const char *dst) {
-  bk_remove_tree(dst);
+  bk_dispatch_remove_tree(dst);
   copy_root_src = src;
   copy_root_dst = dst;
   copy_failed = 0;
@@ -127,7 +127,7 @@ static const char *kept_folder(reply_t *rp, const char *folder) {
   bk_buf_reset(&rp->folder);
   if (e == 0) {
     bk_buf_puts(&rp->folder, dst.data);
-    bk_remove_tree(folder);
+    bk_dispatch_remove_tree(folder);
   } else {
     fprintf(stderr,
             "brink: warning: on %s, cannot copy the kept folder %s to %s "

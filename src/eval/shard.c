@@ -125,7 +125,7 @@ void bk_shard_evaluator(bk_shard_eval_t *se, bk_evaluator_t *ev) {
 #define VERSION_COMMAND_LIMIT 120
 
 /* Adds part `i` named by the printf text, with digest `digest` copied. */
-static int ident_part(bk_study_ident_t *id, size_t i, const char *digest,
+static int ident_part(bk_shard_ident_t *id, size_t i, const char *digest,
                       const char *fmt, const char *arg) {
   bk_buf_t b;
   bk_buf_init(&b);
@@ -138,7 +138,7 @@ static int ident_part(bk_study_ident_t *id, size_t i, const char *digest,
   return 0;
 }
 
-int bk_study_ident_init(bk_study_ident_t *id, const bk_study_t *s,
+int bk_shard_ident_init(bk_shard_ident_t *id, const bk_study_t *s,
                         bk_error_t *err) {
   const bk_model_t *m = &s->model;
   memset(id, 0, sizeof *id);
@@ -184,11 +184,11 @@ int bk_study_ident_init(bk_study_ident_t *id, const bk_study_t *s,
 fail:
   if (rc == BK_ENOMEM)
     bk_error_set(err, BK_ENOMEM, NULL, 0, 0, "out of memory");
-  bk_study_ident_close(id);
+  bk_shard_ident_close(id);
   return rc;
 }
 
-void bk_study_ident_close(bk_study_ident_t *id) {
+void bk_shard_ident_close(bk_shard_ident_t *id) {
   for (size_t i = 0; id->names && i < id->nparts; i++)
     bk_free(id->names[i]);
   for (size_t i = 0; id->digests && i < id->nparts; i++)
@@ -199,7 +199,7 @@ void bk_study_ident_close(bk_study_ident_t *id) {
   bk_free(id->ynames);
   memset(id, 0, sizeof *id);
 }
-void bk_study_ident_opts(const bk_study_ident_t *id, const bk_study_t *s,
+void bk_shard_ident_opts(const bk_shard_ident_t *id, const bk_study_t *s,
                          const char *path, bk_records_opts_t *ro) {
   memset(ro, 0, sizeof *ro);
   ro->path = path;
@@ -260,7 +260,7 @@ static int serve_batch(bk_evaluator_t *ev, const char *prefix, bk_point_t *pts,
   return 0;
 }
 
-void bk_serve_evaluator(bk_serve_t *sv, bk_evaluator_t *ev) {
+void bk_shard_serve_evaluator(bk_serve_t *sv, bk_evaluator_t *ev) {
   ev->batch = serve_batch;
   ev->data = sv;
 }

@@ -62,17 +62,17 @@ typedef struct {
   char **names;        /* owned part names */
   char **digests;      /* owned digests (NULL for those of the study) */
   const char **ynames; /* output names */
-} bk_study_ident_t;
+} bk_shard_ident_t;
 
 /* The fingerprint parts of study s: the study and model sections, each
  * template, each model.copy and model.watch file (hashed now) and the
  * output of model.version_command (run now, in the study's folder).
  * Returns 0, or a negative code with err set naming the file or command. */
-int bk_study_ident_init(bk_study_ident_t *id, const bk_study_t *s,
+int bk_shard_ident_init(bk_shard_ident_t *id, const bk_study_t *s,
                         bk_error_t *err);
-void bk_study_ident_close(bk_study_ident_t *id);
+void bk_shard_ident_close(bk_shard_ident_t *id);
 /* Fills ro for the log at `path` of this study. */
-void bk_study_ident_opts(const bk_study_ident_t *id, const bk_study_t *s,
+void bk_shard_ident_opts(const bk_shard_ident_t *id, const bk_study_t *s,
                          const char *path, bk_records_opts_t *ro);
 
 /* ---- serving from records ---------------------------------------------- */
@@ -96,6 +96,6 @@ typedef struct {
   int recompute;
 } bk_serve_t;
 
-void bk_serve_evaluator(bk_serve_t *sv, bk_evaluator_t *ev);
+void bk_shard_serve_evaluator(bk_serve_t *sv, bk_evaluator_t *ev);
 
 #endif

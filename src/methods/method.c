@@ -15,7 +15,7 @@ static int run_method(const bk_study_t *s, bk_evaluator_t *ev,
                       const bk_method_opts_t *opts, bk_result_t *res,
                       bk_error_t *err) {
   memset(res, 0, sizeof *res);
-  res->method = bk_method_name(s->analysis.method);
+  res->method = bk_study_method_name(s->analysis.method);
   switch (s->analysis.method) {
   case BK_METHOD_RANDOM:
   case BK_METHOD_LHS:
@@ -40,7 +40,7 @@ static int run_method(const bk_study_t *s, bk_evaluator_t *ev,
   default:
     return bk_error_set(err, BK_EINVAL, s->path, 0, 0,
                         "method %s is not available in this version",
-                        bk_method_name(s->analysis.method));
+                        bk_study_method_name(s->analysis.method));
   }
 }
 

@@ -1337,7 +1337,7 @@ static int hand_over(form_t *f, bk__design_points_t *out) {
   out->beta = bk_calloc(k, sizeof *out->beta);
   out->log_share = bk_calloc(k, sizeof *out->log_share);
   if (!out->u || !out->beta || !out->log_share) {
-    bk__design_points_close(out);
+    bk__method_design_points_close(out);
     return bk_mctx_nomem(f->m);
   }
   out->n = k;
@@ -1355,14 +1355,14 @@ static int hand_over(form_t *f, bk__design_points_t *out) {
   return 0;
 }
 
-void bk__design_points_close(bk__design_points_t *dps) {
+void bk__method_design_points_close(bk__design_points_t *dps) {
   bk_free(dps->u);
   bk_free(dps->beta);
   bk_free(dps->log_share);
   memset(dps, 0, sizeof *dps);
 }
 
-int bk__form_search(bk_mctx_t *m, bk__design_points_t *out) {
+int bk__method_form_search(bk_mctx_t *m, bk__design_points_t *out) {
   const bk_study_t *s = m->s;
   form_t f;
   memset(&f, 0, sizeof f);
@@ -1447,7 +1447,7 @@ int bk__method_form(const bk_study_t *s, bk_evaluator_t *ev,
     return bk__system_form(s, ev, opts, res, err);
   bk_mctx_t m;
   bk_mctx_init(&m, s, ev, opts, res, err);
-  int rc = bk__form_search(&m, NULL);
+  int rc = bk__method_form_search(&m, NULL);
   if (rc == 0)
     rc = bk_mctx_finish(&m);
   bk_mctx_close(&m);

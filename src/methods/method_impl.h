@@ -29,7 +29,7 @@ typedef struct {
   int complement;
 } bk__design_points_t;
 
-void bk__design_points_close(bk__design_points_t *dps);
+void bk__method_design_points_close(bk__design_points_t *dps);
 
 /* The FORM design-point search with its exploration under keys "form/..."
  * (method_form.c) in the method context m, also the first phase of
@@ -38,10 +38,10 @@ void bk__design_points_close(bk__design_points_t *dps);
  * (the nearest design point, or search 0's last iterate with a warning),
  * the warnings, notes and details of the exploration, adds the failures
  * it saw to res->est.failures, and sets res->stop_reason; with `out`, also
- * the design points for sampling (freed by bk__design_points_close). The
+ * the design points for sampling (freed by bk__method_design_points_close). The
  * caller applies bk_mctx_finish. Returns 0, BK_ESTOPPED or another
  * negative code with m->err set. */
-int bk__form_search(bk_mctx_t *m, bk__design_points_t *out);
+int bk__method_form_search(bk_mctx_t *m, bk__design_points_t *out);
 
 /* FORM of a system of several limit states (system.c): a design point per
  * mode and the system's first-order bounds. */

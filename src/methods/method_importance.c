@@ -99,7 +99,7 @@ static int find_centers(is_t *t) {
   memset(&dps, 0, sizeof dps);
   size_t k = 1;
   if (!s->analysis.importance.has_center) {
-    int rc = bk__form_search(m, &dps);
+    int rc = bk__method_form_search(m, &dps);
     if (rc)
       return rc;
     if (dps.n == 0 && !dps.complement)
@@ -119,7 +119,7 @@ static int find_centers(is_t *t) {
   t->logpi = bk_calloc(k + 1, sizeof *t->logpi);
   t->cum = bk_calloc(k + 1, sizeof *t->cum);
   if (!t->centers || !t->cc || !t->logpi || !t->cum) {
-    bk__design_points_close(&dps);
+    bk__method_design_points_close(&dps);
     return bk_mctx_nomem(m);
   }
   if (s->analysis.importance.has_center) {
@@ -158,7 +158,7 @@ static int find_centers(is_t *t) {
     bk_result_note(res, "the medians fail, so Pf is above 1/2: the "
                         "samples come from the original density (every "
                         "weight 1)");
-  bk__design_points_close(&dps);
+  bk__method_design_points_close(&dps);
   return 0;
 }
 

@@ -1254,9 +1254,9 @@ static void fill_estimate(sg_t *g, double pf, double var) {
   e->ci_exact[1] = e->ci[1];
   e->ci_level = level;
   e->ci_method = "normal (surrogate + correction)";
-  e->beta = bk_beta_from_pf(e->pf);
-  e->beta_ci[0] = bk_beta_from_pf(e->ci[1]);
-  e->beta_ci[1] = bk_beta_from_pf(e->ci[0]);
+  e->beta = bk_estimate_beta_from_pf(e->pf);
+  e->beta_ci[0] = bk_estimate_beta_from_pf(e->ci[1]);
+  e->beta_ci[1] = bk_estimate_beta_from_pf(e->ci[0]);
 }
 
 /* Correction sums. */

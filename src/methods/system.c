@@ -187,7 +187,7 @@ int bk__system_form(const bk_study_t *s, bk_evaluator_t *ev,
     r.method = res->method;
     bk_mctx_t m;
     bk_mctx_init(&m, s, &mev, opts, &r, err);
-    rc = bk__form_search(&m, NULL);
+    rc = bk__method_form_search(&m, NULL);
     if (rc == 0)
       rc = bk_mctx_finish(&m);
     bk_mctx_close(&m);

@@ -91,13 +91,13 @@ int bk_dist_kind_from_name(const char *name) {
   return -1;
 }
 
-const char *bk_param_name(bk_param_t p) {
+const char *bk_dist_param_name(bk_param_t p) {
   if ((int)p < 0 || p >= BK_PARAM__COUNT)
     return "?";
   return param_names[p];
 }
 
-int bk_param_from_name(const char *name) {
+int bk_dist_param_from_name(const char *name) {
   if (name == NULL)
     return -1;
   for (int k = 0; k < BK_PARAM__COUNT; k++)

@@ -68,9 +68,9 @@ typedef struct {
 const char *bk_dist_name(bk_dist_kind_t kind);
 /* Returns the kind for a name, or -1. */
 int bk_dist_kind_from_name(const char *name);
-const char *bk_param_name(bk_param_t p);
+const char *bk_dist_param_name(bk_param_t p);
 /* Returns the parameter for a name, or -1. */
-int bk_param_from_name(const char *name);
+int bk_dist_param_from_name(const char *name);
 
 /* Fills `d` from `spec`. On failure returns BK_EINVAL (BK_ERANGE when the
  * values are valid one by one but out of reach together, e.g. a Weibull

@@ -11,7 +11,7 @@
 
 #include "numerics/special.h"
 
-double bk_beta_from_pf(double pf) {
+double bk_estimate_beta_from_pf(double pf) {
   if (pf <= 0)
     return INFINITY;
   if (pf >= 1)
@@ -19,13 +19,13 @@ double bk_beta_from_pf(double pf) {
   return -bk_norm_icdf(pf);
 }
 
-double bk_pf_from_beta(double beta) {
+double bk_estimate_pf_from_beta(double beta) {
   return bk_norm_cdf(-beta);
 }
 
 /* Wilson (1927), JASA 22:209-212: the score interval
  * (p + z^2/2n +- z sqrt(p(1-p)/n + z^2/4n^2)) / (1 + z^2/n). */
-void bk_wilson(uint64_t n, uint64_t k, double level, double ci[2]) {
+void bk_estimate_wilson(uint64_t n, uint64_t k, double level, double ci[2]) {
   if (n == 0) {
     ci[0] = 0;
     ci[1] = 1;
@@ -41,7 +41,7 @@ void bk_wilson(uint64_t n, uint64_t k, double level, double ci[2]) {
 
 /* Clopper & Pearson (1934), Biometrika 26:404-413: the bounds are beta
  * quantiles, lower = B^-1(a/2; k, n-k+1), upper = B^-1(1-a/2; k+1, n-k). */
-void bk_clopper_pearson(uint64_t n, uint64_t k, double level, double ci[2]) {
+void bk_estimate_clopper_pearson(uint64_t n, uint64_t k, double level, double ci[2]) {
   double a = 1 - level;
   double kk = (double)k, nn = (double)n;
   ci[0] = k == 0 ? 0 : bk_beta_inc_inv(kk, nn - kk + 1, a / 2);
@@ -49,9 +49,9 @@ void bk_clopper_pearson(uint64_t n, uint64_t k, double level, double ci[2]) {
 }
 
 void bk_estimate_set_beta(bk_estimate_t *e) {
-  e->beta = bk_beta_from_pf(e->pf);
-  e->beta_ci[0] = bk_beta_from_pf(e->ci[1]);
-  e->beta_ci[1] = bk_beta_from_pf(e->ci[0]);
+  e->beta = bk_estimate_beta_from_pf(e->pf);
+  e->beta_ci[0] = bk_estimate_beta_from_pf(e->ci[1]);
+  e->beta_ci[1] = bk_estimate_beta_from_pf(e->ci[0]);
 }
 
 void bk_estimate_binomial(uint64_t n, uint64_t k, double level,
@@ -61,8 +61,8 @@ void bk_estimate_binomial(uint64_t n, uint64_t k, double level,
   e->ci_level = level;
   e->pf = n ? (double)k / (double)n : NAN;
   e->cov = k ? sqrt((1 - e->pf) / ((double)n * e->pf)) : INFINITY;
-  bk_wilson(n, k, level, e->ci);
-  bk_clopper_pearson(n, k, level, e->ci_exact);
+  bk_estimate_wilson(n, k, level, e->ci);
+  bk_estimate_clopper_pearson(n, k, level, e->ci_exact);
   e->ci_method = "wilson";
   bk_estimate_set_beta(e);
 }
@@ -77,7 +77,7 @@ void bk_estimate_replicates(const double *pf, size_t r, uint64_t per,
     mean += pf[i];
   mean = r ? mean / (double)r : NAN;
   e->pf = mean;
-  bk_clopper_pearson(e->n, failures, level, e->ci_exact);
+  bk_estimate_clopper_pearson(e->n, failures, level, e->ci_exact);
   if (r < 2 || failures == 0) {
     e->cov = failures ? NAN : INFINITY;
     e->ci[0] = e->ci_exact[0];

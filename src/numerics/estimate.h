@@ -38,9 +38,9 @@ typedef struct {
 } bk_estimate_t;
 
 /* Wilson score interval for k failures in n trials. */
-void bk_wilson(uint64_t n, uint64_t k, double level, double ci[2]);
+void bk_estimate_wilson(uint64_t n, uint64_t k, double level, double ci[2]);
 /* Clopper-Pearson (exact) interval. */
-void bk_clopper_pearson(uint64_t n, uint64_t k, double level, double ci[2]);
+void bk_estimate_clopper_pearson(uint64_t n, uint64_t k, double level, double ci[2]);
 
 /* The estimate for k failures in n independent samples (Wilson interval as
  * ci, Clopper-Pearson as ci_exact). */
@@ -127,7 +127,7 @@ void bk_estimate_set_beta(bk_estimate_t *e);
 
 /* Reliability index from a failure probability, beta = -Phi^-1(pf), and
  * back. */
-double bk_beta_from_pf(double pf);
-double bk_pf_from_beta(double beta);
+double bk_estimate_beta_from_pf(double pf);
+double bk_estimate_pf_from_beta(double beta);
 
 #endif

@@ -57,7 +57,7 @@ static inline void philox10(uint32_t c[4], uint32_t k0, uint32_t k1) {
   }
 }
 
-void bk_philox4x32_10(const uint32_t ctr[4], const uint32_t key[2],
+void bk_rng_philox4x32_10(const uint32_t ctr[4], const uint32_t key[2],
                       uint32_t out[4]) {
   uint32_t c[4] = {ctr[0], ctr[1], ctr[2], ctr[3]};
   philox10(c, key[0], key[1]);

@@ -17,7 +17,7 @@
 #include <stdint.h>
 
 /* One Philox4x32-10 block: out = bijection_key(ctr). */
-void bk_philox4x32_10(const uint32_t ctr[4], const uint32_t key[2],
+void bk_rng_philox4x32_10(const uint32_t ctr[4], const uint32_t key[2],
                       uint32_t out[4]);
 
 /* A uniform number in the open interval (0, 1), never 0 or 1: the top 52 of

@@ -6,7 +6,7 @@
  *  - Random: the counter-based uniforms of rng.c, one Philox block per pair
  *    of coordinates.
  *  - Latin hypercube (McKay, Beckman & Conover 1979): coordinate d of point
- *    i lies in stratum bk_permute(i, n, key_d) of n equal strata, jittered
+ *    i lies in stratum bk_sampler_permute(i, n, key_d) of n equal strata, jittered
  *    uniformly inside it.
  *  - Sobol by index with Joe & Kuo (2008) direction numbers, optionally with
  *    hash-based Owen scrambling (Burley 2020).
@@ -159,7 +159,7 @@ static inline uint64_t perm_apply(const perm_t *q, uint64_t i,
   return x < n - q->off ? x + q->off : x - (n - q->off);
 }
 
-uint64_t bk_permute(uint64_t i, uint64_t n, uint64_t key) {
+uint64_t bk_sampler_permute(uint64_t i, uint64_t n, uint64_t key) {
   if (n <= 1)
     return 0;
   assert(i < n);
@@ -230,7 +230,7 @@ static inline void lhs_column(const perm_t *q, unsigned rounds, uint64_t first,
   }
 }
 
-/* Coordinate d is in stratum bk_permute(index, n, key_p + d * golden),
+/* Coordinate d is in stratum bk_sampler_permute(index, n, key_p + d * golden),
  * jittered by the uniform of (seed, jitter stream, index, d). In blocks of
  * ROWS rows (which stay in cache), each dimension's permutation is set up
  * once and applied down the column. */
@@ -270,7 +270,7 @@ static void lhs_points(const bk_sampler_t *s, uint64_t first, size_t count,
  * Process-wide and not thread-safe while growing: bk_sampler_init grows it
  * to the sampler's ndim, after which bk_sampler_point only reads it and may
  * run in many threads, as long as no other thread calls bk_sampler_init or
- * bk_sobol_raw with more dimensions at the same time. The layout puts one
+ * bk_sampler_sobol_raw with more dimensions at the same time. The layout puts one
  * bit's numbers of all dimensions side by side, so a point xors contiguous
  * rows. Pages of the arrays are touched only as dimensions are used. */
 #define SOBOL_FASTDIM 256
@@ -328,7 +328,7 @@ static void sobol_grow(uint32_t ndim) {
     sobol_fill(sobol_nready++);
 }
 
-uint32_t bk_sobol_raw(uint64_t index, uint32_t dim) {
+uint32_t bk_sampler_sobol_raw(uint64_t index, uint32_t dim) {
   assert(dim < BK_SOBOL_MAXDIM);
   sobol_grow(dim + 1);
   uint32_t x = 0;

@@ -7,7 +7,7 @@
  *  - BK_SAMPLER_LHS: Latin hypercube of `npoints` points; in each dimension
  *    point i falls in stratum perm_d(i), perm_d a keyed bijection of
  *    [0, npoints) evaluated on the fly (cycle walking as in Kensler 2013,
- *    over a keyed Feistel network; see bk_permute in sampler.c), jittered
+ *    over a keyed Feistel network; see bk_sampler_permute in sampler.c), jittered
  *    uniformly inside the stratum (McKay et al. 1979).
  *  - BK_SAMPLER_SOBOL: Sobol points by index with Joe & Kuo (2008)
  *    direction numbers (new-joe-kuo-6.21201), point i the xor of the
@@ -61,7 +61,7 @@ typedef struct {
  * npoints 0 or above 2^53 for LHS, npoints above 2^32 for Sobol, an unknown
  * kind), leaving *s unchanged. For Sobol it computes the direction numbers
  * of the first ndim dimensions into a process-wide table if not done yet;
- * that step is not thread-safe, so call bk_sampler_init (and bk_sobol_raw)
+ * that step is not thread-safe, so call bk_sampler_init (and bk_sampler_sobol_raw)
  * from one thread at a time; bk_sampler_point only reads the table. */
 int bk_sampler_init(bk_sampler_t *s, bk_sampler_kind_t kind, uint64_t seed,
                     uint64_t stream, uint32_t ndim, uint64_t npoints,
@@ -82,10 +82,10 @@ void bk_sampler_points(const bk_sampler_t *s, uint64_t first, size_t count,
 /* Unscrambled Sobol coordinate as a 32-bit integer (for tests): the xor of
  * the direction numbers of dimension `dim` (< BK_SOBOL_MAXDIM) over the set
  * bits of index mod 2^32. Grows the table like bk_sampler_init. */
-uint32_t bk_sobol_raw(uint64_t index, uint32_t dim);
+uint32_t bk_sampler_sobol_raw(uint64_t index, uint32_t dim);
 
 /* The keyed permutation of [0, n): a bijection for every key and n >= 1;
  * requires i < n. */
-uint64_t bk_permute(uint64_t i, uint64_t n, uint64_t key);
+uint64_t bk_sampler_permute(uint64_t i, uint64_t n, uint64_t key);
 
 #endif

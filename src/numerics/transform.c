@@ -88,7 +88,7 @@ static double hermite_orthonormal(int n, double x, double *prev,
  * p_n; the weights are the Christoffel numbers 1 / sum_{k<n} p_k(x)^2,
  * equal to the squared first eigenvector components of Golub-Welsch. The
  * rule is exact for polynomials of degree up to 2n-1. 1 <= n <= 256. */
-void bk__gauss_hermite(int n, double *x, double *w) {
+void bk__transform_gauss_hermite(int n, double *x, double *w) {
   double bound = 2 * sqrt(n > 1 ? n - 1.0 : 1.0); /* Gershgorin */
   double total = 0;
   for (int i = 0; i < n; i++) {
@@ -179,7 +179,7 @@ typedef struct {
 static void rules_init(rules_t *r) {
   gauss_legendre(GL_N, r->glx, r->glw);
   r->gh.n = GH_N;
-  bk__gauss_hermite(GH_N, r->gh.y, r->gh.w);
+  bk__transform_gauss_hermite(GH_N, r->gh.y, r->gh.w);
 }
 
 static void add_panels(const rules_t *rs, rule_t *r, double lo, double hi) {
@@ -457,7 +457,7 @@ static double normal_slope(const bk_dist_t *b) {
   return sum;
 }
 
-double bk__nataf_rho(const bk_dist_t *a, const bk_dist_t *b, double rho0) {
+double bk__transform_nataf_rho(const bk_dist_t *a, const bk_dist_t *b, double rho0) {
   if (!has_variance(a) || !has_variance(b) || !(fabs(rho0) <= 1))
     return NAN;
   pair_t p;
@@ -488,14 +488,14 @@ static double solve_numeric(const bk_dist_t *a, const bk_dist_t *b, double rho,
   return fabs(r0) < 1 ? r0 : NAN;
 }
 
-double bk__nataf_rho0_numeric(const bk_dist_t *a, const bk_dist_t *b,
+double bk__transform_nataf_rho0_numeric(const bk_dist_t *a, const bk_dist_t *b,
                               double rho) {
   if (!has_variance(a) || !has_variance(b) || !(fabs(rho) < 1))
     return NAN;
   return solve_numeric(a, b, rho, NULL, NULL);
 }
 
-double bk_nataf_rho0(const bk_dist_t *a, const bk_dist_t *b, double rho) {
+double bk_transform_nataf_rho0(const bk_dist_t *a, const bk_dist_t *b, double rho) {
   if (!has_variance(a) || !has_variance(b) || !(fabs(rho) < 1))
     return NAN;
   double r0;
@@ -521,7 +521,7 @@ double bk_nataf_rho0(const bk_dist_t *a, const bk_dist_t *b, double rho) {
   return fabs(r0) < 1 ? r0 : NAN;
 }
 
-void bk_nataf_range(const bk_dist_t *a, const bk_dist_t *b, double *lo,
+void bk_transform_nataf_range(const bk_dist_t *a, const bk_dist_t *b, double *lo,
                     double *hi) {
   *lo = *hi = NAN;
   if (!has_variance(a) || !has_variance(b))
@@ -819,12 +819,12 @@ int bk_transform_new(bk_transform_t **out, size_t n, const bk_dist_t *dists,
     const bk_dist_t *da = &dists[c->a], *db = &dists[c->b];
     double r0 = earlier_solution(t, dists, corr, i);
     if (isnan(r0))
-      r0 = bk_nataf_rho0(da, db, c->rho);
+      r0 = bk_transform_nataf_rho0(da, db, c->rho);
     if (isnan(r0)) {
       double lo, hi;
       const char *na = bk_dist_name(da->kind), *nb = bk_dist_name(db->kind);
       bad = (int)i;
-      bk_nataf_range(da, db, &lo, &hi);
+      bk_transform_nataf_range(da, db, &lo, &hi);
       if (isnan(lo) || isnan(hi))
         set_why(why, whycap,
                 "the correlation of %s %s and %s %s marginal cannot be "

@@ -48,22 +48,22 @@ double bk_transform_rho0(const bk_transform_t *t, size_t a, size_t b);
 /* Solves the Nataf integral equation for one pair: the Gaussian-copula
  * correlation rho0 that gives physical correlation rho between marginals a
  * and b. Returns NaN when rho cannot be reached by these marginals. */
-double bk_nataf_rho0(const bk_dist_t *a, const bk_dist_t *b, double rho);
+double bk_transform_nataf_rho0(const bk_dist_t *a, const bk_dist_t *b, double rho);
 
 /* The physical correlations reachable by marginals a and b: `lo` and `hi`
  * are those of rho0 = -1 and rho0 = 1 (countermonotone and comonotone);
  * every rho strictly between them is reachable. NaN when a marginal is
  * constant or has no finite variance. */
-void bk_nataf_range(const bk_dist_t *a, const bk_dist_t *b, double *lo,
+void bk_transform_nataf_range(const bk_dist_t *a, const bk_dist_t *b, double *lo,
                     double *hi);
 
 /* For tests. The physical correlation for a copula correlation rho0, by the
  * product Gauss-Hermite rule; rho0 by that rule and Brent's method, even
  * where a closed form exists; the n-point Gauss rule for the standard
  * normal density (weights sum to 1, nodes ascending, 1 <= n <= 256). */
-double bk__nataf_rho(const bk_dist_t *a, const bk_dist_t *b, double rho0);
-double bk__nataf_rho0_numeric(const bk_dist_t *a, const bk_dist_t *b,
+double bk__transform_nataf_rho(const bk_dist_t *a, const bk_dist_t *b, double rho0);
+double bk__transform_nataf_rho0_numeric(const bk_dist_t *a, const bk_dist_t *b,
                               double rho);
-void bk__gauss_hermite(int n, double *x, double *w);
+void bk__transform_gauss_hermite(int n, double *x, double *w);
 
 #endif

@@ -19,7 +19,7 @@ const char bk_report_caution[] =
     "governing code, the consequence class and a licensed engineer decide\n"
     "whether a reliability level is acceptable.\n";
 
-int bk_json_string(bk_buf_t *out, const char *s) {
+int bk_report_json_string(bk_buf_t *out, const char *s) {
   bk_buf_putc(out, '"');
   for (const unsigned char *p = (const unsigned char *)s; *p; p++) {
     switch (*p) {
@@ -48,7 +48,7 @@ int bk_json_string(bk_buf_t *out, const char *s) {
   return bk_buf_putc(out, '"');
 }
 
-int bk_json_number(bk_buf_t *out, double v) {
+int bk_report_json_number(bk_buf_t *out, double v) {
   if (!isfinite(v))
     return bk_buf_puts(out, "null");
   return bk_buf_put_double(out, v);
@@ -57,15 +57,15 @@ int bk_json_number(bk_buf_t *out, double v) {
 static void key(bk_buf_t *o, const char *k, int *first) {
   bk_buf_puts(o, *first ? "\n  " : ",\n  ");
   *first = 0;
-  bk_json_string(o, k);
+  bk_report_json_string(o, k);
   bk_buf_puts(o, ": ");
 }
 
 static void pair(bk_buf_t *o, const double v[2]) {
   bk_buf_putc(o, '[');
-  bk_json_number(o, v[0]);
+  bk_report_json_number(o, v[0]);
   bk_buf_puts(o, ", ");
-  bk_json_number(o, v[1]);
+  bk_report_json_number(o, v[1]);
   bk_buf_putc(o, ']');
 }
 
@@ -80,19 +80,19 @@ static void error_runs_json(bk_buf_t *o, const bk_study_t *s,
   for (size_t i = 0; i < r->nerror_runs; i++) {
     const bk_error_run_t *e = &r->error_runs[i];
     bk_buf_puts(o, i ? ",\n    {\"key\": " : "\n    {\"key\": ");
-    bk_json_string(o, e->key);
+    bk_report_json_string(o, e->key);
     bk_buf_puts(o, ", \"kind\": ");
-    bk_json_string(o, bk_fault_name(e->fault));
+    bk_report_json_string(o, bk_fault_name(e->fault));
     bk_buf_puts(o, ", \"reason\": ");
-    bk_json_string(o, e->reason);
+    bk_report_json_string(o, e->reason);
     bk_buf_puts(o, ", \"folder\": ");
-    bk_json_string(o, e->folder);
+    bk_report_json_string(o, e->folder);
     bk_buf_puts(o, ", \"x\": {");
     for (size_t k = 0; k < s->nvars; k++) {
       bk_buf_puts(o, k ? ", " : "");
-      bk_json_string(o, s->vars[k].name);
+      bk_report_json_string(o, s->vars[k].name);
       bk_buf_puts(o, ": ");
-      bk_json_number(o, e->x[k]);
+      bk_report_json_number(o, e->x[k]);
     }
     bk_buf_puts(o, "}}");
   }
@@ -104,29 +104,29 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   const bk_estimate_t *e = &r->est;
   bk_buf_putc(o, '{');
   key(o, "name", &first);
-  bk_json_string(o, s->name);
+  bk_report_json_string(o, s->name);
   key(o, "study", &first);
   char *abs = realpath(s->path, NULL);
-  bk_json_string(o, abs ? abs : s->path);
+  bk_report_json_string(o, abs ? abs : s->path);
   free(abs);
   key(o, "tool", &first);
-  bk_json_string(o, "brink " BK_VERSION);
+  bk_report_json_string(o, "brink " BK_VERSION);
   key(o, "method", &first);
-  bk_json_string(o, r->method);
+  bk_report_json_string(o, r->method);
   key(o, "seed", &first);
   bk_buf_printf(o, "%llu", (unsigned long long)s->seed);
   key(o, "pf", &first);
-  bk_json_number(o, e->pf);
+  bk_report_json_number(o, e->pf);
   key(o, "beta", &first);
-  bk_json_number(o, e->beta);
+  bk_report_json_number(o, e->beta);
   key(o, "cov", &first);
-  bk_json_number(o, e->cov);
+  bk_report_json_number(o, e->cov);
   key(o, "ci", &first);
   pair(o, e->ci);
   key(o, "ci_level", &first);
-  bk_json_number(o, e->ci_level);
+  bk_report_json_number(o, e->ci_level);
   key(o, "ci_method", &first);
-  bk_json_string(o, e->ci_method ? e->ci_method : "none");
+  bk_report_json_string(o, e->ci_method ? e->ci_method : "none");
   key(o, "ci_exact", &first);
   pair(o, e->ci_exact);
   key(o, "beta_ci", &first);
@@ -151,17 +151,17 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     for (uint32_t i = 0; i < r->replicates; i++) {
       if (i)
         bk_buf_puts(o, ", ");
-      bk_json_number(o, r->replicate_pf[i]);
+      bk_report_json_number(o, r->replicate_pf[i]);
     }
     bk_buf_putc(o, ']');
   }
   if (s->analysis.target_cov > 0) {
     key(o, "target_cov", &first);
-    bk_json_number(o, s->analysis.target_cov);
+    bk_report_json_number(o, s->analysis.target_cov);
   }
   if (s->analysis.has_target_beta) {
     key(o, "target_beta", &first);
-    bk_json_number(o, s->analysis.target_beta);
+    bk_report_json_number(o, s->analysis.target_beta);
     key(o, "meets_target_beta", &first);
     bk_buf_puts(o, e->beta >= s->analysis.target_beta ? "true" : "false");
   }
@@ -169,17 +169,17 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     key(o, "design_point", &first);
     bk_buf_printf(o, "{\"converged\": %s, \"iterations\": %d, \"beta\": ",
                   r->dp.converged ? "true" : "false", r->dp.iterations);
-    bk_json_number(o, r->dp.beta);
+    bk_report_json_number(o, r->dp.beta);
     bk_buf_puts(o, ", \"pf_form\": ");
-    bk_json_number(o, r->dp.pf_form);
+    bk_report_json_number(o, r->dp.pf_form);
     bk_buf_puts(o, ", \"pf_sorm\": ");
-    bk_json_number(o, r->dp.pf_sorm);
+    bk_report_json_number(o, r->dp.pf_sorm);
     bk_buf_puts(o, ", \"x\": {");
     for (size_t i = 0; i < s->nvars; i++) {
       bk_buf_puts(o, i ? ", " : "");
-      bk_json_string(o, s->vars[i].name);
+      bk_report_json_string(o, s->vars[i].name);
       bk_buf_puts(o, ": ");
-      bk_json_number(o, r->dp.x[i]);
+      bk_report_json_number(o, r->dp.x[i]);
     }
     /* u of the random variables (constants take no u coordinate). */
     bk_buf_puts(o, "}, \"u\": {");
@@ -187,22 +187,22 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
       if (s->vars[i].dist.kind == BK_DIST_CONSTANT)
         continue;
       bk_buf_puts(o, k ? ", " : "");
-      bk_json_string(o, s->vars[i].name);
+      bk_report_json_string(o, s->vars[i].name);
       bk_buf_puts(o, ": ");
-      bk_json_number(o, r->dp.u[k++]);
+      bk_report_json_number(o, r->dp.u[k++]);
     }
     bk_buf_puts(o, "}, \"alpha2\": {");
     for (size_t i = 0; i < s->nvars; i++) {
       bk_buf_puts(o, i ? ", " : "");
-      bk_json_string(o, s->vars[i].name);
+      bk_report_json_string(o, s->vars[i].name);
       bk_buf_puts(o, ": ");
-      bk_json_number(o, r->dp.alpha2[i]);
+      bk_report_json_number(o, r->dp.alpha2[i]);
     }
     bk_buf_puts(o, "}}");
   }
   if (s->nmodes) {
     key(o, "system", &first);
-    bk_json_string(o, s->limit_state);
+    bk_report_json_string(o, s->limit_state);
   }
   if (r->ncomponents) {
     key(o, "components", &first);
@@ -210,9 +210,9 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
     for (size_t i = 0; i < r->ncomponents; i++) {
       const bk_component_t *c = &r->components[i];
       bk_buf_puts(o, i ? ",\n    " : "\n    ");
-      bk_json_string(o, c->name);
+      bk_report_json_string(o, c->name);
       bk_buf_puts(o, ": {\"limit_state\": ");
-      bk_json_string(o, i < s->nmodes ? s->modes[i].text : "");
+      bk_report_json_string(o, i < s->nmodes ? s->modes[i].text : "");
       if (i >= s->nsystem || s->system == BK_SYSTEM_SINGLE)
         bk_buf_puts(o, ", \"in_system\": false");
       if (!c->present) {
@@ -220,15 +220,15 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
         continue;
       }
       bk_buf_puts(o, ", \"pf\": ");
-      bk_json_number(o, c->est.pf);
+      bk_report_json_number(o, c->est.pf);
       bk_buf_puts(o, ", \"beta\": ");
-      bk_json_number(o, c->est.beta);
+      bk_report_json_number(o, c->est.beta);
       bk_buf_puts(o, ", \"cov\": ");
-      bk_json_number(o, c->est.cov);
+      bk_report_json_number(o, c->est.cov);
       bk_buf_puts(o, ", \"ci\": ");
       pair(o, c->est.ci);
       bk_buf_puts(o, ", \"ci_method\": ");
-      bk_json_string(o, c->est.ci_method ? c->est.ci_method : "none");
+      bk_report_json_string(o, c->est.ci_method ? c->est.ci_method : "none");
       bk_buf_puts(o, ", \"beta_ci\": ");
       pair(o, c->est.beta_ci);
       bk_buf_printf(o, ", \"failures\": %llu, \"model_errors\": %llu",
@@ -243,7 +243,7 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
         /* The share of the system's failures in which this mode fails. */
         bk_buf_printf(o, ", \"system_failures\": %llu, \"share_of_system\": ",
                       (unsigned long long)c->system_failures);
-        bk_json_number(o, e->failures
+        bk_report_json_number(o, e->failures
                               ? (double)c->system_failures / (double)e->failures
                               : NAN);
       }
@@ -252,15 +252,15 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
                       ", \"design_point\": {\"converged\": %s, "
                       "\"iterations\": %d, \"beta\": ",
                       c->dp.converged ? "true" : "false", c->dp.iterations);
-        bk_json_number(o, c->dp.beta);
+        bk_report_json_number(o, c->dp.beta);
         bk_buf_puts(o, ", \"pf_form\": ");
-        bk_json_number(o, c->dp.pf_form);
+        bk_report_json_number(o, c->dp.pf_form);
         bk_buf_puts(o, ", \"x\": {");
         for (size_t v = 0; v < s->nvars; v++) {
           bk_buf_puts(o, v ? ", " : "");
-          bk_json_string(o, s->vars[v].name);
+          bk_report_json_string(o, s->vars[v].name);
           bk_buf_puts(o, ": ");
-          bk_json_number(o, c->dp.x[v]);
+          bk_report_json_number(o, c->dp.x[v]);
         }
         bk_buf_puts(o, "}}");
       }
@@ -278,16 +278,16 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   }
   if (r->reanalysis) {
     key(o, "reanalysis", &first);
-    bk_json_string(o, r->reanalysis);
+    bk_report_json_string(o, r->reanalysis);
   }
   if (r->ndetails) {
     key(o, "details", &first);
     bk_buf_putc(o, '{');
     for (size_t i = 0; i < r->ndetails; i++) {
       bk_buf_puts(o, i ? ", " : "");
-      bk_json_string(o, r->details[i].label);
+      bk_report_json_string(o, r->details[i].label);
       bk_buf_puts(o, ": ");
-      bk_json_number(o, r->details[i].value);
+      bk_report_json_number(o, r->details[i].value);
     }
     bk_buf_putc(o, '}');
   }
@@ -295,24 +295,24 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   bk_buf_putc(o, '[');
   for (size_t i = 0; i < r->nwarnings; i++) {
     bk_buf_puts(o, i ? ", " : "");
-    bk_json_string(o, r->warnings[i]);
+    bk_report_json_string(o, r->warnings[i]);
   }
   bk_buf_putc(o, ']');
   key(o, "notes", &first);
   bk_buf_putc(o, '[');
   for (size_t i = 0; i < r->nnotes; i++) {
     bk_buf_puts(o, i ? ", " : "");
-    bk_json_string(o, r->notes[i]);
+    bk_report_json_string(o, r->notes[i]);
   }
   bk_buf_putc(o, ']');
   error_runs_json(o, s, r, &first);
   key(o, "stop_reason", &first);
-  bk_json_string(o, r->stop_reason ? r->stop_reason : "");
+  bk_report_json_string(o, r->stop_reason ? r->stop_reason : "");
   key(o, "seconds", &first);
-  bk_json_number(o, r->seconds);
+  bk_report_json_number(o, r->seconds);
   if (r->sessions) {
     key(o, "seconds_total", &first);
-    bk_json_number(o, r->seconds_total);
+    bk_report_json_number(o, r->seconds_total);
     key(o, "sessions", &first);
     bk_buf_printf(o, "%u", r->sessions);
   }
@@ -323,16 +323,16 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   for (size_t i = 0; i < r->nhistory; i++) {
     const bk_history_t *h = &r->history[i];
     bk_buf_printf(o, "%s[%llu, ", i ? ", " : "", (unsigned long long)h->n);
-    bk_json_number(o, h->pf);
+    bk_report_json_number(o, h->pf);
     bk_buf_puts(o, ", ");
-    bk_json_number(o, h->ci[0]);
+    bk_report_json_number(o, h->ci[0]);
     bk_buf_puts(o, ", ");
-    bk_json_number(o, h->ci[1]);
+    bk_report_json_number(o, h->ci[1]);
     bk_buf_putc(o, ']');
   }
   bk_buf_puts(o, "]");
   key(o, "caution", &first);
-  bk_json_string(o, bk_report_caution);
+  bk_report_json_string(o, bk_report_caution);
   return bk_buf_puts(o, "\n}\n");
 }
 

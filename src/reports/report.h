@@ -41,9 +41,9 @@ int bk_report_html_of(const char *folder, const bk_study_t *s, const char *json,
 int bk_report_study_path(const char *folder, char **path);
 
 /* Appends a JSON string literal (quoted, escaped). */
-int bk_json_string(bk_buf_t *out, const char *s);
+int bk_report_json_string(bk_buf_t *out, const char *s);
 /* Appends a JSON number (the shortest text that reads back as the same
  * double, bk_buf_put_double), or null when not finite. */
-int bk_json_number(bk_buf_t *out, double v);
+int bk_report_json_number(bk_buf_t *out, double v);
 
 #endif

@@ -67,7 +67,7 @@ void bk__extract_set_chunk(size_t n) {
 }
 
 /*
- * A compiled pattern. Read-only after bk_pattern_compile(): the match
+ * A compiled pattern. Read-only after bk_extract_pattern_compile(): the match
  * context is only read by pcre2_match(), and each extraction makes its own
  * match data, so one pattern serves any number of extractions.
  */
@@ -103,7 +103,7 @@ static void put(char *dst, size_t cap, const char *fmt, ...) {
   va_end(ap);
 }
 
-void bk_pattern_free(bk_pattern_t *p) {
+void bk_extract_pattern_free(bk_pattern_t *p) {
   if (!p)
     return;
   pcre2_match_context_free(p->mctx);
@@ -146,7 +146,7 @@ static const char *unsupported(const char *re, size_t *at) {
   return NULL;
 }
 
-int bk_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
+int bk_extract_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
                        size_t msgcap, size_t *err_off) {
   *out = NULL;
   if (err_off)
@@ -187,7 +187,7 @@ int bk_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
     if (err_off)
       *err_off = off;
     pcre2_compile_context_free(cctx);
-    bk_pattern_free(p);
+    bk_extract_pattern_free(p);
     return BK_EPARSE;
   }
   /* Checked once PCRE2 has accepted the pattern, so that a \G inside a
@@ -199,7 +199,7 @@ int bk_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
     if (err_off)
       *err_off = at;
     pcre2_compile_context_free(cctx);
-    bk_pattern_free(p);
+    bk_extract_pattern_free(p);
     return BK_EPARSE;
   }
   /* In multi-line mode ^ never matches at the end of the subject, and
@@ -232,7 +232,7 @@ int bk_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
 
 nomem:
   pcre2_compile_context_free(cctx);
-  bk_pattern_free(p);
+  bk_extract_pattern_free(p);
   put(msg, msgcap, "out of memory");
   return BK_ENOMEM;
 }
@@ -341,7 +341,7 @@ static int parse_number(const char *s, size_t len, double *out) {
   return 0;
 }
 
-int bk_number_parse(const char *s, size_t len, double *out) {
+int bk_extract_number(const char *s, size_t len, double *out) {
   double v;
   if (!s || parse_number(s, len, &v))
     return -1;

@@ -39,9 +39,9 @@ typedef struct bk_pattern bk_pattern_t;
  * the byte offset of the error in *err_off, or BK_ENOMEM. After a failure
  * *out is NULL. A compiled pattern is read-only and may be used by several
  * extractions at once. */
-int bk_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
+int bk_extract_pattern_compile(const char *re, bk_pattern_t **out, char *msg,
                        size_t msgcap, size_t *err_off);
-void bk_pattern_free(bk_pattern_t *p);
+void bk_extract_pattern_free(bk_pattern_t *p);
 
 /* Extracts from file `path`. Returns BK_FAULT_NONE with *value set, or
  * BK_FAULT_NO_OUTPUT (file absent), BK_FAULT_NO_MATCH or
@@ -84,7 +84,7 @@ int bk_extract_text_each(const bk_pattern_t *p, const char *text, size_t len,
 
 /* Parses a whole number token s[0..len) in the notations above. Returns 0
  * and *out (finite), or -1. */
-int bk_number_parse(const char *s, size_t len, double *out);
+int bk_extract_number(const char *s, size_t len, double *out);
 
 /* Test hook: files are read `n` bytes at a time (0 restores the default of
  * 1 MiB), so that tests can put chunk edges anywhere. */

@@ -42,11 +42,11 @@ static const char *const method_names[BK_METHOD__COUNT] = {
     "importance", "cross-entropy", "subset", "surrogate",
 };
 
-const char *bk_method_name(bk_method_kind_t m) {
+const char *bk_study_method_name(bk_method_kind_t m) {
   return m < BK_METHOD__COUNT ? method_names[m] : "unknown";
 }
 
-const char *bk_launch_name(bk_launch_t l) {
+const char *bk_study_launch_name(bk_launch_t l) {
   return l == BK_LAUNCH_SRUN ? "srun" : "direct";
 }
 
@@ -187,7 +187,7 @@ void bk_study_keys(bk_study_key_cb cb, void *data) {
   cb("variables.NAME.type", data);
   for (int p = 0; p < BK_PARAM__COUNT; p++) {
     snprintf(key, sizeof key, "variables.NAME.%s",
-             bk_param_name((bk_param_t)p));
+             bk_dist_param_name((bk_param_t)p));
     cb(key, data);
   }
 }
@@ -202,7 +202,7 @@ static uint64_t mix64(uint64_t z) {
 
 /* Two independent FNV-1a style lanes with a final avalanche; a change
  * detector for fingerprints, not a cryptographic hash. */
-void bk_digest_hex(const void *data, size_t len, char hex[33]) {
+void bk_study_digest_hex(const void *data, size_t len, char hex[33]) {
   const unsigned char *p = data;
   uint64_t a = 0xcbf29ce484222325ULL, b = 0x84222325cbf29ce4ULL ^ len;
   for (size_t i = 0; i < len; i++) {
@@ -551,12 +551,12 @@ static int load_variable(loader_t *L, yaml_node_t *k, yaml_node_t *v,
     yaml_node_t *pk = node_at(L, p->key), *pv = node_at(L, p->value);
     if (strcmp(scalar(pk), "type") == 0)
       continue;
-    int param = bk_param_from_name(scalar(pk));
+    int param = bk_dist_param_from_name(scalar(pk));
     if (param < 0) {
       char list[400] = "type";
       for (int i = 0; i < BK_PARAM__COUNT; i++) {
         strncat(list, ", ", sizeof list - strlen(list) - 1);
-        strncat(list, bk_param_name((bk_param_t)i),
+        strncat(list, bk_dist_param_name((bk_param_t)i),
                 sizeof list - strlen(list) - 1);
       }
       return FAIL(L, pk,
@@ -821,7 +821,7 @@ static int load_outputs(loader_t *L, yaml_node_t *on) {
       return nomem(L);
     char msg[256] = "";
     size_t off = 0;
-    int prc = bk_pattern_compile(pat, &o->re, msg, sizeof msg, &off);
+    int prc = bk_extract_pattern_compile(pat, &o->re, msg, sizeof msg, &off);
     if (prc == BK_ENOMEM)
       return nomem(L);
     if (prc) {
@@ -932,7 +932,7 @@ static int load_decks(loader_t *L, yaml_node_t *fn) {
     if (frc)
       return FAIL(L, tn, "cannot read template '%s': %s", t, bk_strerror(frc));
     char hex[33];
-    bk_digest_hex(text, len, hex);
+    bk_study_digest_hex(text, len, hex);
     d->digest = bk_strdup(hex);
     if (!d->digest) {
       bk_free(text);
@@ -2233,7 +2233,7 @@ static int make_digests(bk_study_t *s) {
     bad |=
         bk_buf_printf(&b, "mode %s %s\n", s->modes[i].name, s->modes[i].text);
   bad |= bk_buf_printf(&b, "g %s\nmethod %s samples %llu replicates %u\n",
-                       s->limit_state, bk_method_name(an->method),
+                       s->limit_state, bk_study_method_name(an->method),
                        (unsigned long long)an->samples, an->replicates);
   if (an->method >= BK_METHOD_FORM) {
     bad |= bk_buf_printf(&b, "form %a %d %d %a %d\n", an->form.step,
@@ -2260,7 +2260,7 @@ static int make_digests(bk_study_t *s) {
     return BK_ENOMEM;
   char hex[33];
   if (!bad) {
-    bk_digest_hex(b.data, b.len, hex);
+    bk_study_digest_hex(b.data, b.len, hex);
     s->digest_study = bk_strdup(hex);
   }
   bk_buf_reset(&b);
@@ -2282,7 +2282,7 @@ static int make_digests(bk_study_t *s) {
                          (int)m->outputs[i].match, m->outputs[i].pattern);
   bad |= bk_buf_printf(&b, "timeout %a\n", m->timeout);
   if (!bad) {
-    bk_digest_hex(b.data, b.len, hex);
+    bk_study_digest_hex(b.data, b.len, hex);
     s->digest_model = bk_strdup(hex);
   }
   bk_buf_close(&b);
@@ -2509,7 +2509,7 @@ void bk_study_free(bk_study_t *s) {
     bk_free(m->outputs[i].name);
     bk_free(m->outputs[i].file);
     bk_free(m->outputs[i].pattern);
-    bk_pattern_free(m->outputs[i].re);
+    bk_extract_pattern_free(m->outputs[i].re);
   }
   bk_free(m->outputs);
   bk_free(s->analysis.importance.center);

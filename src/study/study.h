@@ -242,8 +242,8 @@ void bk_study_free(bk_study_t *s);
  * bk_free), or NULL when out of memory. */
 char **bk_study_render_argv(const bk_study_t *s, const bk_template_ctx_t *ctx);
 
-const char *bk_method_name(bk_method_kind_t m);
-const char *bk_launch_name(bk_launch_t l);
+const char *bk_study_method_name(bk_method_kind_t m);
+const char *bk_study_launch_name(bk_launch_t l);
 
 /* The cores brink may use on this machine: the CPUs of its affinity mask
  * (which a launcher or a Slurm step restricts), at least 1. */
@@ -295,6 +295,6 @@ int bk_study_set_limit_state(bk_study_t *s, const char *name, const char *expr,
                              char *msg, size_t cap);
 
 /* A 128-bit digest of a text as 32 hex digits into hex[33]. */
-void bk_digest_hex(const void *data, size_t len, char hex[33]);
+void bk_study_digest_hex(const void *data, size_t len, char hex[33]);
 
 #endif
