@@ -99,6 +99,44 @@ static void error_runs_json(bk_buf_t *o, const bk_study_t *s,
   bk_buf_putc(o, ']');
 }
 
+/* A design point as a JSON object: convergence, beta, pf_form and
+ * pf_sorm, and x, u and alpha^2 by variable name (u of the random
+ * variables only: constants take no u coordinate). */
+static void design_point_json(bk_buf_t *o, const bk_study_t *s,
+                              const bk_design_point_t *dp) {
+  bk_buf_printf(o, "{\"converged\": %s, \"iterations\": %d, \"beta\": ",
+                dp->converged ? "true" : "false", dp->iterations);
+  bk_report_json_number(o, dp->beta);
+  bk_buf_puts(o, ", \"pf_form\": ");
+  bk_report_json_number(o, dp->pf_form);
+  bk_buf_puts(o, ", \"pf_sorm\": ");
+  bk_report_json_number(o, dp->pf_sorm);
+  bk_buf_puts(o, ", \"x\": {");
+  for (size_t i = 0; dp->x && i < s->nvars; i++) {
+    bk_buf_puts(o, i ? ", " : "");
+    bk_report_json_string(o, s->vars[i].name);
+    bk_buf_puts(o, ": ");
+    bk_report_json_number(o, dp->x[i]);
+  }
+  bk_buf_puts(o, "}, \"u\": {");
+  for (size_t i = 0, k = 0; dp->u && i < s->nvars; i++) {
+    if (s->vars[i].dist.kind == BK_DIST_CONSTANT)
+      continue;
+    bk_buf_puts(o, k ? ", " : "");
+    bk_report_json_string(o, s->vars[i].name);
+    bk_buf_puts(o, ": ");
+    bk_report_json_number(o, dp->u[k++]);
+  }
+  bk_buf_puts(o, "}, \"alpha2\": {");
+  for (size_t i = 0; dp->alpha2 && i < s->nvars; i++) {
+    bk_buf_puts(o, i ? ", " : "");
+    bk_report_json_string(o, s->vars[i].name);
+    bk_buf_puts(o, ": ");
+    bk_report_json_number(o, dp->alpha2[i]);
+  }
+  bk_buf_puts(o, "}}");
+}
+
 int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   int first = 1;
   const bk_estimate_t *e = &r->est;
@@ -167,38 +205,7 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
   }
   if (r->dp.present) {
     key(o, "design_point", &first);
-    bk_buf_printf(o, "{\"converged\": %s, \"iterations\": %d, \"beta\": ",
-                  r->dp.converged ? "true" : "false", r->dp.iterations);
-    bk_report_json_number(o, r->dp.beta);
-    bk_buf_puts(o, ", \"pf_form\": ");
-    bk_report_json_number(o, r->dp.pf_form);
-    bk_buf_puts(o, ", \"pf_sorm\": ");
-    bk_report_json_number(o, r->dp.pf_sorm);
-    bk_buf_puts(o, ", \"x\": {");
-    for (size_t i = 0; i < s->nvars; i++) {
-      bk_buf_puts(o, i ? ", " : "");
-      bk_report_json_string(o, s->vars[i].name);
-      bk_buf_puts(o, ": ");
-      bk_report_json_number(o, r->dp.x[i]);
-    }
-    /* u of the random variables (constants take no u coordinate). */
-    bk_buf_puts(o, "}, \"u\": {");
-    for (size_t i = 0, k = 0; i < s->nvars; i++) {
-      if (s->vars[i].dist.kind == BK_DIST_CONSTANT)
-        continue;
-      bk_buf_puts(o, k ? ", " : "");
-      bk_report_json_string(o, s->vars[i].name);
-      bk_buf_puts(o, ": ");
-      bk_report_json_number(o, r->dp.u[k++]);
-    }
-    bk_buf_puts(o, "}, \"alpha2\": {");
-    for (size_t i = 0; i < s->nvars; i++) {
-      bk_buf_puts(o, i ? ", " : "");
-      bk_report_json_string(o, s->vars[i].name);
-      bk_buf_puts(o, ": ");
-      bk_report_json_number(o, r->dp.alpha2[i]);
-    }
-    bk_buf_puts(o, "}}");
+    design_point_json(o, s, &r->dp);
   }
   if (s->nmodes) {
     key(o, "system", &first);
@@ -243,26 +250,13 @@ int bk_report_json(const bk_study_t *s, const bk_result_t *r, bk_buf_t *o) {
         /* The share of the system's failures in which this mode fails. */
         bk_buf_printf(o, ", \"system_failures\": %llu, \"share_of_system\": ",
                       (unsigned long long)c->system_failures);
-        bk_report_json_number(o, e->failures
-                              ? (double)c->system_failures / (double)e->failures
-                              : NAN);
+        bk_report_json_number(o, e->failures ? (double)c->system_failures /
+                                                   (double)e->failures
+                                             : NAN);
       }
       if (c->dp.present) {
-        bk_buf_printf(o,
-                      ", \"design_point\": {\"converged\": %s, "
-                      "\"iterations\": %d, \"beta\": ",
-                      c->dp.converged ? "true" : "false", c->dp.iterations);
-        bk_report_json_number(o, c->dp.beta);
-        bk_buf_puts(o, ", \"pf_form\": ");
-        bk_report_json_number(o, c->dp.pf_form);
-        bk_buf_puts(o, ", \"x\": {");
-        for (size_t v = 0; v < s->nvars; v++) {
-          bk_buf_puts(o, v ? ", " : "");
-          bk_report_json_string(o, s->vars[v].name);
-          bk_buf_puts(o, ": ");
-          bk_report_json_number(o, c->dp.x[v]);
-        }
-        bk_buf_puts(o, "}}");
+        bk_buf_puts(o, ", \"design_point\": ");
+        design_point_json(o, s, &c->dp);
       }
       bk_buf_putc(o, '}');
     }
