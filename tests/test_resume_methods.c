@@ -137,7 +137,8 @@ Test(resume_methods, surrogate_keeps_every_slot_busy) {
       "m.sh",
       "s=$(date +%%s.%%N); sleep 0.4\n"
       "set -- $(tr '=' ' ' < in.txt)\n"
-      "echo \"g = $(echo \"3.2 - ($2 + $4)/1.4142135623730951\" | bc -l)\" "
+      "awk -v a=\"$2\" -v b=\"$4\" "
+      "'BEGIN { printf \"g = %%.17g\\n\", 3.2 - (a + b)/1.4142135623730951 }' "
       "> out.txt\n"
       "echo \"$s $(date +%%s.%%N)\" >> '%s/times.log'\n",
       dir);
