@@ -13,6 +13,7 @@
 #include "base/alloc.h"
 #include "base/error.h"
 #include "base/fault.h"
+#include "numerics/order.h"
 #include "numerics/transform.h"
 
 /* Reservoir sizes: enough for a test that fires on clustered errors, small
@@ -24,24 +25,10 @@
 
 /* ---- the test ------------------------------------------------------- */
 
-typedef struct {
-  double v;
-  size_t i;
-} pair_t;
-
-static int pair_less(const void *a, const void *b) {
-  const pair_t *x = a, *y = b;
-  if (x->v < y->v)
-    return -1;
-  if (x->v > y->v)
-    return 1;
-  return x->i < y->i ? -1 : x->i > y->i;
-}
-
 /* Average ranks (1-based) of the n values in p (sorted in place), into
  * rank[p[j].i]; returns the tie term sum(t^3 - t). */
-static double rank_values(pair_t *p, size_t n, double *rank) {
-  qsort(p, n, sizeof *p, pair_less);
+static double rank_values(bk_order_pair_t *p, size_t n, double *rank) {
+  bk_order_sort(p, n);
   double ties = 0;
   for (size_t j = 0; j < n;) {
     size_t e = j + 1;
@@ -95,7 +82,7 @@ int bk_evidence_test(size_t nu, const double *ok_u, const double *ok_g,
     return 0;
   size_t nq = nok < MAX_QUERIES ? nok : MAX_QUERIES;
   size_t ntot = nerr + nq;
-  pair_t *p = bk_calloc(nok > ntot ? nok : ntot, sizeof *p);
+  bk_order_pair_t *p = bk_calloc(nok > ntot ? nok : ntot, sizeof *p);
   double *grank = bk_calloc(nok, sizeof *grank);
   double *score = bk_calloc(ntot, sizeof *score);
   double *srank = bk_calloc(ntot, sizeof *srank);
@@ -108,7 +95,7 @@ int bk_evidence_test(size_t nu, const double *ok_u, const double *ok_g,
   }
   double nfail = 0;
   for (size_t i = 0; i < nok; i++) {
-    p[i] = (pair_t){ok_g[i], i};
+    p[i] = (bk_order_pair_t){ok_g[i], i};
     nfail += ok_g[i] <= 0;
   }
   rank_values(p, nok, grank);
@@ -135,7 +122,7 @@ int bk_evidence_test(size_t nu, const double *ok_u, const double *ok_g,
     score[nerr + q] = s / (double)k;
   }
   for (size_t i = 0; i < ntot; i++)
-    p[i] = (pair_t){score[i], i};
+    p[i] = (bk_order_pair_t){score[i], i};
   double ties = rank_values(p, ntot, srank);
   double r1 = 0;
   for (size_t e = 0; e < nerr; e++)

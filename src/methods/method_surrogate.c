@@ -92,6 +92,7 @@
 #include "methods/method_impl.h"
 #include "numerics/gp.h"
 #include "numerics/learn.h"
+#include "numerics/order.h"
 #include "numerics/rng.h"
 #include "numerics/sampler.h"
 #include "numerics/special.h"
@@ -335,20 +336,6 @@ static int run_training(sg_t *g, const char *prefix, size_t n,
 /* Populations on the surrogate: subset simulation on G = mu - KAPPA s     */
 /* ---------------------------------------------------------------------- */
 
-typedef struct {
-  double v;
-  size_t i;
-} rank_t;
-
-static int rank_cmp(const void *a, const void *b) {
-  const rank_t *x = a, *y = b;
-  if (x->v < y->v)
-    return -1;
-  if (x->v > y->v)
-    return 1;
-  return x->i < y->i ? -1 : x->i > y->i;
-}
-
 /* Runs Markov chains from `ns` seeds (rows of seeds, with their mu and sd)
  * within G <= b until `n` states are made (seeds included), writing states
  * to out (n x nu) and their mu, sd. Conditional sampling with the
@@ -454,7 +441,7 @@ static int population(sg_t *g, const char *prefix, int it) {
   if (rc)
     return rc;
   size_t cap = n0 > N ? n0 : N;
-  rank_t *rk = bk_malloc(cap * sizeof *rk);
+  bk_order_pair_t *rk = bk_malloc(cap * sizeof *rk);
   double *seeds = bk_malloc(cap * nu * sizeof *seeds);
   double *smu = bk_malloc(cap * sizeof *smu),
          *ssd = bk_malloc(cap * sizeof *ssd);
@@ -482,7 +469,7 @@ static int population(sg_t *g, const char *prefix, int it) {
       b = 0;
       g->reached = 1;
     } else {
-      qsort(rk, n, sizeof *rk, rank_cmp);
+      bk_order_sort(rk, n);
       b = rk[need - 1].v;
     }
     /* Seeds: the points with G <= b in index order, at most nc of them
@@ -965,7 +952,7 @@ static double badness(const sg_t *g, double mu, double sd) {
  * q when there are fewer usable candidates). */
 static int pick_batch(sg_t *g, size_t q, size_t *pick, size_t *npicked) {
   size_t m = pop_size(g) - g->nsphere, nu = g->nu;
-  rank_t *rk = bk_malloc(m * sizeof *rk);
+  bk_order_pair_t *rk = bk_malloc(m * sizeof *rk);
   if (!rk)
     return oom(g);
   size_t nuse = 0;
@@ -979,7 +966,7 @@ static int pick_batch(sg_t *g, size_t q, size_t *pick, size_t *npicked) {
     rk[nuse].i = i;
     nuse++;
   }
-  qsort(rk, nuse, sizeof *rk, rank_cmp);
+  bk_order_sort(rk, nuse);
   int rc = 0;
   if (q > nuse)
     q = nuse;
