@@ -18,12 +18,11 @@
  *           parameter phi of C. With a profile sigma2 this holds as well:
  *           n sigma2 is a minimum over beta, whose derivative is
  *           -a^T (dC/dphi) a (envelope theorem), which gives the same
- *           expression (Rasmussen & Williams 2006, eq. 5.9 from memory, is the case
- *           without trend). For phi = log length_j and Matern 5/2,
- *           dR/dphi = (5/3) (1 + sqrt(5) r) exp(-sqrt(5) r) dv_j^2 with
- *           dv_j the j-th difference of the scaled inputs u / length; for
- *           the squared exponential, R dv_j^2; for phi = log nugget,
- *           nugget I.
+ *           expression (Rasmussen & Williams 2006, eq. 5.9 from memory, is the
+ * case without trend). For phi = log length_j and Matern 5/2, dR/dphi = (5/3)
+ * (1 + sqrt(5) r) exp(-sqrt(5) r) dv_j^2 with dv_j the j-th difference of the
+ * scaled inputs u / length; for the squared exponential, R dv_j^2; for phi =
+ * log nugget, nugget I.
  *
  * Prediction at x, with k the vector of R(x, u_i) and kt = L^-1 k
  * (Sacks et al. 1989, section 3; Santner et al. 2003, chapter 3, the
@@ -110,7 +109,7 @@ static double dkern(bk_gp_kernel_t kernel, double r2) {
   return (5.0 / 3.0) * (1 + SQRT5 * r) * exp(-SQRT5 * r);
 }
 
-static double dist2(const double *a, const double *b, size_t d) {
+double bk_gp_dist2(const double *a, const double *b, size_t d) {
   double s = 0;
   for (size_t j = 0; j < d; j++) {
     double t = a[j] - b[j];
@@ -258,7 +257,7 @@ static void build_cov(work_t *w, double diag) {
     col[k] = 1 + diag;
     const double *vk = w->v + k * d;
     for (size_t i = k + 1; i < n; i++)
-      col[i] = kern(w->kernel, dist2(w->v + i * d, vk, d));
+      col[i] = kern(w->kernel, bk_gp_dist2(w->v + i * d, vk, d));
   }
 }
 
@@ -346,7 +345,7 @@ static int evaluate(work_t *w, const double *z, double *grad) {
     for (size_t i = k + 1; i < n; i++) {
       const double *vi = w->v + i * d;
       double c = (w->a[i] * ak - w->Ci[i + k * n]) *
-                 dkern(w->kernel, dist2(vi, vk, d));
+                 dkern(w->kernel, bk_gp_dist2(vi, vk, d));
       for (size_t j = 0; j < d; j++) {
         double t = vi[j] - vk[j];
         grad[j] += c * t * t;
@@ -755,7 +754,7 @@ int bk_gp_predict(const bk_gp_t *gp, const double *u, size_t m, double *mean,
       double *kc = K + c * n;
       double s = 0;
       for (size_t i = 0; i < n; i++) {
-        kc[i] = kern(gp->kernel, dist2(f->v + i * d, vx, d));
+        kc[i] = kern(gp->kernel, bk_gp_dist2(f->v + i * d, vx, d));
         s += kc[i] * f->a[i];
       }
       trend_at(gp->trend, x, d, fx);

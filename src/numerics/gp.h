@@ -162,6 +162,9 @@ int bk_gp_loglik(const double *u, const double *y, size_t n, size_t d,
 
 /* The number of threads BLAS uses in this process after the GP module has
  * pinned it (1 is expected), for tests and benchmarks. */
+/* The squared Euclidean distance of two points of d coordinates (the
+ * kernel's argument; also the k-means distance of learn.c). */
+double bk_gp_dist2(const double *a, const double *b, size_t d);
 int bk_gp_blas_threads(void);
 
 #endif

@@ -61,21 +61,12 @@ double bk_learn_margin(double mu, double s, double k) {
 /* Weighted k-means                                                        */
 /* ---------------------------------------------------------------------- */
 
-static double dist2(const double *a, const double *b, size_t d) {
-  double s = 0;
-  for (size_t j = 0; j < d; j++) {
-    double t = a[j] - b[j];
-    s += t * t;
-  }
-  return s;
-}
-
 /* The nearest centroid of point x (ties to the lower index). */
 static size_t nearest(const double *x, const double *c, size_t q, size_t d) {
   size_t best = 0;
-  double bd = dist2(x, c, d);
+  double bd = bk_gp_dist2(x, c, d);
   for (size_t k = 1; k < q; k++) {
-    double dk = dist2(x, c + k * d, d);
+    double dk = bk_gp_dist2(x, c + k * d, d);
     if (dk < bd) {
       bd = dk;
       best = k;
@@ -115,7 +106,7 @@ int bk_learn_kmeans(const double *x, const double *w, size_t m, size_t d,
       first = i;
   memcpy(centroids, x + first * d, d * sizeof(double));
   for (size_t i = 0; i < m; i++)
-    mind[i] = dist2(x + i * d, centroids, d);
+    mind[i] = bk_gp_dist2(x + i * d, centroids, d);
   for (size_t k = 1; k < q; k++) {
     size_t best = 0;
     double bs = -1;
@@ -133,7 +124,7 @@ int bk_learn_kmeans(const double *x, const double *w, size_t m, size_t d,
     double *ck = centroids + k * d;
     memcpy(ck, x + best * d, d * sizeof(double));
     for (size_t i = 0; i < m; i++)
-      mind[i] = fmin(mind[i], dist2(x + i * d, ck, d));
+      mind[i] = fmin(mind[i], bk_gp_dist2(x + i * d, ck, d));
   }
   /* Lloyd's iterations: assign, then move each centroid to the weighted
    * mean of its candidates (a cluster without weight keeps its centroid). */
@@ -173,7 +164,7 @@ int bk_learn_kmeans(const double *x, const double *w, size_t m, size_t d,
     size_t best = m;
     for (size_t i = 0; i < m; i++)
       if (lab[i] == k && w[i] > 0) {
-        double di = dist2(x + i * d, centroids + k * d, d);
+        double di = bk_gp_dist2(x + i * d, centroids + k * d, d);
         if (di < bd) {
           bd = di;
           best = i;
@@ -191,7 +182,7 @@ int bk_learn_kmeans(const double *x, const double *w, size_t m, size_t d,
       int used = 0;
       for (size_t l = 0; l < q; l++)
         used |= pick[l] == i;
-      double di = dist2(x + i * d, centroids + k * d, d);
+      double di = bk_gp_dist2(x + i * d, centroids + k * d, d);
       if (!used && di < bd) {
         bd = di;
         pick[k] = i;
